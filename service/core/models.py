@@ -1,0 +1,853 @@
+"""Bidder-value models: one class per family.
+
+As in scipy.stats, the base class carries a generic numerical route
+(numerical inversion of the CDF, logs of the CDF and survival function) and each
+family overrides what it knows in closed form. Everything is vectorised over
+numpy arrays; nothing here builds a scipy frozen distribution, because those are
+slow to build and every request builds its own model.
+
+Each family declares its parameters once (``parameters``); the web layer builds
+its request schema from that declaration and the constructors check the rules
+that tie parameters together, raising :class:`ParameterError` with the field.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special as sp
+
+from .errors import ParameterError
+
+INF = math.inf
+
+
+@dataclass(frozen=True)
+class Param:
+    """A family parameter: ``bound`` is ``'positive'``, ``'nonnegative'`` or None."""
+
+    required: bool = True
+    default: float | None = None
+    bound: str | None = None
+
+
+class ValueModel:
+    """A continuous (or, for the step empirical, discrete) distribution of values.
+
+    Subclasses set ``lower``/``upper`` (the support) and override
+    ``cdf``/``sf``/``pdf`` and, where known in closed form, ``ppf``/``isf``.
+    """
+
+    family = "abstract"
+    lower = -INF
+    upper = INF
+    #: Power-law index of each tail (P(X > x) ~ x^-alpha); inf for lighter tails.
+    upper_tail_index = INF
+    lower_tail_index = INF
+    discrete = False
+
+    # --- to be overridden -------------------------------------------------
+    def cdf(self, x):
+        raise NotImplementedError
+
+    def sf(self, x):
+        return 1.0 - self.cdf(x)
+
+    def pdf(self, x):
+        raise NotImplementedError
+
+    def kink_values(self):
+        """Interior values where the quantile function is not smooth."""
+        return []
+
+    # --- generic routes -----------------------------------------------------
+    def logcdf(self, x):
+        with np.errstate(divide="ignore"):
+            return np.log(self.cdf(x))
+
+    def logsf(self, x):
+        with np.errstate(divide="ignore"):
+            return np.log(self.sf(x))
+
+    def ppf(self, u):
+        """Quantile function; generic route inverts the CDF numerically."""
+        u = np.asarray(u, dtype=float)
+        return self._invert(u, np.clip(1.0 - u, 0.0, 1.0), use_sf=False)
+
+    def isf(self, v):
+        """Inverse survival function, accurate where v is tiny (the upper tail)."""
+        v = np.asarray(v, dtype=float)
+        return self._invert(np.clip(1.0 - v, 0.0, 1.0), v, use_sf=True)
+
+    def value_at(self, u, v):
+        """Value with cdf u and survival v (u + v = 1), from whichever is precise."""
+        u = np.asarray(u, dtype=float)
+        v = np.asarray(v, dtype=float)
+        upper = v < 0.5
+        out = np.empty(np.broadcast(u, v).shape)
+        if np.any(upper):
+            out[upper] = self.isf(v[upper])
+        if np.any(~upper):
+            out[~upper] = self.ppf(u[~upper])
+        return out
+
+    def kinks_u(self):
+        """Cumulative probabilities of the kinks, strictly inside (0, 1)."""
+        ks = [k for k in self.kink_values() if self.lower < k < self.upper]
+        if not ks:
+            return np.empty(0)
+        u = np.asarray(self.cdf(np.asarray(ks, dtype=float)), dtype=float)
+        return np.unique(u[(u > 0.0) & (u < 1.0)])
+
+    def _bracket(self, u, v):
+        """Values known to lie below and above the target quantiles."""
+        raise NotImplementedError
+
+    def _invert(self, u, v, use_sf):
+        """Safeguarded Newton on F(x) = u (or S(x) = v), vectorised."""
+        with np.errstate(all="ignore"):
+            return self._newton(u, v, use_sf)
+
+    def _newton(self, u, v, use_sf):
+        lo, hi = self._bracket(u, v)
+        lo = np.array(np.broadcast_to(lo, u.shape), dtype=float)
+        hi = np.array(np.broadcast_to(hi, u.shape), dtype=float)
+        x = 0.5 * (lo + hi)
+        target = v if use_sf else u
+        sign = -1.0 if use_sf else 1.0
+        for _ in range(200):
+            g = (self.sf(x) if use_sf else self.cdf(x)) - target
+            below = sign * g < 0
+            lo = np.where(below, x, lo)
+            hi = np.where(below, hi, x)
+            d = self.pdf(x)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                step = sign * g / d
+            newton = x - step
+            ok = np.isfinite(newton) & (newton > lo) & (newton < hi)
+            x_new = np.where(ok, newton, 0.5 * (lo + hi))
+            done = np.abs(x_new - x) <= 4e-16 * np.maximum(np.abs(x), 1e-300)
+            x = x_new
+            if np.all(done | (hi - lo <= 4e-16 * np.abs(x))):
+                break
+        x = np.where(u <= 0.0, self.lower, x)
+        x = np.where(v <= 0.0, self.upper, x)
+        return x
+
+
+def _positive_pdf(logpdf):
+    with np.errstate(over="ignore"):
+        return np.exp(logpdf)
+
+
+class Uniform(ValueModel):
+    family = "uniform"
+    parameters = {"low": Param(), "high": Param()}
+
+    def __init__(self, low, high):
+        if not high > low:
+            raise ParameterError("high", "must be greater than low")
+        self.low, self.high = float(low), float(high)
+        self.lower, self.upper = self.low, self.high
+        self.width = self.high - self.low
+
+    def cdf(self, x):
+        return np.clip((np.asarray(x, float) - self.low) / self.width, 0.0, 1.0)
+
+    def sf(self, x):
+        return np.clip((self.high - np.asarray(x, float)) / self.width, 0.0, 1.0)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        return np.where((x >= self.low) & (x <= self.high), 1.0 / self.width, 0.0)
+
+    def ppf(self, u):
+        return self.low + self.width * np.asarray(u, float)
+
+    def isf(self, v):
+        return self.high - self.width * np.asarray(v, float)
+
+    def closed_rank_moments(self, n, r):
+        """Rank r from the top is low + width * Beta(n-r+1, r)."""
+        a, b = n - r + 1.0, float(r)
+        mean = self.low + self.width * a / (a + b)
+        var = self.width**2 * a * b / ((a + b) ** 2 * (a + b + 1.0))
+        return mean, var
+
+
+class Normal(ValueModel):
+    family = "normal"
+    parameters = {"mean": Param(), "sd": Param(bound="positive")}
+
+    def __init__(self, mean, sd):
+        self.mu, self.sd = float(mean), float(sd)
+
+    def _z(self, x):
+        return (np.asarray(x, float) - self.mu) / self.sd
+
+    def cdf(self, x):
+        return sp.ndtr(self._z(x))
+
+    def sf(self, x):
+        return sp.ndtr(-self._z(x))
+
+    def logcdf(self, x):
+        return sp.log_ndtr(self._z(x))
+
+    def logsf(self, x):
+        return sp.log_ndtr(-self._z(x))
+
+    def pdf(self, x):
+        z = self._z(x)
+        return np.exp(-0.5 * z * z) / (self.sd * math.sqrt(2 * math.pi))
+
+    def ppf(self, u):
+        return self.mu + self.sd * sp.ndtri(u)
+
+    def isf(self, v):
+        return self.mu - self.sd * sp.ndtri(v)
+
+
+class LogNormal(ValueModel):
+    family = "lognormal"
+    parameters = {
+        "median": Param(required=False, bound="positive"),
+        "sigma": Param(required=False, bound="positive"),
+        "mean": Param(required=False, bound="positive"),
+        "sd": Param(required=False, bound="positive"),
+    }
+    lower = 0.0
+
+    def __init__(self, median=None, sigma=None, mean=None, sd=None):
+        by_median = median is not None or sigma is not None
+        by_mean = mean is not None or sd is not None
+        if by_median and by_mean:
+            raise ParameterError("median", "give median and sigma, or mean and sd, not both")
+        if by_median:
+            if median is None:
+                raise ParameterError("median", "required with sigma")
+            if sigma is None:
+                raise ParameterError("sigma", "required with median")
+            self.mu, self.sigma = math.log(median), float(sigma)
+        elif by_mean:
+            if mean is None:
+                raise ParameterError("mean", "required with sd")
+            if sd is None:
+                raise ParameterError("sd", "required with mean")
+            s2 = math.log1p((sd / mean) ** 2)
+            self.mu, self.sigma = math.log(mean) - 0.5 * s2, math.sqrt(s2)
+        else:
+            raise ParameterError("median", "give median and sigma, or mean and sd")
+
+    def _z(self, x):
+        x = np.asarray(x, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(x > 0, (np.log(np.where(x > 0, x, 1.0)) - self.mu) / self.sigma, -INF)
+
+    def cdf(self, x):
+        return sp.ndtr(self._z(x))
+
+    def sf(self, x):
+        return sp.ndtr(-self._z(x))
+
+    def logcdf(self, x):
+        return sp.log_ndtr(self._z(x))
+
+    def logsf(self, x):
+        return sp.log_ndtr(-self._z(x))
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        z = self._z(x)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = np.exp(-0.5 * z * z) / (np.where(x > 0, x, 1.0) * self.sigma * math.sqrt(2 * math.pi))
+        return np.where(x > 0, d, 0.0)
+
+    def ppf(self, u):
+        return np.exp(self.mu + self.sigma * sp.ndtri(u))
+
+    def isf(self, v):
+        return np.exp(self.mu - self.sigma * sp.ndtri(v))
+
+
+class Exponential(ValueModel):
+    family = "exponential"
+    parameters = {"mean": Param(bound="positive"), "shift": Param(required=False, default=0.0)}
+
+    def __init__(self, mean, shift=0.0):
+        self.scale, self.shift = float(mean), float(shift)
+        self.lower = self.shift
+
+    def _y(self, x):
+        return np.maximum((np.asarray(x, float) - self.shift) / self.scale, 0.0)
+
+    def cdf(self, x):
+        return -np.expm1(-self._y(x))
+
+    def sf(self, x):
+        return np.exp(-self._y(x))
+
+    def logsf(self, x):
+        return -self._y(x)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        return np.where(x >= self.shift, np.exp(-self._y(x)) / self.scale, 0.0)
+
+    def ppf(self, u):
+        return self.shift - self.scale * np.log1p(-np.asarray(u, float))
+
+    def isf(self, v):
+        with np.errstate(divide="ignore"):
+            return self.shift - self.scale * np.log(np.asarray(v, float))
+
+    def closed_rank_moments(self, n, r):
+        """Renyi's representation: rank r from the top is a sum of Exp(mean/j), j = r..n."""
+        if n - r < 2000:
+            j = np.arange(r, n + 1, dtype=float)
+            h1, h2 = float(np.sum(1.0 / j[::-1])), float(np.sum(1.0 / (j[::-1] ** 2)))
+        else:
+            h1 = float(sp.digamma(n + 1.0) - sp.digamma(float(r)))
+            h2 = float(sp.polygamma(1, float(r)) - sp.polygamma(1, n + 1.0))
+        return self.shift + self.scale * h1, self.scale**2 * h2
+
+
+class Gamma(ValueModel):
+    family = "gamma"
+    parameters = {"shape": Param(bound="positive"), "scale": Param(bound="positive")}
+    lower = 0.0
+
+    def __init__(self, shape, scale):
+        self.k, self.theta = float(shape), float(scale)
+        self._lognorm = sp.gammaln(self.k) + self.k * math.log(self.theta)
+
+    def _y(self, x):
+        return np.maximum(np.asarray(x, float) / self.theta, 0.0)
+
+    def cdf(self, x):
+        return sp.gammainc(self.k, self._y(x))
+
+    def sf(self, x):
+        return sp.gammaincc(self.k, self._y(x))
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lp = sp.xlogy(self.k - 1.0, np.where(x > 0, x, 1.0)) - x / self.theta - self._lognorm
+        return np.where(x > 0, _positive_pdf(lp), 0.0 if self.k >= 1 else 0.0)
+
+    def ppf(self, u):
+        return self.theta * sp.gammaincinv(self.k, u)
+
+    def isf(self, v):
+        return self.theta * sp.gammainccinv(self.k, v)
+
+
+class Weibull(ValueModel):
+    family = "weibull"
+    parameters = {"shape": Param(bound="positive"), "scale": Param(bound="positive")}
+    lower = 0.0
+
+    def __init__(self, shape, scale):
+        self.k, self.lam = float(shape), float(scale)
+
+    def _h(self, x):
+        return np.maximum(np.asarray(x, float) / self.lam, 0.0) ** self.k
+
+    def cdf(self, x):
+        return -np.expm1(-self._h(x))
+
+    def sf(self, x):
+        return np.exp(-self._h(x))
+
+    def logsf(self, x):
+        return -self._h(x)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        y = np.maximum(x / self.lam, 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = self.k / self.lam * y ** (self.k - 1.0) * np.exp(-(y**self.k))
+        return np.where(x > 0, d, 0.0)
+
+    def ppf(self, u):
+        return self.lam * (-np.log1p(-np.asarray(u, float))) ** (1.0 / self.k)
+
+    def isf(self, v):
+        with np.errstate(divide="ignore"):
+            return self.lam * (-np.log(np.asarray(v, float))) ** (1.0 / self.k)
+
+
+class BetaValues(ValueModel):
+    family = "beta"
+    parameters = {
+        "alpha": Param(bound="positive"),
+        "beta": Param(bound="positive"),
+        "low": Param(required=False, default=0.0),
+        "high": Param(required=False, default=1.0),
+    }
+
+    def __init__(self, alpha, beta, low=0.0, high=1.0):
+        if not high > low:
+            raise ParameterError("high", "must be greater than low")
+        self.a, self.b = float(alpha), float(beta)
+        self.lower, self.upper = float(low), float(high)
+        self.width = self.upper - self.lower
+        self._lognorm = sp.betaln(self.a, self.b) + math.log(self.width)
+
+    def _y(self, x):
+        return np.clip((np.asarray(x, float) - self.lower) / self.width, 0.0, 1.0)
+
+    def cdf(self, x):
+        return sp.betainc(self.a, self.b, self._y(x))
+
+    def sf(self, x):
+        return sp.betaincc(self.a, self.b, self._y(x))
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        y = self._y(x)
+        inside = (y > 0) & (y < 1)
+        yy = np.where(inside, y, 0.5)
+        lp = sp.xlogy(self.a - 1, yy) + sp.xlog1py(self.b - 1, -yy) - self._lognorm
+        return np.where(inside, np.exp(lp), 0.0)
+
+    def ppf(self, u):
+        return self.lower + self.width * sp.betaincinv(self.a, self.b, u)
+
+    def isf(self, v):
+        # The upper end as high - width * y, with y from the mirrored Beta(b, a).
+        return self.upper - self.width * sp.betaincinv(self.b, self.a, v)
+
+
+class Triangular(ValueModel):
+    family = "triangular"
+    parameters = {"low": Param(), "mode": Param(), "high": Param()}
+
+    def __init__(self, low, mode, high):
+        if not high > low:
+            raise ParameterError("high", "must be greater than low")
+        if not low <= mode <= high:
+            raise ParameterError("mode", "must lie between low and high")
+        self.lower, self.c, self.upper = float(low), float(mode), float(high)
+        self.w = self.upper - self.lower
+        self.fc = (self.c - self.lower) / self.w
+
+    def kink_values(self):
+        return [self.c]
+
+    def cdf(self, x):
+        x = np.clip(np.asarray(x, float), self.lower, self.upper)
+        left = (x - self.lower) ** 2 / (self.w * max(self.c - self.lower, 1e-300))
+        right = 1.0 - (self.upper - x) ** 2 / (self.w * max(self.upper - self.c, 1e-300))
+        return np.where(x <= self.c, left, right)
+
+    def sf(self, x):
+        x = np.clip(np.asarray(x, float), self.lower, self.upper)
+        left = 1.0 - (x - self.lower) ** 2 / (self.w * max(self.c - self.lower, 1e-300))
+        right = (self.upper - x) ** 2 / (self.w * max(self.upper - self.c, 1e-300))
+        return np.where(x < self.c, left, right)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        left = 2 * (x - self.lower) / (self.w * max(self.c - self.lower, 1e-300))
+        right = 2 * (self.upper - x) / (self.w * max(self.upper - self.c, 1e-300))
+        d = np.where(x <= self.c, left, right)
+        return np.where((x >= self.lower) & (x <= self.upper), d, 0.0)
+
+    def ppf(self, u):
+        u = np.asarray(u, float)
+        left = self.lower + np.sqrt(np.maximum(u, 0) * self.w * (self.c - self.lower))
+        right = self.upper - np.sqrt(np.maximum(1 - u, 0) * self.w * (self.upper - self.c))
+        return np.where(u <= self.fc, left, right)
+
+    def isf(self, v):
+        v = np.asarray(v, float)
+        left = self.lower + np.sqrt(np.maximum(1 - v, 0) * self.w * (self.c - self.lower))
+        right = self.upper - np.sqrt(np.maximum(v, 0) * self.w * (self.upper - self.c))
+        return np.where(v >= 1 - self.fc, left, right)
+
+
+class Pareto(ValueModel):
+    family = "pareto"
+    parameters = {"shape": Param(bound="positive"), "minimum": Param(bound="positive")}
+
+    def __init__(self, shape, minimum):
+        self.alpha, self.xm = float(shape), float(minimum)
+        self.lower = self.xm
+        self.upper_tail_index = self.alpha
+
+    def _logratio(self, x):
+        x = np.maximum(np.asarray(x, float), self.xm)
+        return np.log(self.xm / x)
+
+    def cdf(self, x):
+        return -np.expm1(self.alpha * self._logratio(x))
+
+    def sf(self, x):
+        return np.exp(self.alpha * self._logratio(x))
+
+    def logsf(self, x):
+        return self.alpha * self._logratio(x)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        return np.where(x >= self.xm, self.alpha / np.maximum(x, self.xm) * np.exp(self.alpha * self._logratio(x)), 0.0)
+
+    def ppf(self, u):
+        return self.xm * np.exp(-np.log1p(-np.asarray(u, float)) / self.alpha)
+
+    def isf(self, v):
+        with np.errstate(divide="ignore"):
+            return self.xm * np.exp(-np.log(np.asarray(v, float)) / self.alpha)
+
+    def closed_rank_moments(self, n, r):
+        """E[X^p] for rank r from the top: xm^p G(n+1) G(r-p/a) / (G(r) G(n+1-p/a)).
+
+        Returns None when the variance would lose digits to cancellation, so
+        the caller takes the quadrature route instead.
+        """
+        def raw(p):
+            c = p / self.alpha
+            if r <= c:
+                return None
+            return self.xm**p * math.exp(sp.gammaln(n + 1.0) - sp.gammaln(n + 1.0 - c) + sp.gammaln(r - c) - sp.gammaln(float(r)))
+
+        m1 = raw(1)
+        if m1 is None:
+            return None
+        m2 = raw(2)
+        if m2 is None:
+            return m1, None
+        var = m2 - m1 * m1
+        if not var > 1e-4 * m1 * m1:
+            return None
+        return m1, var
+
+
+class Power(ValueModel):
+    family = "power"
+    parameters = {
+        "exponent": Param(bound="positive"),
+        "high": Param(),
+        "low": Param(required=False, default=0.0),
+    }
+
+    def __init__(self, exponent, high, low=0.0):
+        if not high > low:
+            raise ParameterError("high", "must be greater than low")
+        self.a = float(exponent)
+        self.lower, self.upper = float(low), float(high)
+        self.w = self.upper - self.lower
+
+    def _y(self, x):
+        return np.clip((np.asarray(x, float) - self.lower) / self.w, 0.0, 1.0)
+
+    def cdf(self, x):
+        return self._y(x) ** self.a
+
+    def sf(self, x):
+        return -np.expm1(self.a * np.log(np.maximum(self._y(x), 1e-320)))
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        y = self._y(x)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = self.a / self.w * np.where(y > 0, y, 1.0) ** (self.a - 1.0)
+        return np.where((x > self.lower) & (x <= self.upper), d, 0.0)
+
+    def ppf(self, u):
+        return self.lower + self.w * np.asarray(u, float) ** (1.0 / self.a)
+
+    def isf(self, v):
+        return self.lower + self.w * np.exp(np.log1p(-np.asarray(v, float)) / self.a)
+
+    def closed_rank_moments(self, n, r):
+        """U^(1/a) with U ~ Beta(n-r+1, r): E[U^c] = B(n-r+1+c, r) / B(n-r+1, r)."""
+        k = n - r + 1.0
+
+        def raw(c):
+            return math.exp(sp.gammaln(k + c) - sp.gammaln(k) + sp.gammaln(n + 1.0) - sp.gammaln(n + 1.0 + c))
+
+        e1, e2 = raw(1.0 / self.a), raw(2.0 / self.a)
+        var_u = e2 - e1 * e1
+        if not var_u > 1e-4 * e1 * e1:
+            return None
+        return self.lower + self.w * e1, self.w**2 * var_u
+
+
+class Truncated(ValueModel):
+    """A parent model conditioned on low <= X <= high."""
+
+    def __init__(self, parent, low=None, high=None):
+        low = parent.lower if low is None else max(float(low), parent.lower)
+        high = parent.upper if high is None else min(float(high), parent.upper)
+        if not high > low:
+            raise ParameterError("truncate.high", "must be greater than truncate.low and overlap the support")
+        self.parent, self.family = parent, parent.family
+        self.lower, self.upper = low, high
+        self.fa = float(parent.cdf(low)) if math.isfinite(low) else 0.0
+        self.sa = float(parent.sf(low)) if math.isfinite(low) else 1.0
+        self.fb = float(parent.cdf(high)) if math.isfinite(high) else 1.0
+        self.sb = float(parent.sf(high)) if math.isfinite(high) else 0.0
+        self.mass = (self.sa - self.sb) if self.sa < 0.5 else (self.fb - self.fa)
+        if not self.mass > 1e-300:
+            raise ParameterError("truncate", "the range holds no probability under this model")
+        self.upper_tail_index = parent.upper_tail_index if high == INF else INF
+        self.lower_tail_index = parent.lower_tail_index if low == -INF else INF
+
+    def kink_values(self):
+        return self.parent.kink_values()
+
+    def cdf(self, x):
+        return np.clip((self.parent.cdf(x) - self.fa) / self.mass, 0.0, 1.0)
+
+    def sf(self, x):
+        return np.clip((self.parent.sf(x) - self.sb) / self.mass, 0.0, 1.0)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        return np.where((x >= self.lower) & (x <= self.upper), self.parent.pdf(x) / self.mass, 0.0)
+
+    def ppf(self, u):
+        u = np.asarray(u, float)
+        return self._clip(self.parent.value_at(self.fa + u * self.mass, self.sb + (1.0 - u) * self.mass))
+
+    def isf(self, v):
+        v = np.asarray(v, float)
+        return self._clip(self.parent.value_at(self.fa + (1.0 - v) * self.mass, self.sb + v * self.mass))
+
+    def _clip(self, x):
+        return np.clip(x, self.lower, self.upper)
+
+
+class Reflected(ValueModel):
+    """The distribution of -X: turns procurement costs into forward values."""
+
+    def __init__(self, parent):
+        self.parent, self.family = parent, parent.family
+        self.lower, self.upper = -parent.upper, -parent.lower
+        self.upper_tail_index = parent.lower_tail_index
+        self.lower_tail_index = parent.upper_tail_index
+        self.discrete = parent.discrete
+
+    def kink_values(self):
+        return [-k for k in self.parent.kink_values()]
+
+    def cdf(self, x):
+        return self.parent.sf(-np.asarray(x, float))
+
+    def sf(self, x):
+        return self.parent.cdf(-np.asarray(x, float))
+
+    def logcdf(self, x):
+        return self.parent.logsf(-np.asarray(x, float))
+
+    def logsf(self, x):
+        return self.parent.logcdf(-np.asarray(x, float))
+
+    def pdf(self, x):
+        return self.parent.pdf(-np.asarray(x, float))
+
+    def ppf(self, u):
+        return -self.parent.isf(u)
+
+    def isf(self, v):
+        return -self.parent.ppf(v)
+
+    @property
+    def atoms(self):
+        return -self.parent.atoms[::-1]
+
+
+class QuantileTable(ValueModel):
+    """A piecewise-linear CDF through analyst-supplied (p, value) points."""
+
+    family = "quantile_table"
+
+    def __init__(self, points, low=None, high=None):
+        pts = [(float(p), float(x)) for p, x in points]
+        if low is not None:
+            if pts and pts[0][0] == 0.0:
+                raise ParameterError("low", "give low only when the table has no p = 0 point")
+            pts.insert(0, (0.0, float(low)))
+        if high is not None:
+            if pts and pts[-1][0] == 1.0:
+                raise ParameterError("high", "give high only when the table has no p = 1 point")
+            pts.append((1.0, float(high)))
+        if len(pts) < 2:
+            raise ParameterError("points", "need at least two points in all")
+        for i in range(1, len(pts)):
+            if not pts[i][0] > pts[i - 1][0]:
+                raise ParameterError(f"points.{i if low is None else i - 1}.p", "p must increase strictly")
+            if not pts[i][1] > pts[i - 1][1]:
+                field = "high" if (high is not None and i == len(pts) - 1) else f"points.{i if low is None else i - 1}.value"
+                raise ParameterError(field, "values must increase strictly")
+        if pts[0][0] != 0.0:
+            raise ParameterError("low", "the table has no p = 0 point: give low")
+        if pts[-1][0] != 1.0:
+            raise ParameterError("high", "the table has no p = 1 point: give high")
+        self.p = np.array([q for q, _ in pts])
+        self.x = np.array([x for _, x in pts])
+        self.lower, self.upper = float(self.x[0]), float(self.x[-1])
+        self.dens = np.diff(self.p) / np.diff(self.x)
+
+    def kink_values(self):
+        return list(self.x[1:-1])
+
+    def cdf(self, x):
+        return np.interp(np.asarray(x, float), self.x, self.p)
+
+    def sf(self, x):
+        return np.interp(np.asarray(x, float), self.x, 1.0 - self.p)
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        i = np.clip(np.searchsorted(self.x, x, side="right") - 1, 0, len(self.dens) - 1)
+        return np.where((x >= self.lower) & (x <= self.upper), self.dens[i], 0.0)
+
+    def ppf(self, u):
+        return np.interp(np.asarray(u, float), self.p, self.x)
+
+    def isf(self, v):
+        q = 1.0 - self.p[::-1]
+        return np.interp(np.asarray(v, float), q, self.x[::-1])
+
+
+class Mixture(ValueModel):
+    """A weighted mixture of value models; quantiles by numerical inversion."""
+
+    family = "mixture"
+
+    def __init__(self, components):
+        weights = np.array([w for w, _ in components], dtype=float)
+        total = weights.sum()
+        if abs(total - 1.0) > 1e-9:
+            raise ParameterError("components", f"weights must sum to 1 (they sum to {total:.12g})")
+        self.weights = weights / total
+        self.models = [m for _, m in components]
+        live = [m for w, m in zip(self.weights, self.models) if w > 0]
+        self.lower = min(m.lower for m in live)
+        self.upper = max(m.upper for m in live)
+        self.upper_tail_index = min(m.upper_tail_index for m in live)
+        self.lower_tail_index = min(m.lower_tail_index for m in live)
+        if any(m.discrete for m in live):
+            raise ParameterError("components", "a step (smoothing: none) empirical model cannot be mixed")
+
+    def _sum(self, method, x):
+        x = np.asarray(x, float)
+        return sum(w * getattr(m, method)(x) for w, m in zip(self.weights, self.models) if w > 0)
+
+    def cdf(self, x):
+        return self._sum("cdf", x)
+
+    def sf(self, x):
+        return self._sum("sf", x)
+
+    def pdf(self, x):
+        return self._sum("pdf", x)
+
+    def kink_values(self):
+        ks = []
+        for w, m in zip(self.weights, self.models):
+            if w > 0:
+                ks += list(m.kink_values()) + [b for b in (m.lower, m.upper) if math.isfinite(b)]
+        return sorted(set(ks))
+
+    def _bracket(self, u, v):
+        qs = np.array([m.value_at(u, v) for w, m in zip(self.weights, self.models) if w > 0])
+        return qs.min(axis=0), qs.max(axis=0)
+
+
+class KernelSmoothed(ValueModel):
+    """A Gaussian kernel density through a sample, Silverman's bandwidth rule,
+    truncated to the sample's natural bounds where they are given."""
+
+    family = "empirical"
+
+    def __init__(self, sample, bandwidth):
+        self.c = np.sort(np.asarray(sample, float))
+        self.h = float(bandwidth)
+        self.wt = 1.0 / len(self.c)
+
+    def cdf(self, x):
+        x = np.asarray(x, float)
+        return np.sum(sp.ndtr((x[..., None] - self.c) / self.h), axis=-1) * self.wt
+
+    def sf(self, x):
+        x = np.asarray(x, float)
+        return np.sum(sp.ndtr((self.c - x[..., None]) / self.h), axis=-1) * self.wt
+
+    def pdf(self, x):
+        x = np.asarray(x, float)
+        z = (x[..., None] - self.c) / self.h
+        return np.sum(np.exp(-0.5 * z * z), axis=-1) * self.wt / (self.h * math.sqrt(2 * math.pi))
+
+    def _bracket(self, u, v):
+        # ndtr((x - c_max)/h) <= F(x) <= ndtr((x - c_min)/h); z from the small tail.
+        z = np.where(v < 0.5, -sp.ndtri(v), sp.ndtri(u))
+        return self.c[0] + self.h * z, self.c[-1] + self.h * z
+
+
+class StepEmpirical(ValueModel):
+    """The step distribution of a sample: each past value has mass 1/N."""
+
+    family = "empirical"
+    discrete = True
+
+    def __init__(self, sample):
+        self.atoms = np.sort(np.asarray(sample, float))
+        self.lower, self.upper = float(self.atoms[0]), float(self.atoms[-1])
+        self.N = len(self.atoms)
+
+    def cdf(self, x):
+        return np.searchsorted(self.atoms, np.asarray(x, float), side="right") / self.N
+
+    def sf(self, x):
+        return 1.0 - self.cdf(x)
+
+    def pdf(self, x):
+        raise ParameterError("smoothing", "a step distribution has no density; use smoothing: kernel")
+
+    def ppf(self, u):
+        i = np.ceil(np.asarray(u, float) * self.N).astype(int) - 1
+        return self.atoms[np.clip(i, 0, self.N - 1)]
+
+    def isf(self, v):
+        i = self.N - np.ceil(np.asarray(v, float) * self.N).astype(int)
+        return self.atoms[np.clip(i, 0, self.N - 1)]
+
+
+def silverman_bandwidth(sample):
+    """Silverman (1986, eq. 3.31): 0.9 min(sd, IQR/1.34) N^(-1/5)."""
+    x = np.asarray(sample, float)
+    sd = float(np.std(x, ddof=1))
+    q75, q25 = np.percentile(x, [75, 25])
+    spread = min(sd, (q75 - q25) / 1.34) if q75 > q25 else sd
+    return 0.9 * spread * len(x) ** (-0.2)
+
+
+def empirical(sample, smoothing="kernel", low=None, high=None):
+    """Build the empirical model of a sample of past values."""
+    x = np.asarray(sample, float)
+    if low is not None and np.any(x < low):
+        raise ParameterError("sample", "values lie below low")
+    if high is not None and np.any(x > high):
+        raise ParameterError("sample", "values lie above high")
+    if low is not None and high is not None and not high > low:
+        raise ParameterError("high", "must be greater than low")
+    if smoothing == "none":
+        return StepEmpirical(x)
+    if not np.ptp(x) > 0:
+        raise ParameterError("sample", "all values are equal: a kernel needs some spread")
+    model = KernelSmoothed(x, silverman_bandwidth(x))
+    if low is not None or high is not None:
+        model = Truncated(model, low, high)
+    return model
+
+
+PARAMETRIC = {
+    cls.family: cls
+    for cls in (Uniform, Normal, LogNormal, Exponential, Gamma, Weibull, BetaValues, Triangular, Pareto, Power)
+}

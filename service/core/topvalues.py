@@ -1,0 +1,103 @@
+"""The top-values reports: moments, quantiles and curves of the highest ranks,
+and the joint density of two ranks. Plain dicts of finite floats (or None)."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import ParameterError
+from . import orderstats as os_
+
+
+def finite(x):
+    """A JSON-safe float: None for NaN or an infinity."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def finite_list(xs):
+    return [finite(x) for x in np.asarray(xs, float).tolist()]
+
+
+def _numerics(summaries):
+    methods = sorted({s.method for s in summaries if s.method != "none"}) or ["none"]
+    return {"method": "+".join(methods), "abs_error": finite(max((s.abs_error for s in summaries), default=0.0))}
+
+
+def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
+    """Mean, sd, quantiles (and optionally the pdf/cdf curve) of each rank."""
+    if ranks is None:
+        ranks = [1] if bidders == 1 else [1, 2]
+    for i, r in enumerate(ranks):
+        if r > bidders:
+            raise ParameterError(f"ranks.{i}", f"rank {r} exceeds the number of bidders ({bidders})")
+    if curve_points and model.discrete:
+        raise ParameterError("curve_points", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
+    summaries = [os_.rank_summary(model, bidders, r) for r in ranks]
+    results, warnings = [], []
+    for s in summaries:
+        warnings += s.warnings
+        qs = os_.rank_quantiles(model, bidders, s.rank, quantiles)
+        item = {
+            "rank": s.rank,
+            "mean": finite(s.mean),
+            "sd": finite(math.sqrt(max(s.var, 0.0))) if s.var is not None else None,
+            "quantiles": [{"p": float(p), "value": finite(q)} for p, q in zip(quantiles, qs)],
+        }
+        if curve_points:
+            x, pdf, cdf = os_.rank_curve(model, bidders, s.rank, curve_points)
+            item["curve"] = {"x": finite_list(x), "pdf": finite_list(pdf), "cdf": finite_list(cdf)}
+        results.append(item)
+    out = {"bidders": bidders, "results": results}
+    if bidders >= 2:
+        by_rank = {s.rank: s for s in summaries}
+        s1 = by_rank.get(1) or os_.rank_summary(model, bidders, 1)
+        s2 = by_rank.get(2) or os_.rank_summary(model, bidders, 2)
+        gap = None if s1.mean is None or s2.mean is None else s1.mean - s2.mean
+        if gap is None and not any("mean does not exist" in w for w in warnings):
+            warnings.append("expected_gap is null: the mean of the highest or second-highest does not exist")
+        out["expected_gap"] = finite(gap)
+    out["numerics"] = _numerics(summaries)
+    out["warnings"] = warnings
+    return out
+
+
+def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
+    """Joint density of two ranks on a grid (with its mass) or at given points."""
+    i, j = ranks
+    if not i < j:
+        raise ParameterError("ranks.1", "the second rank must be lower (a larger number) than the first")
+    if j > bidders:
+        raise ParameterError("ranks.1", f"rank {j} exceeds the number of bidders ({bidders})")
+    if model.discrete:
+        raise ParameterError("bidder_values.smoothing", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
+    if points is not None:
+        hx = np.array([p[0] for p in points], float)
+        ly = np.array([p[1] for p in points], float)
+        d = np.exp(os_.joint_logdensity(model, bidders, i, j, hx, ly))
+        return {
+            "bidders": bidders,
+            "ranks": [i, j],
+            "points": [{"higher": float(a), "lower": float(b), "density": finite(c)} for a, b, c in zip(hx, ly, d)],
+            "warnings": [],
+        }
+    lo = max(float(os_.rank_quantiles(model, bidders, j, [5e-4])[0]), model.lower)
+    hi = min(float(os_.rank_quantiles(model, bidders, i, [1 - 5e-4])[0]), model.upper)
+    axis = np.linspace(lo, hi, grid_points)
+    dens = np.exp(os_.joint_logdensity(model, bidders, i, j, axis[:, None], axis[None, :]))
+    mass = float(np.trapezoid(np.trapezoid(dens, axis, axis=1), axis))
+    warnings = []
+    if abs(mass - 1.0) > 0.05:
+        warnings.append(f"the grid holds {mass:.3f} of the probability; the density may be too sharp for {grid_points} grid points")
+    return {
+        "bidders": bidders,
+        "ranks": [i, j],
+        "higher": finite_list(axis),
+        "lower": finite_list(axis),
+        "density": [finite_list(row) for row in dens],
+        "mass": finite(mass),
+        "warnings": warnings,
+    }

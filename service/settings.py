@@ -1,0 +1,36 @@
+"""Service settings from environment variables (all listed in README)."""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+
+
+def _int_env(name, default):
+    raw = os.environ.get(name)
+    if raw is None or raw == "":
+        return default
+    try:
+        value = int(raw)
+    except ValueError:
+        raise SystemExit(f"{name} must be a whole number, not {raw!r}") from None
+    if value < 1:
+        raise SystemExit(f"{name} must be at least 1")
+    return value
+
+
+@dataclass(frozen=True)
+class Caps:
+    """Per-request caps, enforced while a request loads, before any work."""
+
+    bidders: int = _int_env("BIDSTATS_MAX_BIDDERS", 1_000_000)
+    ranks: int = _int_env("BIDSTATS_MAX_RANKS", 50)
+    quantiles: int = _int_env("BIDSTATS_MAX_QUANTILES", 200)
+    curve_points: int = _int_env("BIDSTATS_MAX_CURVE_POINTS", 2001)
+    grid_points: int = _int_env("BIDSTATS_MAX_GRID_POINTS", 401)
+    points: int = _int_env("BIDSTATS_MAX_POINTS", 10_000)
+    sample: int = _int_env("BIDSTATS_MAX_SAMPLE", 10_000)
+    components: int = _int_env("BIDSTATS_MAX_COMPONENTS", 50)
+    body_bytes: int = _int_env("BIDSTATS_MAX_BODY_BYTES", 2_000_000)
+
+
+CAPS = Caps()

@@ -1,0 +1,181 @@
+"""Strict marshmallow fields and the value-model field.
+
+JSON numbers arrive as Python ints or floats; booleans and strings are never
+taken for numbers, non-finite numbers are refused, and an integer field takes
+only integral values (2.5 bidders is an error, not 2).
+"""
+from __future__ import annotations
+
+import math
+
+from marshmallow import Schema, ValidationError, fields, validate
+
+from .. import settings
+from ..core import models as M
+from ..core.errors import ParameterError
+
+
+class StrictFloat(fields.Field):
+    """A finite JSON number; ``bound`` may require it positive or non-negative."""
+
+    def __init__(self, bound=None, **kw):
+        super().__init__(**kw)
+        self.bound = bound
+
+    def _deserialize(self, value, attr, data, **kw):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ValidationError("Must be a number.")
+        try:
+            x = float(value)
+        except OverflowError:
+            raise ValidationError("Must be a finite number.") from None
+        if not math.isfinite(x):
+            raise ValidationError("Must be a finite number.")
+        if self.bound == "positive" and not x > 0:
+            raise ValidationError("Must be greater than 0.")
+        if self.bound == "nonnegative" and not x >= 0:
+            raise ValidationError("Must be at least 0.")
+        if self.bound == "probability" and not 0.0 <= x <= 1.0:
+            raise ValidationError("Must be between 0 and 1.")
+        if self.bound == "open_probability" and not 0.0 < x < 1.0:
+            raise ValidationError("Must lie strictly between 0 and 1.")
+        return x
+
+
+class StrictInteger(fields.Field):
+    """An integral JSON number within [minimum, maximum]."""
+
+    def __init__(self, minimum=None, maximum=None, **kw):
+        super().__init__(**kw)
+        self.minimum, self.maximum = minimum, maximum
+
+    def _deserialize(self, value, attr, data, **kw):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ValidationError("Must be an integer.")
+        if isinstance(value, float) and not (math.isfinite(value) and value.is_integer()):
+            raise ValidationError("Must be an integer.")
+        n = int(value)
+        if self.minimum is not None and n < self.minimum:
+            raise ValidationError(f"Must be at least {self.minimum}.")
+        if self.maximum is not None and n > self.maximum:
+            raise ValidationError(f"Must be at most {self.maximum} (the service's cap).")
+        return n
+
+
+def _param_field(p: M.Param):
+    if p.required:
+        return StrictFloat(bound=p.bound, required=True)
+    return StrictFloat(bound=p.bound, load_default=p.default)
+
+
+class TruncateSchema(Schema):
+    low = StrictFloat(load_default=None)
+    high = StrictFloat(load_default=None)
+
+
+def _parametric_schema(cls):
+    attrs = {name: _param_field(p) for name, p in cls.parameters.items()}
+    attrs["family"] = fields.String(required=True)
+    attrs["truncate"] = fields.Nested(TruncateSchema, load_default=None)
+    return Schema.from_dict(attrs, name=f"{cls.family.title()}Values")
+
+
+class PointSchema(Schema):
+    p = StrictFloat(bound="probability", required=True)
+    value = StrictFloat(required=True)
+
+
+class QuantileTableSchema(Schema):
+    family = fields.String(required=True)
+    points = fields.List(fields.Nested(PointSchema), required=True, validate=validate.Length(min=2, max=1000))
+    low = StrictFloat(load_default=None)
+    high = StrictFloat(load_default=None)
+
+
+class EmpiricalSchema(Schema):
+    family = fields.String(required=True)
+    sample = fields.List(StrictFloat(), required=True)
+    smoothing = fields.String(load_default="kernel", validate=validate.OneOf(["kernel", "none"]))
+    low = StrictFloat(load_default=None)
+    high = StrictFloat(load_default=None)
+
+
+class ComponentSchema(Schema):
+    weight = StrictFloat(bound="probability", required=True)
+    model = fields.Raw(required=True)
+
+
+class MixtureSchema(Schema):
+    family = fields.String(required=True)
+    components = fields.List(fields.Nested(ComponentSchema), required=True, validate=validate.Length(min=1))
+
+
+_SCHEMAS = {name: _parametric_schema(cls) for name, cls in M.PARAMETRIC.items()}
+FAMILIES = sorted([*_SCHEMAS, "empirical", "quantile_table", "mixture"])
+
+
+def _at(path, message):
+    """A marshmallow error dict placing ``message`` at a dotted ``path``."""
+    out = [message]
+    for key in reversed(path.split(".")):
+        out = {int(key) if key.isdigit() else key: out}
+    return out
+
+
+def build_value_model(data, depth=0):
+    """Validate a value-model object and build the core model it describes.
+
+    Raises ValidationError with errors keyed by field path inside the object.
+    """
+    if not isinstance(data, dict):
+        raise ValidationError("Must be an object with a family and its parameters.")
+    family = data.get("family")
+    if family is None:
+        raise ValidationError({"family": ["Missing data for required field."]})
+    if family not in FAMILIES:
+        raise ValidationError({"family": [f"Unknown family; one of: {', '.join(FAMILIES)}."]})
+    try:
+        if family in _SCHEMAS:
+            d = _SCHEMAS[family]().load(data)
+            trunc = d.pop("truncate")
+            d.pop("family")
+            model = M.PARAMETRIC[family](**{k: v for k, v in d.items() if v is not None or M.PARAMETRIC[family].parameters[k].required})
+            if trunc is not None and (trunc["low"] is not None or trunc["high"] is not None):
+                if trunc["low"] is not None and trunc["high"] is not None and not trunc["high"] > trunc["low"]:
+                    raise ParameterError("truncate.high", "must be greater than truncate.low")
+                model = M.Truncated(model, trunc["low"], trunc["high"])
+            return model
+        if family == "quantile_table":
+            d = QuantileTableSchema().load(data)
+            return M.QuantileTable([(p["p"], p["value"]) for p in d["points"]], d["low"], d["high"])
+        if family == "empirical":
+            d = EmpiricalSchema().load(data)
+            n = len(d["sample"])
+            if n < 5:
+                raise ParameterError("sample", "needs at least 5 past values")
+            if n > settings.CAPS.sample:
+                raise ParameterError("sample", f"holds {n} values; the cap is {settings.CAPS.sample}")
+            return M.empirical(d["sample"], d["smoothing"], d["low"], d["high"])
+        d = MixtureSchema().load(data)
+        if len(d["components"]) > settings.CAPS.components:
+            raise ParameterError("components", f"the cap is {settings.CAPS.components} components")
+        if depth >= 2:
+            raise ParameterError("components", "mixtures nest at most two deep")
+        comps, errors = [], {}
+        for i, c in enumerate(d["components"]):
+            try:
+                comps.append((c["weight"], build_value_model(c["model"], depth + 1)))
+            except ValidationError as e:
+                errors[i] = {"model": e.messages}
+        if errors:
+            raise ValidationError({"components": errors})
+        return M.Mixture(comps)
+    except ParameterError as e:
+        raise ValidationError(_at(e.field, e.message)) from None
+
+
+class ValueModelField(fields.Field):
+    """A bidder-value (or bidder-cost) model object, loaded into a core model."""
+
+    def _deserialize(self, value, attr, data, **kw):
+        return build_value_model(value)

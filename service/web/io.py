@@ -1,0 +1,36 @@
+"""Reading strict JSON requests and writing strict JSON answers."""
+from __future__ import annotations
+
+import json
+
+from flask import Response, request
+from werkzeug.exceptions import BadRequest, UnsupportedMediaType
+
+
+def _no_constants(name):
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def json_body():
+    """The request body as a JSON object: 415 if not JSON, 400 if malformed."""
+    mt = request.mimetype or ""
+    if not (mt == "application/json" or mt.endswith("+json")):
+        raise UnsupportedMediaType("Send the request body as application/json.")
+    raw = request.get_data(cache=True)
+    try:
+        data = json.loads(raw, parse_constant=_no_constants)
+    except (ValueError, UnicodeDecodeError) as e:
+        raise BadRequest(f"The body is not valid JSON: {e}") from None
+    if not isinstance(data, dict):
+        raise BadRequest("The body must be a JSON object.")
+    return data
+
+
+def load(schema_cls):
+    """Validate the request body with a schema (422 on failure) and return it."""
+    return schema_cls().load(json_body())
+
+
+def json_response(payload, status=200):
+    """Strict JSON: a NaN or infinity here is a bug and fails loudly."""
+    return Response(json.dumps(payload, allow_nan=False, separators=(",", ":")), status=status, mimetype="application/json")

@@ -1,0 +1,59 @@
+"""RFC 9457 problem details: every error body the service sends."""
+from __future__ import annotations
+
+import json
+import logging
+
+from flask import Response
+from marshmallow import ValidationError
+from werkzeug.exceptions import HTTPException
+
+PROBLEM = "application/problem+json"
+VALIDATION_TYPE = "urn:bidstats:problem:invalid-input"
+log = logging.getLogger("bidstats")
+
+
+def flatten(messages, prefix=""):
+    """marshmallow's nested error dict as [{field, message}] with dotted paths."""
+    out = []
+    if isinstance(messages, dict):
+        for key, val in messages.items():
+            name = prefix if key == "_schema" else (f"{prefix}.{key}" if prefix else str(key))
+            out += flatten(val, name)
+    elif isinstance(messages, (list, tuple)):
+        for m in messages:
+            out += flatten(m, prefix) if isinstance(m, (dict, list)) else [{"field": prefix or "(body)", "message": str(m)}]
+    else:
+        out.append({"field": prefix or "(body)", "message": str(messages)})
+    return out
+
+
+def problem(status, title, detail, type_="about:blank", **extra):
+    body = {"type": type_, "title": title, "status": status, "detail": detail, **extra}
+    return Response(json.dumps(body, allow_nan=False), status=status, mimetype=PROBLEM)
+
+
+def validation_problem(err: ValidationError):
+    errors = flatten(err.messages)
+    names = ", ".join(e["field"] for e in errors[:5]) + (" ..." if len(errors) > 5 else "")
+    return problem(422, "Invalid request", f"{len(errors)} field(s) invalid: {names}", VALIDATION_TYPE, errors=errors)
+
+
+def register(app):
+    """Error handlers: every 4xx/5xx becomes problem+json, never a traceback."""
+
+    @app.errorhandler(ValidationError)
+    def _invalid(err):
+        return validation_problem(err)
+
+    @app.errorhandler(HTTPException)
+    def _http(err):
+        resp = problem(err.code, err.name, err.description or err.name)
+        if err.code == 405 and hasattr(err, "valid_methods") and err.valid_methods:
+            resp.headers["Allow"] = ", ".join(err.valid_methods)
+        return resp
+
+    @app.errorhandler(Exception)
+    def _crash(err):
+        log.exception("unhandled error")
+        return problem(500, "Internal Server Error", "The service failed to compute an answer; the error has been logged.")

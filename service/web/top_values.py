@@ -1,0 +1,88 @@
+"""POST /v1/top-values and /v1/top-values/joint-density."""
+from __future__ import annotations
+
+from flask import Blueprint
+from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+
+from .. import settings
+from ..core import topvalues
+from ..core.errors import ParameterError
+from .fields import StrictFloat, StrictInteger, ValueModelField
+from .io import json_response, load
+
+bp = Blueprint("top_values", __name__)
+CAPS = settings.CAPS
+
+
+def _core_call(fn, **kw):
+    """One call into the core; its parameter errors become 422s at their field."""
+    try:
+        return fn(**kw)
+    except ParameterError as e:
+        raise ValidationError({e.field: [e.message]}) from None
+
+
+class TopValuesRequest(Schema):
+    bidder_values = ValueModelField(required=True)
+    bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
+    ranks = fields.List(StrictInteger(minimum=1), load_default=None, validate=validate.Length(min=1, max=CAPS.ranks))
+    quantiles = fields.List(
+        StrictFloat(bound="open_probability"),
+        load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95],
+        validate=validate.Length(max=CAPS.quantiles),
+    )
+    curve_points = StrictInteger(minimum=0, maximum=CAPS.curve_points, load_default=0)
+
+    @validates_schema
+    def _ranks_within(self, data, **kw):
+        if data.get("ranks") and "bidders" in data:
+            bad = {i: [f"Must be at most bidders ({data['bidders']})."] for i, r in enumerate(data["ranks"]) if r > data["bidders"]}
+            if bad:
+                raise ValidationError({"ranks": bad})
+        if data.get("curve_points") == 1:
+            raise ValidationError({"curve_points": ["Must be 0 (no curve) or at least 2."]})
+
+
+class JointPoint(Schema):
+    higher = StrictFloat(required=True)
+    lower = StrictFloat(required=True)
+
+
+class JointDensityRequest(Schema):
+    bidder_values = ValueModelField(required=True)
+    bidders = StrictInteger(minimum=2, maximum=CAPS.bidders, required=True)
+    ranks = fields.List(StrictInteger(minimum=1), load_default=lambda: [1, 2], validate=validate.Length(equal=2))
+    grid_points = StrictInteger(minimum=2, maximum=CAPS.grid_points, load_default=None)
+    points = fields.List(fields.Nested(JointPoint), load_default=None, validate=validate.Length(min=1, max=CAPS.points))
+
+    @validates_schema
+    def _one_of(self, data, **kw):
+        if data.get("grid_points") is not None and data.get("points") is not None:
+            raise ValidationError({"points": ["Give grid_points or points, not both."]})
+        if "ranks" in data and "bidders" in data:
+            i, j = data["ranks"]
+            if not i < j:
+                raise ValidationError({"ranks": {1: ["Must be a lower rank (a larger number) than ranks.0."]}})
+            if j > data["bidders"]:
+                raise ValidationError({"ranks": {1: [f"Must be at most bidders ({data['bidders']})."]}})
+
+
+@bp.post("/v1/top-values")
+def post_top_values():
+    req = load(TopValuesRequest)
+    return json_response(_core_call(
+        topvalues.top_values,
+        model=req["bidder_values"], bidders=req["bidders"], ranks=req["ranks"],
+        quantiles=req["quantiles"], curve_points=req["curve_points"],
+    ))
+
+
+@bp.post("/v1/top-values/joint-density")
+def post_joint_density():
+    req = load(JointDensityRequest)
+    pts = None if req["points"] is None else [(p["higher"], p["lower"]) for p in req["points"]]
+    return json_response(_core_call(
+        topvalues.joint_density,
+        model=req["bidder_values"], bidders=req["bidders"], ranks=tuple(req["ranks"]),
+        grid_points=req["grid_points"] or 61, points=pts,
+    ))
