@@ -73,7 +73,7 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     if j > bidders:
         raise ParameterError("ranks.1", f"rank {j} exceeds the number of bidders ({bidders})")
     if model.discrete:
-        raise ParameterError("bidder_values.smoothing", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
+        raise ParameterError("smoothing", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
     if points is not None:
         hx = np.array([p[0] for p in points], float)
         ly = np.array([p[1] for p in points], float)

@@ -6,7 +6,10 @@ from pathlib import Path
 from flask import Blueprint, Response
 
 bp = Blueprint("meta", __name__)
-SPEC_PATH = Path(__file__).resolve().parents[2] / "openapi.yaml"
+# The repository's openapi.yaml (editable installs), else the one beside the
+# working directory (the container copies it to /app).
+_CANDIDATES = (Path(__file__).resolve().parents[2] / "openapi.yaml", Path.cwd() / "openapi.yaml")
+SPEC_PATH = next((p for p in _CANDIDATES if p.is_file()), _CANDIDATES[0])
 
 
 @bp.get("/healthz")

@@ -14,12 +14,17 @@ bp = Blueprint("top_values", __name__)
 CAPS = settings.CAPS
 
 
-def _core_call(fn, **kw):
+# Core errors about the value model itself (not a request field) carry these names.
+_MODEL_FIELDS = {"smoothing", "sample", "components", "truncate"}
+
+
+def core_call(fn, field_prefix="bidder_values", **kw):
     """One call into the core; its parameter errors become 422s at their field."""
     try:
         return fn(**kw)
     except ParameterError as e:
-        raise ValidationError({e.field: [e.message]}) from None
+        field = f"{field_prefix}.{e.field}" if e.field.split(".")[0] in _MODEL_FIELDS else e.field
+        raise ValidationError({field: [e.message]}) from None
 
 
 class TopValuesRequest(Schema):
@@ -70,7 +75,7 @@ class JointDensityRequest(Schema):
 @bp.post("/v1/top-values")
 def post_top_values():
     req = load(TopValuesRequest)
-    return json_response(_core_call(
+    return json_response(core_call(
         topvalues.top_values,
         model=req["bidder_values"], bidders=req["bidders"], ranks=req["ranks"],
         quantiles=req["quantiles"], curve_points=req["curve_points"],
@@ -81,7 +86,7 @@ def post_top_values():
 def post_joint_density():
     req = load(JointDensityRequest)
     pts = None if req["points"] is None else [(p["higher"], p["lower"]) for p in req["points"]]
-    return json_response(_core_call(
+    return json_response(core_call(
         topvalues.joint_density,
         model=req["bidder_values"], bidders=req["bidders"], ranks=tuple(req["ranks"]),
         grid_points=req["grid_points"] or 61, points=pts,

@@ -1,0 +1,366 @@
+"""bidstats benchmarks: speed and accuracy of the order-statistics core, and the
+cost of a whole in-process request. Run with `make bench` (or
+`.venv/bin/python bench/run.py [section ...]`; `--list` names the sections).
+
+This is a benchmark, not a test: it asserts nothing and only prints plain-text
+tables. Every section is a function ``section_xxx(ctx)`` registered in SECTIONS;
+``ctx`` is a dict in which sections leave measurements for later ones (the
+scaling line reads the timings of the second-highest table, for instance). To
+add a section, write a function and append it to SECTIONS.
+
+Timings are medians over repeated batches (timeit, garbage collector off during
+a batch). Reference calls (scipy) are capped: a call that runs past its cap is
+stopped by a timer signal and reported as such, so the run never hangs.
+"""
+from __future__ import annotations
+
+import datetime
+import functools
+import math
+import os
+import platform
+import signal
+import statistics
+import subprocess
+import sys
+import time
+import timeit
+import warnings
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+import mpmath as mp  # noqa: E402
+import numpy as np  # noqa: E402
+import scipy  # noqa: E402
+import scipy.stats as st  # noqa: E402
+from scipy import integrate  # noqa: E402
+from scipy import special as sp  # noqa: E402
+
+from service import create_app  # noqa: E402
+from service.core import topvalues  # noqa: E402
+from service.core.models import LogNormal  # noqa: E402
+from service.core.orderstats import rank_summary  # noqa: E402
+
+SIGMA = 0.5
+BIDDER_COUNTS = [2, 10, 100, 1000, 10**4, 10**5, 10**6]
+REFERENCE_CAP_S = 3.0  # the longest one scipy reference call may run
+REFERENCE_DIGITS = 30
+
+
+# --------------------------------------------------------------------------
+# Timing helpers
+# --------------------------------------------------------------------------
+def median_time(fn, *, batch_s=0.02, repeats=15, max_total_s=1.0):
+    """Median seconds per call of fn(): repeated timeit batches of ~batch_s each."""
+    timer = timeit.Timer(fn)
+    t1 = timer.timeit(1)  # also a warm-up call
+    number = max(1, int(batch_s / max(t1, 1e-9)))
+    repeats = max(3, min(repeats, int(max_total_s / max(t1 * number, 1e-9))))
+    return statistics.median(t / number for t in timer.repeat(repeat=repeats, number=number))
+
+
+def interleaved_medians(fns, *, batch_s=0.02, rounds=15):
+    """Median seconds per call of each fn, timing their batches in turn.
+
+    Alternating the batches exposes every fn to the same background load, so
+    ratios between them stay meaningful on a busy machine.
+    """
+    timers = [timeit.Timer(fn) for fn in fns]
+    numbers = [max(1, int(batch_s / max(t.timeit(1), 1e-9))) for t in timers]
+    samples = [[] for _ in fns]
+    for _ in range(rounds):
+        for t, k, out in zip(timers, numbers, samples):
+            out.append(t.timeit(k) / k)
+    return [statistics.median(x) for x in samples]
+
+
+class _Stopped(Exception):
+    pass
+
+
+def _on_alarm(signum, frame):
+    raise _Stopped
+
+
+def capped(fn, cap_s=REFERENCE_CAP_S):
+    """Run fn() once under a time cap, then time it if it was quick enough.
+
+    Returns (value, seconds per call, note); value and seconds are None when
+    the call failed or was stopped, and note says why. Warnings raised by the
+    first call are summarised in the note.
+    """
+    old = signal.signal(signal.SIGALRM, _on_alarm)
+    try:
+        signal.setitimer(signal.ITIMER_REAL, cap_s)
+        t0 = time.perf_counter()
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            value = fn()
+        t1 = time.perf_counter() - t0
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        note = ""
+        if caught:
+            kinds = sorted({w.category.__name__ for w in caught})
+            note = "warned: " + ", ".join(kinds)
+        # Repeat for a stable median, within a budget proportional to the cap.
+        signal.setitimer(signal.ITIMER_REAL, 4 * cap_s)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            seconds = median_time(fn, max_total_s=min(1.0, 2 * cap_s)) if t1 < cap_s / 4 else t1
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        return value, seconds, note
+    except _Stopped:
+        return None, None, f"stopped after {cap_s:g} s"
+    except Exception as e:  # a reference that fails is reported, not fatal
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        return None, None, f"failed: {type(e).__name__}: {str(e)[:60]}"
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, old)
+
+
+# --------------------------------------------------------------------------
+# Formatting helpers
+# --------------------------------------------------------------------------
+def fmt_time(s):
+    if s is None:
+        return "-"
+    if s < 1e-3:
+        return f"{s * 1e6:.0f} us"
+    if s < 1.0:
+        return f"{s * 1e3:.2f} ms"
+    return f"{s:.2f} s"
+
+
+def fmt_err(e):
+    return "-" if e is None else f"{e:.1e}"
+
+
+def fmt_ratio(a, b):
+    return "-" if a is None or b is None or b == 0 else f"{a / b:.1f}x"
+
+
+def fmt_n(n):
+    return str(n) if n <= 1000 else f"10^{round(math.log10(n))}"
+
+
+def table(headers, rows):
+    """Plain-text table: right-aligned columns, the first left-aligned."""
+    cells = [list(map(str, headers))] + [[str(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
+
+    def line(r):
+        return "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(r, widths)))
+
+    out = [line(cells[0]), "  ".join("-" * w for w in widths)]
+    out += [line(r) for r in cells[1:]]
+    return "\n".join(out)
+
+
+def heading(title):
+    print()
+    print(title)
+    print("=" * len(title))
+
+
+# --------------------------------------------------------------------------
+# mpmath reference: E[second-highest of n] for the lognormal, 30 digits
+# --------------------------------------------------------------------------
+def _upper_normal_quantile(p, digits):
+    """z with P(Z > z) = p (p <= 1/2), by Newton on log P(Z > z) in mpmath."""
+    pf = float(p)
+    if pf > 1e-300:
+        z = mp.mpf(-float(sp.ndtri(pf)))
+    else:  # first terms of the tail asymptotics, as a start below float range
+        big = -mp.log(p)
+        z = mp.sqrt(2 * big - mp.log(4 * mp.pi * big))
+    logp = mp.log(p)
+    tol = mp.mpf(10) ** (-digits)
+    for _ in range(60):
+        sf = mp.erfc(z / mp.sqrt(2)) / 2
+        step = (mp.log(sf) - logp) * sf / mp.npdf(z)
+        z += step
+        if abs(step) < tol * (1 + abs(z)):
+            break
+    return z
+
+
+@functools.lru_cache(maxsize=None)  # in memory only, for this run
+def reference_second_highest(n, sigma=SIGMA, digits=REFERENCE_DIGITS):
+    """E[X_(n-1:n)] = int_0^1 Q(u) n(n-1) u^(n-2) (1-u) du, U ~ Beta(n-1, 2).
+
+    Substituting u = exp(-w/n) puts the mass near w ~ 1 whatever n is:
+    the integral becomes int_0^inf Q(e^(-w/n)) (n-1) e^(-w(n-1)/n) (1 - e^(-w/n)) dw.
+    Q(u) = exp(sigma z) for the median-1 lognormal, with z found from whichever of
+    u or 1-u is small, so the upper tail (w -> 0) keeps every digit. tanh-sinh
+    quadrature on a graded split of w; returns (value, mpmath's error estimate).
+    """
+    with mp.workdps(digits + 15):
+        nn, s = mp.mpf(n), mp.mpf(sigma)
+
+        def integrand(w):
+            if w == 0:
+                return mp.zero
+            u, v = mp.exp(-w / nn), -mp.expm1(-w / nn)
+            z = _upper_normal_quantile(v, digits + 10) if v <= 0.5 else -_upper_normal_quantile(u, digits + 10)
+            return mp.exp(s * z) * (nn - 1) * mp.exp(-w * (nn - 1) / nn) * v
+
+        split = [0, "1e-8", "1e-4", "0.01", "0.1", "0.5", 1, 2, 4, 8, 16, 32, 64, 128, 256]
+        value, err = mp.quad(integrand, [mp.mpf(p) for p in split] + [mp.inf], error=True)
+        return value, err
+
+
+def rel_error(x, n):
+    if x is None or not math.isfinite(x):
+        return None
+    ref, _ = reference_second_highest(n)
+    with mp.workdps(REFERENCE_DIGITS):
+        return float(abs(mp.mpf(x) - ref) / ref)
+
+
+# --------------------------------------------------------------------------
+# Sections
+# --------------------------------------------------------------------------
+def _nproc():
+    try:
+        return subprocess.run(["nproc"], capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return str(len(os.sched_getaffinity(0)))
+
+
+def section_header(ctx):
+    now = datetime.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M:%S %Z")
+    print(
+        f"bidstats benchmark  {now}  nproc={_nproc()}  python={platform.python_version()}"
+        f"  numpy={np.__version__}  scipy={scipy.__version__}  mpmath={mp.__version__}"
+    )
+
+
+def section_second_highest(ctx):
+    heading(f"E[second-highest], lognormal sigma {SIGMA}")
+    print(f"ours:   rank_summary(LogNormal(median=1, sigma={SIGMA}), n, 2), model built once")
+    print("quad:   scipy.integrate.quad(x * n(n-1) F^(n-2) (1-F) f, 0, inf, limit=200), x-space,")
+    print(f"        F, f from st.lognorm({SIGMA}) frozen once, default tolerances (no points: quad takes them only on finite ranges)")
+    print(f"ostat:  st.order_statistic(X, r=n-1, n=n).mean(), X = st.make_distribution(st.lognorm)(s={SIGMA}) built once")
+    print(f"rel.err against an mpmath quantile-space integral at {REFERENCE_DIGITS} digits; each reference call capped at {REFERENCE_CAP_S:g} s")
+    print("ratio = reference time / our time")
+    print()
+
+    model = LogNormal(median=1.0, sigma=SIGMA)
+    frozen = st.lognorm(SIGMA)
+    LN = st.make_distribution(st.lognorm)(s=SIGMA)
+
+    rows, notes, ours_time, ours_mean, ref_err = [], [], {}, {}, {}
+    for n in BIDDER_COUNTS:
+        ref, est = reference_second_highest(n)
+        ref_err[n] = float(abs(est / ref))
+
+        ours = rank_summary(model, n, 2)
+        t_ours = median_time(lambda: rank_summary(model, n, 2))
+        ours_time[n], ours_mean[n] = t_ours, ours.mean
+
+        def textbook(x, n=n):
+            F = frozen.cdf(x)
+            return x * n * (n - 1) * F ** (n - 2) * (1 - F) * frozen.pdf(x)
+
+        q_val, q_time, q_note = capped(lambda: integrate.quad(textbook, 0, np.inf, limit=200)[0])
+        o_val, o_time, o_note = capped(lambda: st.order_statistic(LN, r=n - 1, n=n).mean())
+        for name, note in (("quad", q_note), ("ostat", o_note)):
+            if note:
+                notes.append(f"n={fmt_n(n)} {name}: {note}")
+        rows.append([
+            fmt_n(n),
+            fmt_time(t_ours), fmt_err(rel_error(ours.mean, n)),
+            fmt_time(q_time) if q_time else q_note, fmt_err(rel_error(q_val, n)), fmt_ratio(q_time, t_ours),
+            fmt_time(o_time) if o_time else o_note, fmt_err(rel_error(o_val, n)), fmt_ratio(o_time, t_ours),
+        ])
+    print(table(["n", "ours", "ours rel.err", "quad", "quad rel.err", "quad/ours",
+                 "ostat", "ostat rel.err", "ostat/ours"], rows))
+    for line in notes:
+        print("note: " + line)
+    ctx["second_highest_time"] = ours_time
+
+    # Checks of the reference itself (reported, not asserted).
+    print()
+    with mp.workdps(REFERENCE_DIGITS + 10):
+        s = mp.mpf(SIGMA)
+        closed = 2 * mp.exp(s * s / 2) * mp.ncdf(-s / mp.sqrt(2))
+        ref2, _ = reference_second_highest(2)
+        closed_diff = float(abs(ref2 - closed) / closed)
+    print(f"reference check, n=2: E[min of 2] = 2 exp(sigma^2/2) Phi(-sigma/sqrt 2) (derived from memory);"
+          f" relative difference from the mpmath integral {closed_diff:.1e}")
+    small = [n for n in BIDDER_COUNTS if n <= 100]
+    worst = max(rel_error(ours_mean[n], n) for n in small)
+    print(f"reference check, n <= 100: largest relative difference from our value {worst:.1e} (expected ~1e-12 or smaller)")
+    print(f"reference check: largest mpmath quadrature error estimate (relative) {max(ref_err.values()):.1e}")
+
+
+def section_scaling(ctx):
+    """Our time at n = 10^6 against n = 10, timed in alternating batches."""
+    model = LogNormal(median=1.0, sigma=SIGMA)
+    t10, t6 = interleaved_medians([lambda: rank_summary(model, 10, 2), lambda: rank_summary(model, 10**6, 2)])
+    print()
+    print(f"cost in n: our time at n=10^6 {fmt_time(t6)} / at n=10 {fmt_time(t10)} = {t6 / t10:.2f}x"
+          " (target: within 2x; the two timed in alternating batches)")
+    table_times = ctx.get("second_highest_time")
+    if table_times:
+        print(f"           from the table above: {table_times[10**6] / table_times[10]:.2f}x")
+
+
+def section_request(ctx):
+    heading("whole in-process request")
+    print("POST /v1/top-values through app.test_client() (load, compute, dump), body")
+    print(f'{{"bidder_values": {{"family": "lognormal", "median": 1.0, "sigma": {SIGMA}}}, "bidders": n, "ranks": [2]}};')
+    print("baseline: GET /healthz through the same client; core = topvalues.top_values() alone on a built model")
+    print("(the endpoint also computes rank 1 for expected_gap, and the default quantiles);")
+    print("the three timed in alternating batches")
+    print()
+    app = create_app()
+    client = app.test_client()
+    model = LogNormal(median=1.0, sigma=SIGMA)
+    rows, notes = [], []
+    for n in (10, 10**6):
+        body = {"bidder_values": {"family": "lognormal", "median": 1.0, "sigma": SIGMA}, "bidders": n, "ranks": [2]}
+        resp = client.post("/v1/top-values", json=body)
+        if resp.status_code != 200:
+            notes.append(f"n={fmt_n(n)}: status {resp.status_code}: {resp.get_data(as_text=True)[:120]}")
+        t_post, t_health, t_core = interleaved_medians([
+            lambda: client.post("/v1/top-values", json=body),
+            lambda: client.get("/healthz"),
+            lambda: topvalues.top_values(model, n, ranks=[2]),
+        ])
+        rows.append([fmt_n(n), fmt_time(t_post), fmt_time(t_health), fmt_ratio(t_post, t_health),
+                     fmt_time(t_post - t_health), fmt_time(t_core),
+                     "yes" if t_post <= 1e-3 else "no"])
+    print(table(["n", "POST", "GET /healthz", "POST/GET", "POST - GET", "core", "POST <= 1 ms"], rows))
+    for line in notes:
+        print("note: " + line)
+    print("target: the whole request within 1 ms")
+
+
+SECTIONS = [section_header, section_second_highest, section_scaling, section_request]
+
+
+def main(argv):
+    names = {f.__name__.removeprefix("section_"): f for f in SECTIONS}
+    if "--list" in argv:
+        print("\n".join(names))
+        return
+    chosen = [names[a] for a in argv if a in names] if argv else SECTIONS
+    unknown = [a for a in argv if a not in names]
+    if unknown:
+        raise SystemExit(f"unknown section(s): {', '.join(unknown)}; one of: {', '.join(names)}")
+    if section_header not in chosen:
+        chosen.insert(0, section_header)
+    t0 = time.perf_counter()
+    ctx = {}
+    for section in chosen:
+        section(ctx)
+        sys.stdout.flush()
+    print()
+    print(f"total run time {time.perf_counter() - t0:.1f} s")
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])

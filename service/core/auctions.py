@@ -1,0 +1,613 @@
+"""Auction rules under independent private values: revenue, its risk, the
+symmetric-equilibrium bids and the optimal reserve.
+
+Everything is computed for a forward auction (a seller, values X, the highest
+bidder wins). A reverse auction (a buyer, costs C, the lowest bidder wins) is
+the forward auction of X = -C with reserve -max_price and seller value
+-buyer_value; :func:`revenue_report` and friends do that reflection.
+
+Each rule's expected revenue comes by its own route, so that their agreement
+(revenue equivalence: Myerson 1981; Riley and Samuelson 1981) is a real check:
+
+* second_price: quantile-space integral over the second-highest value.
+* ascending: value-space integral of the clock price's survival function.
+* first_price: the equilibrium bid b(v) = E[max(Y, r) | Y < v] (Y the highest
+  of the other n-1 values; Krishna, Auction Theory, 2nd ed., 2009, ch. 2),
+  integrated over the highest value.
+* descending: the same bids (strategically first-price), with the clock price
+  integrated by parts through the equilibrium equation b' = (n-1)(f/F)(v-b).
+* all_pay: each bidder's bid a(v) = F(v)^(n-1) b(v), summed over n bidders.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import optimize
+from scipy import special as sp
+
+from . import orderstats as os_
+from .errors import ParameterError
+from .models import Reflected
+from .topvalues import finite
+
+RULES = ("first_price", "second_price", "ascending", "descending", "all_pay")
+ASSUMPTIONS = [
+    "independent private values drawn from the stated value model",
+    "symmetric, risk-neutral bidders",
+    "symmetric equilibrium play (truthful bidding where it is dominant)",
+    "a single indivisible item or contract, no entry costs, no collusion",
+]
+_GL = (np.polynomial.legendre.leggauss(24), np.polynomial.legendre.leggauss(16))
+
+
+def _tail_matrix(x):
+    """M[q, j] = integral from x_q to 1 of the j-th Lagrange basis polynomial on
+    the nodes x: the spectral partial integrals from each node to the panel end."""
+    L = np.polynomial.legendre
+    V = L.legvander(x, len(x) - 1)
+    coef = np.linalg.inv(V)  # column j: Legendre coefficients of the j-th basis polynomial
+    anti = L.legint(coef, lbnd=-1.0, axis=0)
+    at = L.legval(x, anti).T  # at[q, j] = integral from -1 to x_q
+    total = L.legval(1.0, anti)
+    return total[None, :] - at
+
+
+_TAIL = tuple(_tail_matrix(x) for x, _ in _GL)
+_P_EDGES = np.array([1e-15, 1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.03, 0.1, 0.2, 0.35, 0.5,
+                     0.65, 0.8, 0.9, 0.97, 0.99, 0.999, 1 - 1e-4, 1 - 1e-6, 1 - 1e-9, 1 - 1e-12, 1 - 1e-15])
+
+
+def _neg_log_cdf(model, x):
+    """-log F(x), precise in the upper tail where F is near 1."""
+    s, f = float(model.sf(x)), float(model.cdf(x))
+    if s < 0.5:
+        return -math.log1p(-s)
+    return math.inf if f <= 0.0 else -math.log(f)
+
+
+class ForwardAuction:
+    """n symmetric bidders with values from ``model``; ``reserve`` may be None."""
+
+    def __init__(self, model, bidders, reserve=None, seller_value=0.0):
+        if model.discrete:
+            raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
+        self.model, self.n = model, int(bidders)
+        self.reserve = None if reserve is None else float(reserve)
+        self.v0 = seller_value
+        # The effective floor: the reserve, or the bottom of the support.
+        self.floor = model.lower if reserve is None else max(self.reserve, model.lower)
+        self.reserve_binds = reserve is not None and self.reserve > model.lower
+        self.s_r = _neg_log_cdf(model, self.floor) if self.reserve_binds else math.inf
+        self.u_cut = math.exp(-self.s_r) if self.reserve_binds else 0.0
+        self.f_r = self.u_cut  # F(floor)
+        self.p_sale = -math.expm1(-self.n * self.s_r) if math.isfinite(self.s_r) else 1.0
+        self._bid_nodes = None
+        self._sp_quad = None
+        self._node_bid_cache = None
+
+    # ---- shared pieces -----------------------------------------------------
+    def _growth(self, p):
+        m = self.model
+        up = p / m.upper_tail_index if math.isfinite(m.upper_tail_index) else 0.0
+        low = p / m.lower_tail_index if math.isfinite(m.lower_tail_index) else 0.0
+        return up, low
+
+    def moment_ok(self, rank_n, rank, p):
+        return os_.moment_exists(self.model, rank_n, rank, p)
+
+    def truncated_moments(self, rank, cut_u, centre=0.0):
+        """E[X_r 1{X_r >= cut}], E[(X_r - centre)^2 1{...}], P(X_r >= cut), error."""
+        up, low = self._growth(2)
+        q = os_.rank_quadrature(self.n, rank, kinks_u=self.model.kinks_u(), u_cut=cut_u,
+                                upper_growth=up, lower_growth=low).fill(self.model)
+        if q.panels == 0:
+            return 0.0, 0.0, 0.0, 0.0
+        e1, err = q.integrate(lambda x: x)
+        e2, _ = q.integrate(lambda x: (x - centre) ** 2)
+        return e1, e2, q.total(), err
+
+    # ---- first-price bids ----------------------------------------------------
+    def _inner_quadrature(self):
+        """Panels for the highest of the other n-1 values, cut at the reserve."""
+        if self._bid_nodes is None:
+            up, low = self._growth(2)
+            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), u_cut=self.u_cut,
+                                    upper_growth=up, lower_growth=low).fill(self.model)
+            self._bid_nodes = q
+        return self._bid_nodes
+
+    def _bid_tail(self):
+        """D_k: the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from each panel
+        edge k to the reserve, shifted by e^((n-1) s_k) so nothing overflows."""
+        q = self._inner_quadrature()
+        k = self.n - 1.0
+        edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
+        se = np.exp(edges) / k
+        out = []
+        for t, dt, vals in q.rules():
+            s = np.exp(t) / k
+            panel = np.sum(dt * vals * k * s * np.exp(-k * (s - se[:-1, None])), axis=1)
+            d = np.zeros(len(edges))
+            end_mass = self.floor * math.exp(-k * (self.s_r - se[-1])) if math.isfinite(self.s_r) else 0.0
+            d[-1] = end_mass if self.floor != -math.inf else 0.0
+            for i in range(len(edges) - 2, -1, -1):
+                d[i] = panel[i] + math.exp(-k * (se[i + 1] - se[i])) * d[i + 1]
+            out.append((edges, se, d))
+        return out
+
+    def _partial(self, s_q, s_end):
+        """Integral of v (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
+        k = self.n - 1.0
+        w_end = min(k * (s_end - s_q), 80.0)
+        if not w_end > 0:
+            return 0.0
+        m = self.model
+        edges = [0.0, *[x for x in (0.5, 1.5, 3.0, 5.5, 9.0, 14.0, 21.0, 30.0, 42.0, 58.0, 80.0) if x < w_end], w_end]
+        for uk in m.kinks_u():
+            wk = k * (-math.log(uk) - s_q)
+            if 0.0 < wk < w_end:
+                edges.append(wk)
+        edges = np.unique(edges)
+        (x, w) = _GL[0]
+        a, b = edges[:-1], edges[1:]
+        half, mid = 0.5 * (b - a), 0.5 * (b + a)
+        wp = (mid[:, None] + half[:, None] * x).ravel()
+        ww = (half[:, None] * w).ravel() * np.exp(-wp)
+        s = s_q + wp / k
+        vals = m.value_at(np.exp(-s), -np.expm1(-s))
+        return float(np.dot(ww, vals))
+
+    def bids_at_s(self, s_q, rule_index=0):
+        """First-price equilibrium bids at values with -log F(v) = s_q (array)."""
+        s_q = np.asarray(s_q, float)
+        if self.n == 1:
+            return np.full(s_q.shape, self.floor)
+        k = self.n - 1.0
+        q = self._inner_quadrature()
+        edges, se, d = self._bid_tail()[rule_index]
+        reach = k * se[-1] - 40.0 if not math.isfinite(self.s_r) else math.inf
+        out = np.empty(s_q.shape)
+        flat = s_q.ravel()
+        res = out.ravel()
+        for i, sq in enumerate(flat):
+            if not sq <= self.s_r:
+                res[i] = math.nan
+                continue
+            res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
+            if q.panels and se[0] <= sq and k * sq <= reach:
+                j = min(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
+                part = float(self._sub_integral(np.array(math.log(k * sq)), np.array(edges[j + 1])))
+                res[i] = part + math.exp(-k * (se[j + 1] - sq)) * d[j + 1]
+            elif q.panels and sq < se[0]:
+                part = self._partial(sq, se[0])
+                res[i] = part + math.exp(-k * (se[0] - sq)) * d[0]
+            else:
+                end = self.s_r if math.isfinite(self.s_r) else sq + 80.0 / k
+                res[i] = self._partial(sq, end) + res_mass
+        return out
+
+    def _sub_integral(self, t_q, t_end):
+        """Integral of v (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
+        each by one 24-node Gauss-Legendre rule."""
+        k = self.n - 1.0
+        xs, ws = _GL[0]
+        hh = 0.5 * (t_end - t_q)
+        tt = (0.5 * (t_end + t_q))[..., None] + hh[..., None] * xs
+        ss = np.exp(tt) / k
+        vv = self.model.value_at(np.exp(-ss), -np.expm1(-ss))
+        sq = (np.exp(t_q) / k)[..., None]
+        return np.sum(hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq)), axis=-1)
+
+    def node_bids(self):
+        """For both rules: (t, dt, values, s, bids) at the inner quadrature's
+        nodes, bids by the panel recurrence plus the node's partial panel."""
+        if getattr(self, "_node_bid_cache", None) is not None:
+            return self._node_bid_cache
+        q = self._inner_quadrature()
+        k = self.n - 1.0
+        out = []
+        half = 0.5 * (q.b - q.a)[:, None]
+        for (t, dt, vals), (edges, se, d), tail in zip(q.rules(), self._bid_tail(), _TAIL):
+            s = np.exp(t) / k
+            # The integrand shifted to each panel's right end, integrated spectrally
+            # from every node to that end (no new value evaluations).
+            g = vals * k * s * np.exp(k * (se[1:, None] - s))
+            part = half * (g @ tail.T) * np.exp(-k * (se[1:, None] - s))
+            bids = part + np.exp(-k * (se[1:, None] - s)) * d[1:, None]
+            out.append((t, dt, vals, s, bids))
+        self._node_bid_cache = out
+        return out
+
+
+def _quad_cut(auc, rank):
+    """Filled rank quadrature over values >= the floor."""
+    up, low = auc._growth(2)
+    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), u_cut=auc.u_cut,
+                               upper_growth=up, lower_growth=low).fill(auc.model)
+
+
+def _second_price_distribution(auc):
+    """The price max(X2, r) on a sale: its atoms and the quadrature above r."""
+    n, fr = auc.n, auc.f_r
+    p0 = fr**n
+    pr = n * fr ** (n - 1) * (1.0 - fr) if auc.reserve_binds else 0.0
+    if auc._sp_quad is None:
+        auc._sp_quad = _quad_cut(auc, 2)
+    return p0, pr, auc._sp_quad
+
+
+def _price_stats_second(auc, mean):
+    p0, pr, q = _second_price_distribution(auc)
+    var = p0 * mean**2 + (pr * (auc.floor - mean) ** 2 if pr else 0.0)
+    if q.panels:
+        var += q.integrate(lambda x: (x - mean) ** 2)[0]
+    return var
+
+
+def _price_quantiles_second(auc, ps):
+    p0, pr, _ = _second_price_distribution(auc)
+    ps = np.asarray(ps, float)
+    x2 = os_.rank_quantiles(auc.model, auc.n, 2, ps)
+    return np.where(ps <= p0, 0.0, np.where(ps <= p0 + pr, auc.floor, x2))
+
+
+def second_price_revenue(auc):
+    """E[max(X2, r) 1{X1 >= r}] in quantile space over the second-highest."""
+    p0, pr, q = _second_price_distribution(auc)
+    above, err = q.integrate(lambda x: x) if q.panels else (0.0, 0.0)
+    return (pr * auc.floor if pr else 0.0) + above, err
+
+
+def ascending_revenue(auc):
+    """The open clock stops at the second-highest value (or the reserve):
+    E[price] = r P(sale) + integral from r of P(X2 > p) dp, in value space."""
+    m, n = auc.model, auc.n
+    xs = os_.rank_quantiles(m, n, 2, _P_EDGES)
+    lo_end = auc.floor
+    edges = np.concatenate((xs, list(m.kink_values()), [lo_end] if math.isfinite(lo_end) else []))
+    if math.isfinite(m.upper):
+        edges = np.append(edges, m.upper)
+    if math.isfinite(lo_end):
+        edges = edges[edges >= lo_end]
+    edges = np.unique(edges[np.isfinite(edges)])
+    split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
+    if split is not None:
+        edges = np.unique(np.append(edges, split))
+
+    def sf2(x):
+        return 1.0 - os_.rank_cdf(m, n, 2, x)
+
+    def cdf2(x):
+        return os_.rank_cdf(m, n, 2, x)
+
+    totals = []
+    for x, w in _GL:
+        a, b = edges[:-1], edges[1:]
+        half, mid = 0.5 * (b - a), 0.5 * (b + a)
+        pts = mid[:, None] + half[:, None] * x
+        hw = half[:, None] * w
+        if split is None:
+            tot = lo_end * auc.p_sale + float(np.sum(hw * sf2(pts)))
+        else:
+            up = pts >= split
+            tot = split + float(np.sum(np.where(up, hw * sf2(pts), -hw * cdf2(pts))))
+        totals.append(tot)
+    # Power-law tails beyond the last edge, integrated in closed form.
+    tail = 0.0
+    if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
+        top = edges[-1]
+        tail += top * float(sf2(np.array(top))) / (2.0 * m.upper_tail_index - 1.0)
+    if split is not None and math.isfinite(m.lower_tail_index):
+        bot = edges[0]
+        tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
+    return totals[0] + tail, abs(totals[0] - totals[1])
+
+
+def _bid_outer(auc, integrand):
+    """Sum over the bid nodes of dt * integrand(s, v, b), for both rules."""
+    vals = [float(np.sum(dt * integrand(s, v, b))) for (t, dt, v, s, b) in auc.node_bids()]
+    return vals[0], abs(vals[0] - vals[1])
+
+
+def first_price_revenue(auc):
+    """E[b(X1) 1{X1 >= r}]: the winner pays its own equilibrium bid."""
+    n = auc.n
+    return _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * b)
+
+
+def descending_revenue(auc):
+    """The descending clock price b(X1), integrated by parts:
+    E = b(c) - r F(r)^n + int_c^inf b' (1 - F^n) dv - int_r^c b' F^n dv,
+    with b' dv = -(n-1) (v - b) ds from the equilibrium equation."""
+    n, k = auc.n, auc.n - 1.0
+    q = auc._inner_quadrature()
+    edges = np.append(q.a, q.b[-1])
+    c = int(np.argmin(np.abs(edges - math.log(k / n))))
+    t_c = edges[c]
+    floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
+    vals = []
+    for (t, dt, v, s, b), (_, _, d) in zip(auc.node_bids(), auc._bid_tail()):
+        shade = k * (v - b) * s
+        weight = np.where(t < t_c, -np.expm1(-n * s), -np.exp(-n * s))
+        vals.append(d[c] - floor_term + float(np.sum(dt * shade * weight)))
+    return vals[0], abs(vals[0] - vals[1])
+
+
+def all_pay_revenue(auc):
+    """n E[a(X) 1{X >= r}], a(v) = F(v)^(n-1) b(v): every bidder pays its bid."""
+    n, k = auc.n, auc.n - 1.0
+    return _bid_outer(auc, lambda s, v, b: n * np.exp(-s) * s * np.exp(-k * s) * b)
+
+
+def _bid_price_stats(auc, mean):
+    """Variance of the price b(X1) 1{sale}, shared by first-price and descending."""
+    n = auc.n
+    var, _ = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * (b - mean) ** 2)
+    return var + (1.0 - auc.p_sale) * mean**2
+
+
+def _bid_price_quantiles(auc, ps):
+    ps = np.asarray(ps, float)
+    s_q = -np.log(ps) / auc.n  # rank-1 quantile: F(x_p) = p^(1/n)
+    bids = auc.bids_at_s(np.minimum(s_q, auc.s_r))
+    return np.where(ps <= 1.0 - auc.p_sale, 0.0, bids)
+
+
+def _all_pay_stats(auc):
+    n, k = auc.n, auc.n - 1.0
+    ea, _ = _bid_outer(auc, lambda s, v, b: np.exp(-s) * s * np.exp(-k * s) * b)
+    ea2, _ = _bid_outer(auc, lambda s, v, b: np.exp(-s) * s * (np.exp(-k * s) * b) ** 2)
+    winner_pays, _ = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * np.exp(-k * s) * b)
+    return n * max(ea2 - ea * ea, 0.0), winner_pays
+
+
+ROUTES = {
+    "first_price": first_price_revenue,
+    "second_price": second_price_revenue,
+    "ascending": ascending_revenue,
+    "descending": descending_revenue,
+    "all_pay": all_pay_revenue,
+}
+
+
+def forward_figures(auc, rules, quantiles):
+    """Each rule's forward figures, expected revenue by the rule's own route."""
+    n = auc.n
+    warnings = []
+    if auc.p_sale == 0.0:
+        e_win_value = 0.0
+    elif n == 1:
+        e1_q = _quad_cut(auc, 1)
+        e_win_value = e1_q.integrate(lambda x: x)[0]
+    else:
+        e_win_value = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * v)[0]
+    eff = _efficiency(auc, e_win_value, warnings)
+    out = {}
+    for rule in rules:
+        if auc.p_sale == 0.0:
+            mean, err, var, qs, winner_pay = 0.0, 0.0, 0.0, np.zeros(len(quantiles)), 0.0
+        elif n == 1:
+            # A lone bidder pays the floor under every rule (no rival to beat).
+            if not math.isfinite(auc.floor):
+                raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
+            mean, err = auc.floor * auc.p_sale, 0.0
+            var = auc.p_sale * (1 - auc.p_sale) * auc.floor**2
+            qs = np.where(np.asarray(quantiles) <= 1 - auc.p_sale, 0.0, auc.floor)
+            winner_pay = mean
+        else:
+            mean, err = ROUTES[rule](auc)
+            winner_pay = mean
+            if rule in ("second_price", "ascending"):
+                var, qs = _price_stats_second(auc, mean), _price_quantiles_second(auc, quantiles)
+            elif rule in ("first_price", "descending"):
+                var, qs = _bid_price_stats(auc, mean), _bid_price_quantiles(auc, quantiles)
+            else:
+                var, winner_pay = _all_pay_stats(auc)
+                qs = None
+        out[rule] = {
+            "rule": rule,
+            "expected_revenue": mean,
+            "revenue_sd": math.sqrt(max(var, 0.0)),
+            "revenue_quantiles": None if qs is None else [{"p": float(p), "value": float(x)} for p, x in zip(quantiles, qs)],
+            "probability_of_sale": auc.p_sale,
+            "expected_winner_surplus": e_win_value - winner_pay,
+            "expected_bidder_surplus": e_win_value - mean,
+            "efficiency": eff,
+            "_err": err,
+        }
+    if "all_pay" in rules and n > 1 and auc.p_sale > 0:
+        warnings.append("all_pay: revenue_quantiles are null (the sum of n bids has no closed form here); revenue_sd is exact")
+    return out, warnings
+
+
+def _efficiency(auc, e_win_value, warnings):
+    """Expected realised gains from trade over the largest possible."""
+    v0 = auc.v0
+    if v0 is None:
+        warnings.append("efficiency is null: give buyer_value to measure gains from trade")
+        return None
+    realised = e_win_value - v0 * auc.p_sale
+    u0 = 0.0 if v0 <= auc.model.lower else math.exp(-_neg_log_cdf(auc.model, v0))
+    up, low = auc._growth(1)
+    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), u_cut=u0, upper_growth=up, lower_growth=low).fill(auc.model)
+    best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
+    if not best > 0:
+        warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")
+        return None
+    return realised / best
+
+
+# ---- reports in the caller's direction -------------------------------------------
+
+def _forward_case(model, direction, reserve, own_value):
+    """Reflect a reverse case into its forward twin: X = -C."""
+    if direction == "forward":
+        return model, reserve, own_value
+    return Reflected(model), None if reserve is None else -reserve, None if own_value is None else -own_value
+
+
+_NAMES = {
+    "forward": ("expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"),
+    "reverse": ("expected_payment", "payment_sd", "payment_quantiles", "probability_of_award"),
+}
+
+
+def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=RULES,
+                   quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
+    """Revenue (forward) or payment (reverse) figures for each rule asked."""
+    fmodel, freserve, v0 = _forward_case(model, direction, reserve, own_value)
+    if direction == "forward" and v0 is None:
+        v0 = 0.0
+    auc = ForwardAuction(fmodel, bidders, freserve, v0)
+    if not os_.moment_exists(fmodel, bidders, 1, 1):
+        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+    # Payment quantile p is minus the forward revenue quantile 1 - p.
+    fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
+    figures, warnings = forward_figures(auc, list(rules), fq)
+    sign = 1.0 if direction == "forward" else -1.0
+    mean_k, sd_k, q_k, p_k = _NAMES[direction]
+    results, err = [], 0.0
+    for rule in rules:
+        f = figures[rule]
+        err = max(err, f["_err"])
+        qs = f["revenue_quantiles"]
+        if qs is not None:
+            qs = [{"p": float(p), "value": sign * q["value"]} for p, q in zip(quantiles, qs)]
+        results.append({
+            "rule": rule,
+            mean_k: finite(sign * f["expected_revenue"]),
+            sd_k: finite(f["revenue_sd"]),
+            q_k: None if qs is None else [{"p": q["p"], "value": finite(q["value"])} for q in qs],
+            p_k: finite(f["probability_of_sale"]),
+            "expected_winner_surplus": finite(f["expected_winner_surplus"]),
+            "expected_bidder_surplus": finite(f["expected_bidder_surplus"]),
+            "efficiency": finite(f["efficiency"]),
+        })
+    means = [r[mean_k] for r in results]
+    spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
+    return {
+        "direction": direction,
+        "assumptions": ASSUMPTIONS,
+        "bidders": bidders,
+        "reserve": reserve,
+        "results": results,
+        "revenue_equivalence": finite(spread),
+        "numerics": {"method": "quantile_gauss_legendre+spectral_bid_integration", "abs_error": finite(err)},
+        "warnings": warnings,
+    }
+
+
+def _grid(model, points):
+    lo = model.lower if math.isfinite(model.lower) else float(model.ppf(1e-3))
+    hi = model.upper if math.isfinite(model.upper) else float(model.isf(1e-3))
+    return np.linspace(lo, hi, points)
+
+
+def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", points=51, at=None):
+    """Equilibrium bids on a grid of values (forward) or costs (reverse)."""
+    fmodel, freserve, _ = _forward_case(model, direction, reserve, None)
+    auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
+    grid = np.asarray(at, float) if at is not None else _grid(model, points)
+    v = grid if direction == "forward" else -grid
+    takes_part = v >= auc.floor if auc.reserve_binds else np.ones(v.shape, bool)
+    if rule in ("second_price", "ascending"):
+        bids = v.copy()
+        note = "bidding one's own value is a dominant strategy under this rule (Vickrey 1961)"
+    else:
+        s_q = np.array([_neg_log_cdf(fmodel, x) for x in v])
+        s_q = np.minimum(s_q, auc.s_r)
+        b = auc.bids_at_s(s_q)
+        if rule == "all_pay":
+            bids = np.exp(-(bidders - 1.0) * s_q) * b
+            note = "all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)"
+        else:
+            bids = b
+            note = ("symmetric equilibrium bid b(v) = E[max(Y, r) | Y < v], Y the highest rival value (Krishna 2009, ch. 2)"
+                    + ("; the descending clock is strategically the same as first-price" if rule == "descending" else ""))
+    if direction == "reverse":
+        bids = -bids
+    out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]
+    key = "values" if direction == "forward" else "costs"
+    warnings = []
+    if not all(takes_part):
+        warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
+    return {"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
+            "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}
+
+
+def _sp_payoff(model, n, r, v0):
+    """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
+    auc = ForwardAuction(model, n, r, v0)
+    rev = second_price_revenue(auc)[0] if n > 1 else auc.floor * auc.p_sale
+    return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
+
+
+def optimal_reserve(model, bidders, v0):
+    """Myerson (1981): the reserve where the virtual value v - S(v)/f(v) equals v0;
+    for an irregular model, a direct search of the payoff over reserves."""
+    if model.discrete:
+        raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
+    u = np.concatenate(([1e-9, 1e-6, 1e-4], np.linspace(0.002, 0.998, 499), [1 - 1e-4, 1 - 1e-6, 1 - 1e-9]))
+    x = model.value_at(u, 1.0 - u)
+    with np.errstate(all="ignore"):
+        psi = x - model.sf(x) / model.pdf(x)
+    good = np.isfinite(psi)
+    x, psi = x[good], psi[good]
+    scale = max(np.max(np.abs(x)), 1e-300)
+    regular = bool(np.all(np.diff(psi) >= -1e-9 * scale))
+    lo = model.lower if math.isfinite(model.lower) else float(x[0])
+    hi = model.upper if math.isfinite(model.upper) else float(x[-1])
+
+    def vv(r):
+        with np.errstate(all="ignore"):
+            return float(r - model.sf(r) / model.pdf(r)) - v0
+
+    note = "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend on the number of bidders"
+    if regular:
+        if psi[0] >= v0:
+            r_star = lo
+            note += "; here every value's virtual value already exceeds it, so no reserve binds"
+        elif psi[-1] <= v0:
+            r_star = hi
+            note += "; here no value's virtual value reaches it, so the item is best kept"
+        else:
+            i = int(np.argmax(psi > v0))
+            a, b = float(x[i - 1]), float(x[i])
+            r_star = optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200)
+    else:
+        pay = np.array([_sp_payoff(model, bidders, float(r), v0)[0] for r in x])
+        i = int(np.argmax(pay))
+        a, b = float(x[max(i - 1, 0)]), float(x[min(i + 1, len(x) - 1)])
+        res = optimize.minimize_scalar(lambda r: -_sp_payoff(model, bidders, r, v0)[0], bounds=(a, b),
+                                       method="bounded", options={"xatol": 1e-12 * max(abs(a), abs(b), 1.0)})
+        r_star = float(res.x) if -res.fun >= pay[i] else float(x[i])
+        note = ("the virtual value is not increasing over the support (an irregular model), so the reserve was found by "
+                "direct search of the expected payoff over reserves")
+    return r_star, regular, note
+
+
+def reserve_report(model, direction, bidders, own_value):
+    """The revenue-maximising reserve (forward) or maximum price (reverse)."""
+    fmodel, _, v0 = _forward_case(model, direction, None, own_value)
+    r_star, regular, note = optimal_reserve(fmodel, bidders, v0)
+    if not os_.moment_exists(fmodel, bidders, 1, 1):
+        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+    payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
+    _, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
+    sign = 1.0 if direction == "forward" else -1.0
+    word, chance = ("revenue", "sale") if direction == "forward" else ("payment", "award")
+    out = {
+        "direction": direction,
+        "bidders": bidders,
+        "optimal_reserve": finite(sign * r_star),
+        f"expected_{word}_at_optimum": finite(sign * rev),
+        f"expected_{word}_without_reserve": finite(None if rev0 is None else sign * rev0),
+        f"probability_of_{chance}_at_optimum": finite(p_sale),
+        "expected_payoff_at_optimum": finite(payoff if direction == "forward" else payoff + own_value),
+        "regular": regular,
+        "note": note,
+        "assumptions": ASSUMPTIONS,
+        "warnings": [],
+    }
+    return out

@@ -1,0 +1,112 @@
+"""POST /v1/revenue, /v1/bid-strategy and /v1/reserve-price.
+
+Each request names the value model as ``bidder_values`` (forward: a sale) or
+``bidder_costs`` (reverse: a procurement); the name sets the direction.
+"""
+from __future__ import annotations
+
+from flask import Blueprint
+from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+
+from .. import settings
+from ..core import auctions
+from .fields import StrictFloat, StrictInteger, ValueModelField
+from .io import json_response, load
+from .top_values import core_call
+
+bp = Blueprint("auctions", __name__)
+CAPS = settings.CAPS
+RULE = validate.OneOf(auctions.RULES)
+
+
+class _AuctionRequest(Schema):
+    """Fields every auction request shares, and the direction rules."""
+
+    bidder_values = ValueModelField(load_default=None)
+    bidder_costs = ValueModelField(load_default=None)
+    bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
+    seller_value = StrictFloat(load_default=None)
+    buyer_value = StrictFloat(load_default=None)
+
+    @validates_schema(skip_on_field_errors=False)
+    def _direction(self, data, **kw):
+        v, c = data.get("bidder_values"), data.get("bidder_costs")
+        if (v is None) == (c is None):
+            msg = "Give exactly one of bidder_values (forward) or bidder_costs (reverse)."
+            raise ValidationError({"bidder_values": [msg], "bidder_costs": [msg]})
+        if v is not None and data.get("buyer_value") is not None:
+            raise ValidationError({"buyer_value": ["Only for a reverse auction (bidder_costs); a forward auction takes seller_value."]})
+        if c is not None and data.get("seller_value") is not None:
+            raise ValidationError({"seller_value": ["Only for a forward auction (bidder_values); a reverse auction takes buyer_value."]})
+
+
+def _case(req):
+    """(model, direction, own value) from a loaded auction request."""
+    if req["bidder_values"] is not None:
+        return req["bidder_values"], "forward", req["seller_value"] if req["seller_value"] is not None else 0.0
+    return req["bidder_costs"], "reverse", req["buyer_value"]
+
+
+class RevenueRequest(_AuctionRequest):
+    reserve = StrictFloat(load_default=None)
+    rules = fields.List(fields.String(validate=RULE), load_default=lambda: list(auctions.RULES),
+                        validate=validate.Length(min=1, max=len(auctions.RULES)))
+    quantiles = fields.List(StrictFloat(bound="open_probability"), load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95],
+                            validate=validate.Length(max=CAPS.quantiles))
+
+    @validates_schema
+    def _unique_rules(self, data, **kw):
+        rules = data.get("rules") or []
+        if len(set(rules)) != len(rules):
+            raise ValidationError({"rules": ["Each rule at most once."]})
+
+
+class BidStrategyRequest(_AuctionRequest):
+    reserve = StrictFloat(load_default=None)
+    rule = fields.String(load_default="first_price", validate=RULE)
+    points = StrictInteger(minimum=2, maximum=CAPS.curve_points, load_default=None)
+    at = fields.List(StrictFloat(), load_default=None, validate=validate.Length(min=1, max=CAPS.points))
+
+    @validates_schema
+    def _grid(self, data, **kw):
+        if data.get("points") is not None and data.get("at") is not None:
+            raise ValidationError({"at": ["Give points or at, not both."]})
+
+
+class ReservePriceRequest(_AuctionRequest):
+    @validates_schema
+    def _buyer_value(self, data, **kw):
+        if data.get("bidder_costs") is not None and data.get("buyer_value") is None:
+            raise ValidationError({"buyer_value": ["Required for a reverse auction: the optimal maximum price depends on it."]})
+
+
+@bp.post("/v1/revenue")
+def post_revenue():
+    req = load(RevenueRequest)
+    model, direction, own = _case(req)
+    return json_response(core_call(
+        auctions.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], own_value=own,
+        rules=req["rules"], quantiles=req["quantiles"],
+    ))
+
+
+@bp.post("/v1/bid-strategy")
+def post_bid_strategy():
+    req = load(BidStrategyRequest)
+    model, direction, _ = _case(req)
+    return json_response(core_call(
+        auctions.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], rule=req["rule"],
+        points=req["points"] or 51, at=req["at"],
+    ))
+
+
+@bp.post("/v1/reserve-price")
+def post_reserve_price():
+    req = load(ReservePriceRequest)
+    model, direction, own = _case(req)
+    return json_response(core_call(
+        auctions.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        model=model, direction=direction, bidders=req["bidders"], own_value=own,
+    ))
