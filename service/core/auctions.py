@@ -383,7 +383,7 @@ def forward_figures(auc, rules, quantiles):
     else:
         e_win_value = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * v)[0]
     eff = _efficiency(auc, e_win_value, warnings)
-    out = {}
+    out, shared = {}, {}
     for rule in rules:
         if auc.p_sale == 0.0:
             mean, err, var, qs, winner_pay = 0.0, 0.0, 0.0, np.zeros(len(quantiles)), 0.0
@@ -398,10 +398,14 @@ def forward_figures(auc, rules, quantiles):
         else:
             mean, err = ROUTES[rule](auc)
             winner_pay = mean
+            # Quantiles depend only on the price distribution, which the two rules
+            # of each pair share; compute them once per pair.
             if rule in ("second_price", "ascending"):
-                var, qs = _price_stats_second(auc, mean), _price_quantiles_second(auc, quantiles)
+                var = _price_stats_second(auc, mean)
+                qs = shared["second"] if "second" in shared else shared.setdefault("second", _price_quantiles_second(auc, quantiles))
             elif rule in ("first_price", "descending"):
-                var, qs = _bid_price_stats(auc, mean), _bid_price_quantiles(auc, quantiles)
+                var = _bid_price_stats(auc, mean)
+                qs = shared["bid"] if "bid" in shared else shared.setdefault("bid", _bid_price_quantiles(auc, quantiles))
             else:
                 var, winner_pay = _all_pay_stats(auc)
                 qs = None
@@ -510,27 +514,38 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
     grid = np.asarray(at, float) if at is not None else _grid(model, points)
     v = grid if direction == "forward" else -grid
-    takes_part = v >= auc.floor if auc.reserve_binds else np.ones(v.shape, bool)
+    inside = (v >= fmodel.lower) & (v <= fmodel.upper)
+    takes_part = inside & (v >= auc.floor)
     if rule in ("second_price", "ascending"):
         bids = v.copy()
-        note = "bidding one's own value is a dominant strategy under this rule (Vickrey 1961)"
+        note = ("bidding one's own " + ("value" if direction == "forward" else "cost")
+                + " is a dominant strategy under this rule (Vickrey 1961)")
     else:
         s_q = np.array([_neg_log_cdf(fmodel, x) for x in v])
         s_q = np.minimum(s_q, auc.s_r)
-        b = auc.bids_at_s(s_q)
+        b = np.full(v.shape, auc.floor)
+        live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
+        b[live] = auc.bids_at_s(s_q[live])
+        fwd = direction == "forward"
         if rule == "all_pay":
-            bids = np.exp(-(bidders - 1.0) * s_q) * b
-            note = "all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)"
+            with np.errstate(over="ignore", invalid="ignore"):
+                bids = np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)) * b, 0.0)
+            note = ("all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)" if fwd else
+                    "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)")
         else:
             bids = b
-            note = ("symmetric equilibrium bid b(v) = E[max(Y, r) | Y < v], Y the highest rival value (Krishna 2009, ch. 2)"
-                    + ("; the descending clock is strategically the same as first-price" if rule == "descending" else ""))
+            note = ("symmetric equilibrium bid b(v) = E[max(Y, r) | Y < v], Y the highest rival value (Krishna 2009, ch. 2)" if fwd else
+                    "symmetric equilibrium ask b(c) = E[min(Y, p) | Y > c], Y the lowest rival cost, p the maximum price (the mirror of Krishna 2009, ch. 2)")
+            if rule == "descending":
+                note += "; the " + ("descending" if fwd else "rising") + " clock is strategically the same as first-price"
     if direction == "reverse":
         bids = -bids
     out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]
     key = "values" if direction == "forward" else "costs"
     warnings = []
-    if not all(takes_part):
+    if not all(inside):
+        warnings.append("bids are null at " + ("values" if direction == "forward" else "costs") + " outside the model's support")
+    if not all(takes_part[inside]):
         warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
     return {"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
             "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}
@@ -591,6 +606,12 @@ def reserve_report(model, direction, bidders, own_value):
     """The revenue-maximising reserve (forward) or maximum price (reverse)."""
     fmodel, _, v0 = _forward_case(model, direction, None, own_value)
     r_star, regular, note = optimal_reserve(fmodel, bidders, v0)
+    if direction == "reverse":
+        note = (note.replace("virtual value is", "virtual cost c + F(c)/f(c) is")
+                    .replace("the virtual value equals the auctioneer's own value", "the virtual cost c + F(c)/f(c) equals the buyer's value")
+                    .replace("every value's virtual value already exceeds it, so no reserve binds", "every cost's virtual cost is already below it, so no maximum price binds")
+                    .replace("no value's virtual value reaches it, so the item is best kept", "no cost's virtual cost is below it, so the contract is best not awarded")
+                    .replace("over reserves", "over maximum prices"))
     if not os_.moment_exists(fmodel, bidders, 1, 1):
         raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
     payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)

@@ -147,7 +147,7 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
         return empty
 
     # Trim to where the integrand matters, on a cheap scan of the log-weight.
-    scan = np.linspace(t_left, t_right, 1201)
+    scan = np.linspace(t_left, t_right, 301)
     wscan = np.exp(scan)
     with np.errstate(divide="ignore"):
         aug = (_log_weight(scan, m, r, lognorm)

@@ -15,6 +15,10 @@ from ..core import models as M
 from ..core.errors import ParameterError
 
 
+#: Largest magnitude of any number in a request: its square must stay finite.
+MAX_MAGNITUDE = 1e150
+
+
 class StrictFloat(fields.Field):
     """A finite JSON number; ``bound`` may require it positive or non-negative."""
 
@@ -31,6 +35,8 @@ class StrictFloat(fields.Field):
             raise ValidationError("Must be a finite number.") from None
         if not math.isfinite(x):
             raise ValidationError("Must be a finite number.")
+        if abs(x) > MAX_MAGNITUDE:
+            raise ValidationError(f"Must be at most {MAX_MAGNITUDE:g} in magnitude (squares must stay finite).")
         if self.bound == "positive" and not x > 0:
             raise ValidationError("Must be greater than 0.")
         if self.bound == "nonnegative" and not x >= 0:
@@ -110,7 +116,8 @@ class MixtureSchema(Schema):
     components = fields.List(fields.Nested(ComponentSchema), required=True, validate=validate.Length(min=1))
 
 
-_SCHEMAS = {name: _parametric_schema(cls) for name, cls in M.PARAMETRIC.items()}
+_SCHEMAS = {name: _parametric_schema(cls)() for name, cls in M.PARAMETRIC.items()}
+_TABLE, _EMPIRICAL, _MIXTURE = QuantileTableSchema(), EmpiricalSchema(), MixtureSchema()
 FAMILIES = sorted([*_SCHEMAS, "empirical", "quantile_table", "mixture"])
 
 
@@ -136,7 +143,7 @@ def build_value_model(data, depth=0):
         raise ValidationError({"family": [f"Unknown family; one of: {', '.join(FAMILIES)}."]})
     try:
         if family in _SCHEMAS:
-            d = _SCHEMAS[family]().load(data)
+            d = _SCHEMAS[family].load(data)
             trunc = d.pop("truncate")
             d.pop("family")
             model = M.PARAMETRIC[family](**{k: v for k, v in d.items() if v is not None or M.PARAMETRIC[family].parameters[k].required})
@@ -146,17 +153,17 @@ def build_value_model(data, depth=0):
                 model = M.Truncated(model, trunc["low"], trunc["high"])
             return model
         if family == "quantile_table":
-            d = QuantileTableSchema().load(data)
+            d = _TABLE.load(data)
             return M.QuantileTable([(p["p"], p["value"]) for p in d["points"]], d["low"], d["high"])
         if family == "empirical":
-            d = EmpiricalSchema().load(data)
+            d = _EMPIRICAL.load(data)
             n = len(d["sample"])
             if n < 5:
                 raise ParameterError("sample", "needs at least 5 past values")
             if n > settings.CAPS.sample:
                 raise ParameterError("sample", f"holds {n} values; the cap is {settings.CAPS.sample}")
             return M.empirical(d["sample"], d["smoothing"], d["low"], d["high"])
-        d = MixtureSchema().load(data)
+        d = _MIXTURE.load(data)
         if len(d["components"]) > settings.CAPS.components:
             raise ParameterError("components", f"the cap is {settings.CAPS.components} components")
         if depth >= 2:

@@ -26,9 +26,16 @@ def json_body():
     return data
 
 
+_SCHEMA_CACHE = {}
+
+
 def load(schema_cls):
-    """Validate the request body with a schema (422 on failure) and return it."""
-    return schema_cls().load(json_body())
+    """Validate the request body with a schema (422 on failure) and return it.
+    Schema instances are built once: marshmallow schemas are costly to build."""
+    schema = _SCHEMA_CACHE.get(schema_cls)
+    if schema is None:
+        schema = _SCHEMA_CACHE[schema_cls] = schema_cls()
+    return schema.load(json_body())
 
 
 def json_response(payload, status=200):
