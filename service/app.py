@@ -4,7 +4,7 @@ from __future__ import annotations
 from flask import Flask
 
 from . import settings
-from .web import auctions, meta, problems, top_values
+from .web import auctions, batch, meta, problems, quote, top_values
 
 
 def create_app(config=None):
@@ -15,6 +15,6 @@ def create_app(config=None):
     if config:
         app.config.update(config)
     problems.register(app)
-    for module in (meta, top_values, auctions):
+    for module in (meta, top_values, auctions, batch, quote):
         app.register_blueprint(module.bp)
     return app

@@ -31,6 +31,7 @@ class Caps:
     sample: int = _int_env("BIDSTATS_MAX_SAMPLE", 10_000)
     components: int = _int_env("BIDSTATS_MAX_COMPONENTS", 50)
     body_bytes: int = _int_env("BIDSTATS_MAX_BODY_BYTES", 2_000_000)
+    batch_items: int = _int_env("BIDSTATS_MAX_BATCH_ITEMS", 1000)
 
 
 CAPS = Caps()

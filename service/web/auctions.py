@@ -11,7 +11,7 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 from .. import settings
 from ..core import auctions
 from .fields import StrictFloat, StrictInteger, ValueModelField
-from .io import json_response, load
+from .io import load, register_posts
 from .top_values import core_call
 
 bp = Blueprint("auctions", __name__)
@@ -80,33 +80,35 @@ class ReservePriceRequest(_AuctionRequest):
             raise ValidationError({"buyer_value": ["Required for a reverse auction: the optimal maximum price depends on it."]})
 
 
-@bp.post("/v1/revenue")
-def post_revenue():
-    req = load(RevenueRequest)
+def revenue_handler(body):
+    req = load(RevenueRequest, body)
     model, direction, own = _case(req)
-    return json_response(core_call(
+    return core_call(
         auctions.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], own_value=own,
         rules=req["rules"], quantiles=req["quantiles"],
-    ))
+    )
 
 
-@bp.post("/v1/bid-strategy")
-def post_bid_strategy():
-    req = load(BidStrategyRequest)
+def bid_strategy_handler(body):
+    req = load(BidStrategyRequest, body)
     model, direction, _ = _case(req)
-    return json_response(core_call(
+    return core_call(
         auctions.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], rule=req["rule"],
         points=req["points"] or 51, at=req["at"],
-    ))
+    )
 
 
-@bp.post("/v1/reserve-price")
-def post_reserve_price():
-    req = load(ReservePriceRequest)
+def reserve_price_handler(body):
+    req = load(ReservePriceRequest, body)
     model, direction, own = _case(req)
-    return json_response(core_call(
+    return core_call(
         auctions.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], own_value=own,
-    ))
+    )
+
+
+HANDLERS = {"/v1/revenue": revenue_handler, "/v1/bid-strategy": bid_strategy_handler,
+            "/v1/reserve-price": reserve_price_handler}
+register_posts(bp, HANDLERS)

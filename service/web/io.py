@@ -29,15 +29,24 @@ def json_body():
 _SCHEMA_CACHE = {}
 
 
-def load(schema_cls):
-    """Validate the request body with a schema (422 on failure) and return it.
+def load(schema_cls, data):
+    """Validate a request body with a schema (422 on failure) and return it.
     Schema instances are built once: marshmallow schemas are costly to build."""
     schema = _SCHEMA_CACHE.get(schema_cls)
     if schema is None:
         schema = _SCHEMA_CACHE[schema_cls] = schema_cls()
-    return schema.load(json_body())
+    return schema.load(data)
 
 
 def json_response(payload, status=200):
     """Strict JSON: a NaN or infinity here is a bug and fails loudly."""
     return Response(json.dumps(payload, allow_nan=False, separators=(",", ":")), status=status, mimetype="application/json")
+
+
+def register_posts(bp, handlers):
+    """A POST route per handler: strict JSON in, the handler's dict out as JSON.
+    The batch resource calls the same handlers with each item's body."""
+    for path, handler in handlers.items():
+        def view(handler=handler):
+            return json_response(handler(json_body()))
+        bp.add_url_rule(path, endpoint=handler.__name__, view_func=view, methods=["POST"])

@@ -28,15 +28,24 @@ def flatten(messages, prefix=""):
     return out
 
 
+def problem_body(status, title, detail, type_="about:blank", **extra):
+    return {"type": type_, "title": title, "status": status, "detail": detail, **extra}
+
+
 def problem(status, title, detail, type_="about:blank", **extra):
-    body = {"type": type_, "title": title, "status": status, "detail": detail, **extra}
+    body = problem_body(status, title, detail, type_, **extra)
     return Response(json.dumps(body, allow_nan=False), status=status, mimetype=PROBLEM)
 
 
-def validation_problem(err: ValidationError):
+def validation_body(err: ValidationError):
     errors = flatten(err.messages)
     names = ", ".join(e["field"] for e in errors[:5]) + (" ..." if len(errors) > 5 else "")
-    return problem(422, "Invalid request", f"{len(errors)} field(s) invalid: {names}", VALIDATION_TYPE, errors=errors)
+    return problem_body(422, "Invalid request", f"{len(errors)} field(s) invalid: {names}", VALIDATION_TYPE, errors=errors)
+
+
+def validation_problem(err: ValidationError):
+    body = validation_body(err)
+    return Response(json.dumps(body, allow_nan=False), status=422, mimetype=PROBLEM)
 
 
 def register(app):

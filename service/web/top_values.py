@@ -8,7 +8,7 @@ from .. import settings
 from ..core import topvalues
 from ..core.errors import ParameterError
 from .fields import StrictFloat, StrictInteger, ValueModelField
-from .io import json_response, load
+from .io import load, register_posts
 
 bp = Blueprint("top_values", __name__)
 CAPS = settings.CAPS
@@ -72,22 +72,24 @@ class JointDensityRequest(Schema):
                 raise ValidationError({"ranks": {1: [f"Must be at most bidders ({data['bidders']})."]}})
 
 
-@bp.post("/v1/top-values")
-def post_top_values():
-    req = load(TopValuesRequest)
-    return json_response(core_call(
+def top_values_handler(body):
+    req = load(TopValuesRequest, body)
+    return core_call(
         topvalues.top_values,
         model=req["bidder_values"], bidders=req["bidders"], ranks=req["ranks"],
         quantiles=req["quantiles"], curve_points=req["curve_points"],
-    ))
+    )
 
 
-@bp.post("/v1/top-values/joint-density")
-def post_joint_density():
-    req = load(JointDensityRequest)
+def joint_density_handler(body):
+    req = load(JointDensityRequest, body)
     pts = None if req["points"] is None else [(p["higher"], p["lower"]) for p in req["points"]]
-    return json_response(core_call(
+    return core_call(
         topvalues.joint_density,
         model=req["bidder_values"], bidders=req["bidders"], ranks=tuple(req["ranks"]),
         grid_points=req["grid_points"] or 61, points=pts,
-    ))
+    )
+
+
+HANDLERS = {"/v1/top-values": top_values_handler, "/v1/top-values/joint-density": joint_density_handler}
+register_posts(bp, HANDLERS)
