@@ -41,19 +41,8 @@ ASSUMPTIONS = [
 _GL = (np.polynomial.legendre.leggauss(24), np.polynomial.legendre.leggauss(16))
 
 
-def _tail_matrix(x):
-    """M[q, j] = integral from x_q to 1 of the j-th Lagrange basis polynomial on
-    the nodes x: the spectral partial integrals from each node to the panel end."""
-    L = np.polynomial.legendre
-    V = L.legvander(x, len(x) - 1)
-    coef = np.linalg.inv(V)  # column j: Legendre coefficients of the j-th basis polynomial
-    anti = L.legint(coef, lbnd=-1.0, axis=0)
-    at = L.legval(x, anti).T  # at[q, j] = integral from -1 to x_q
-    total = L.legval(1.0, anti)
-    return total[None, :] - at
-
-
-_TAIL = tuple(_tail_matrix(x) for x, _ in _GL)
+# M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial.
+_TAIL = tuple(os_.partial_panel_weights(1.0, i) - os_.partial_panel_weights(x, i) for i, (x, _) in enumerate(_GL))
 _P_EDGES = np.array([1e-15, 1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.03, 0.1, 0.2, 0.35, 0.5,
                      0.65, 0.8, 0.9, 0.97, 0.99, 0.999, 1 - 1e-4, 1 - 1e-6, 1 - 1e-9, 1 - 1e-12, 1 - 1e-15])
 
@@ -87,31 +76,19 @@ class ForwardAuction:
         self._node_bid_cache = None
 
     # ---- shared pieces -----------------------------------------------------
-    def _growth(self, p):
-        m = self.model
-        up = p / m.upper_tail_index if math.isfinite(m.upper_tail_index) else 0.0
-        low = p / m.lower_tail_index if math.isfinite(m.lower_tail_index) else 0.0
-        return up, low
+    def _growth(self, n, r):
+        """Tail reach for a rank-r-of-n integrand: x^2 where the variance exists, else x."""
+        p = 2 if os_.moment_exists(self.model, n, r, 2) else 1
+        return os_.tail_growth(self.model, p)
 
-    def moment_ok(self, rank_n, rank, p):
-        return os_.moment_exists(self.model, rank_n, rank, p)
-
-    def truncated_moments(self, rank, cut_u, centre=0.0):
-        """E[X_r 1{X_r >= cut}], E[(X_r - centre)^2 1{...}], P(X_r >= cut), error."""
-        up, low = self._growth(2)
-        q = os_.rank_quadrature(self.n, rank, kinks_u=self.model.kinks_u(), u_cut=cut_u,
-                                upper_growth=up, lower_growth=low).fill(self.model)
-        if q.panels == 0:
-            return 0.0, 0.0, 0.0, 0.0
-        e1, err = q.integrate(lambda x: x)
-        e2, _ = q.integrate(lambda x: (x - centre) ** 2)
-        return e1, e2, q.total(), err
+    def has_variance(self, n, r):
+        return os_.moment_exists(self.model, n, r, 2)
 
     # ---- first-price bids ----------------------------------------------------
     def _inner_quadrature(self):
         """Panels for the highest of the other n-1 values, cut at the reserve."""
         if self._bid_nodes is None:
-            up, low = self._growth(2)
+            up, low = self._growth(self.n - 1, 1)
             q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), u_cut=self.u_cut,
                                     upper_growth=up, lower_growth=low).fill(self.model)
             self._bid_nodes = q
@@ -215,6 +192,9 @@ class ForwardAuction:
             g = vals * k * s * np.exp(k * (se[1:, None] - s))
             part = half * (g @ tail.T) * np.exp(-k * (se[1:, None] - s))
             bids = part + np.exp(-k * (se[1:, None] - s)) * d[1:, None]
+            # An equilibrium bid lies between the floor and the value; far out in the
+            # tail, where the weights are negligible, rounding could break that.
+            bids = np.minimum(np.maximum(bids, self.floor), vals)
             out.append((t, dt, vals, s, bids))
         self._node_bid_cache = out
         return out
@@ -222,7 +202,7 @@ class ForwardAuction:
 
 def _quad_cut(auc, rank):
     """Filled rank quadrature over values >= the floor."""
-    up, low = auc._growth(2)
+    up, low = auc._growth(auc.n, rank)
     return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), u_cut=auc.u_cut,
                                upper_growth=up, lower_growth=low).fill(auc.model)
 
@@ -245,11 +225,43 @@ def _price_stats_second(auc, mean):
     return var
 
 
+def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
+    """Quantiles of revenue = price on a sale, 0 when unsold (prob p0).
+
+    ``sale_quantile(q)`` is the price at cumulative sale mass q in (0, P(sale)];
+    the atom at zero sits after the sale prices below zero, whose mass is
+    ``sale_cdf_at_zero()`` (only asked when prices of both signs can occur)."""
+    ps = np.asarray(ps, float)
+    p0 = 1.0 - auc.p_sale
+    if auc.floor >= 0.0:
+        below = 0.0
+    elif auc.model.upper <= 0.0:
+        below = auc.p_sale
+    else:
+        below = sale_cdf_at_zero()
+    out = np.zeros(ps.shape)
+    lo = ps <= below
+    hi = ps > below + p0
+    if np.any(lo):
+        out[lo] = sale_quantile(ps[lo])
+    if np.any(hi):
+        out[hi] = sale_quantile(np.minimum(ps[hi] - p0, auc.p_sale))
+    return out
+
+
 def _price_quantiles_second(auc, ps):
     p0, pr, _ = _second_price_distribution(auc)
-    ps = np.asarray(ps, float)
-    x2 = os_.rank_quantiles(auc.model, auc.n, 2, ps)
-    return np.where(ps <= p0, 0.0, np.where(ps <= p0 + pr, auc.floor, x2))
+    n, m = auc.n, auc.model
+
+    def sale_quantile(q):
+        # P(sale, price <= x) = P(X2 <= x) - p0 above the floor, with an atom pr at the floor.
+        x2 = os_.rank_quantiles(m, n, 2, np.minimum(q + p0, 1.0))
+        return np.where(q <= pr, auc.floor, x2)
+
+    def sale_cdf_at_zero():
+        return float(os_.rank_cdf(m, n, 2, np.array(0.0))) - p0
+
+    return _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero)
 
 
 def second_price_revenue(auc):
@@ -282,11 +294,19 @@ def ascending_revenue(auc):
         return os_.rank_cdf(m, n, 2, x)
 
     totals = []
+    a, b = edges[:-1], edges[1:]
+    # Panels spanning a wide ratio on one side of zero run in log|x|, where a
+    # power-law tail becomes an exponential the rule integrates exactly.
+    logp = (a * b > 0) & (np.maximum(np.abs(a), np.abs(b)) > 2.0 * np.minimum(np.abs(a), np.abs(b)))
+    sgn = np.sign(a + b)
+    la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
+    lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
     for x, w in _GL:
-        a, b = edges[:-1], edges[1:]
-        half, mid = 0.5 * (b - a), 0.5 * (b + a)
-        pts = mid[:, None] + half[:, None] * x
+        half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
+        y = mid[:, None] + half[:, None] * x
         hw = half[:, None] * w
+        pts = np.where(logp[:, None], sgn[:, None] * np.exp(y), y)
+        hw = np.where(logp[:, None], hw * pts, hw)  # dx = x dy
         if split is None:
             tot = lo_end * auc.p_sale + float(np.sum(hw * sf2(pts)))
         else:
@@ -348,10 +368,21 @@ def _bid_price_stats(auc, mean):
 
 
 def _bid_price_quantiles(auc, ps):
-    ps = np.asarray(ps, float)
-    s_q = -np.log(ps) / auc.n  # rank-1 quantile: F(x_p) = p^(1/n)
-    bids = auc.bids_at_s(np.minimum(s_q, auc.s_r))
-    return np.where(ps <= 1.0 - auc.p_sale, 0.0, bids)
+    n, p0 = auc.n, 1.0 - auc.p_sale
+
+    def sale_quantile(q):
+        # The price b(X1) is increasing in X1, and P(sale, X1 <= v) = F(v)^n - p0.
+        s_q = -np.log(np.minimum(q + p0, 1.0)) / n
+        return auc.bids_at_s(np.minimum(s_q, auc.s_r))
+
+    def sale_cdf_at_zero():
+        lo, hi = 0.0, auc.p_sale
+        for _ in range(60):  # bisection on the increasing sale-price quantile
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if float(sale_quantile(np.array([mid]))[0]) < 0.0 else (lo, mid)
+        return lo
+
+    return _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero)
 
 
 def _all_pay_stats(auc):
@@ -409,10 +440,16 @@ def forward_figures(auc, rules, quantiles):
             else:
                 var, winner_pay = _all_pay_stats(auc)
                 qs = None
+        price_rank = 2 if rule in ("second_price", "ascending") and n > 1 else 1
+        if not auc.has_variance(n, price_rank):
+            var = None
+            note = f"{rule}: revenue_sd is null (the price's variance does not exist: the value model's tail is too heavy)"
+            if note not in warnings:
+                warnings.append(note)
         out[rule] = {
             "rule": rule,
             "expected_revenue": mean,
-            "revenue_sd": math.sqrt(max(var, 0.0)),
+            "revenue_sd": None if var is None else math.sqrt(max(var, 0.0)),
             "revenue_quantiles": None if qs is None else [{"p": float(p), "value": float(x)} for p, x in zip(quantiles, qs)],
             "probability_of_sale": auc.p_sale,
             "expected_winner_surplus": e_win_value - winner_pay,
@@ -433,7 +470,7 @@ def _efficiency(auc, e_win_value, warnings):
         return None
     realised = e_win_value - v0 * auc.p_sale
     u0 = 0.0 if v0 <= auc.model.lower else math.exp(-_neg_log_cdf(auc.model, v0))
-    up, low = auc._growth(1)
+    up, low = os_.tail_growth(auc.model, 1)
     q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), u_cut=u0, upper_growth=up, lower_growth=low).fill(auc.model)
     best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
     if not best > 0:
@@ -528,8 +565,9 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
         b[live] = auc.bids_at_s(s_q[live])
         fwd = direction == "forward"
         if rule == "all_pay":
-            with np.errstate(over="ignore", invalid="ignore"):
-                bids = np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)) * b, 0.0)
+            # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
+            win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
+            bids = win * b
             note = ("all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)" if fwd else
                     "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)")
         else:

@@ -46,6 +46,8 @@ class ValueModel:
     upper_tail_index = INF
     lower_tail_index = INF
     discrete = False
+    #: Whether ppf/isf are closed forms (cheap enough to probe the tails with).
+    cheap_quantiles = True
 
     # --- to be overridden -------------------------------------------------
     def cdf(self, x):
@@ -134,6 +136,21 @@ class ValueModel:
         x = np.where(u <= 0.0, self.lower, x)
         x = np.where(v <= 0.0, self.upper, x)
         return x
+
+
+_STIRLING = (1 / 12, -1 / 360, 1 / 1260, -1 / 1680, 1 / 1188)
+
+
+def log_gamma_ratio(x, c):
+    """log G(x + c) - log G(x), x > 0 and x + c > 0, to full precision even where
+    both log-gammas are huge (x ~ 10^6), where their plain difference loses ~10 digits."""
+    shift = 0.0
+    while x < 20.0 or x + c < 20.0:  # recurrence G(y + 1) = y G(y) up to where Stirling is exact
+        shift -= math.log1p(c / x) if abs(c / x) < 0.5 else math.log((x + c) / x)
+        x += 1.0
+    main = c * math.log(x) + (x + c - 0.5) * math.log1p(c / x) - c
+    series = sum(b * ((x + c) ** (1 - 2 * k) - x ** (1 - 2 * k)) for k, b in enumerate(_STIRLING, start=1))
+    return main + series + shift
 
 
 def _positive_pdf(logpdf):
@@ -512,7 +529,7 @@ class Pareto(ValueModel):
             c = p / self.alpha
             if r <= c:
                 return None
-            return self.xm**p * math.exp(sp.gammaln(n + 1.0) - sp.gammaln(n + 1.0 - c) + sp.gammaln(r - c) - sp.gammaln(float(r)))
+            return self.xm**p * math.exp(log_gamma_ratio(n + 1.0 - c, c) - log_gamma_ratio(r - c, c))
 
         m1 = raw(1)
         if m1 is None:
@@ -568,7 +585,7 @@ class Power(ValueModel):
         k = n - r + 1.0
 
         def raw(c):
-            return math.exp(sp.gammaln(k + c) - sp.gammaln(k) + sp.gammaln(n + 1.0) - sp.gammaln(n + 1.0 + c))
+            return math.exp(log_gamma_ratio(k, c) - log_gamma_ratio(n + 1.0, c))
 
         e1, e2 = raw(1.0 / self.a), raw(2.0 / self.a)
         var_u = e2 - e1 * e1
@@ -581,6 +598,7 @@ class Truncated(ValueModel):
     """A parent model conditioned on low <= X <= high."""
 
     def __init__(self, parent, low=None, high=None):
+        self.cheap_quantiles = parent.cheap_quantiles
         low = parent.lower if low is None else max(float(low), parent.lower)
         high = parent.upper if high is None else min(float(high), parent.upper)
         if not high > low:
@@ -627,6 +645,7 @@ class Reflected(ValueModel):
 
     def __init__(self, parent):
         self.parent, self.family = parent, parent.family
+        self.cheap_quantiles = parent.cheap_quantiles
         self.lower, self.upper = -parent.upper, -parent.lower
         self.upper_tail_index = parent.lower_tail_index
         self.lower_tail_index = parent.upper_tail_index
@@ -719,6 +738,7 @@ class Mixture(ValueModel):
     """A weighted mixture of value models; quantiles by numerical inversion."""
 
     family = "mixture"
+    cheap_quantiles = False
 
     def __init__(self, components):
         weights = np.array([w for w, _ in components], dtype=float)
@@ -765,6 +785,7 @@ class KernelSmoothed(ValueModel):
     truncated to the sample's natural bounds where they are given."""
 
     family = "empirical"
+    cheap_quantiles = False
 
     def __init__(self, sample, bandwidth):
         self.c = np.sort(np.asarray(sample, float))

@@ -21,6 +21,24 @@ from scipy import special as sp
 
 _GL_HI = np.polynomial.legendre.leggauss(24)
 _GL_LO = np.polynomial.legendre.leggauss(16)
+
+
+def _lagrange_antiderivatives(x):
+    """Legendre coefficients (one column per node) of the integral from -1 of
+    each Lagrange basis polynomial on the nodes x."""
+    L = np.polynomial.legendre
+    return L.legint(np.linalg.inv(L.legvander(x, len(x) - 1)), lbnd=-1.0, axis=0)
+
+
+_ANTI = (_lagrange_antiderivatives(_GL_HI[0]), _lagrange_antiderivatives(_GL_LO[0]))
+
+
+def partial_panel_weights(x, rule=0):
+    """W[q, j] = integral from -1 to x_q of the j-th Lagrange basis polynomial:
+    the weights that integrate a panel's node values up to local point x_q."""
+    return np.polynomial.legendre.legval(np.atleast_1d(np.asarray(x, float)), _ANTI[rule]).T
+
+
 _EDGES_Z = np.array([1.0, 2.5, 4.5, 7.0, 10.0, 14.0, 20.0, 28.0, 40.0, 56.0, 80.0, 112.0, 160.0, 230.0, 330.0, 480.0, 700.0])
 _DECADES = 48.0  # integrand cut where it falls below e^-48 (about 1e-21) of its peak
 _TINY = 1e-300
@@ -110,6 +128,22 @@ class RankQuadrature:
         self.values_hi, self.values_lo = vh, vl
         return self
 
+    def cut_weights(self, t_cut):
+        """dt-weights (cuts x panels*24, 24-node rule) that integrate over t <= each t_cut,
+        the cut panel by spectral partial integration of its node values."""
+        t_cut = np.atleast_1d(np.asarray(t_cut, float))
+        P, J = self.panels, len(_GL_HI[0])
+        half = 0.5 * (self.b - self.a)
+        full = half[:, None] * _GL_HI[1][None, :]  # (P, J)
+        left = self.b[None, :] <= t_cut[:, None]  # panels wholly below the cut
+        W = np.where(left[:, :, None], full[None, :, :], 0.0)
+        inside = (self.a[None, :] < t_cut[:, None]) & ~left
+        qi, pi = np.nonzero(inside)
+        if len(qi):
+            x_loc = (t_cut[qi] - 0.5 * (self.a[pi] + self.b[pi])) / half[pi]
+            W[qi, pi, :] = half[pi, None] * partial_panel_weights(x_loc)
+        return W.reshape(len(t_cut), P * J)
+
     def total(self):
         return float(np.sum(self.w_hi))
 
@@ -120,11 +154,14 @@ class RankQuadrature:
         return hi, abs(hi - lo)
 
 
-def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_growth=0.0):
+def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_growth=0.0, model=None, power=0):
     """Quadrature for rank r of n, restricted to cumulative probability >= u_cut.
 
     ``upper_growth``/``lower_growth`` are p/alpha for an integrand |x|^p over a
     tail of power-law index alpha, so that the panels reach far enough out.
+    With a ``model`` whose quantiles are cheap, the scan that trims the range
+    also weighs |Q|^power, so fast-growing tails (a lognormal with a large sigma,
+    a Weibull with a small shape) keep all of their mass.
     """
     m = float(n - r + 1)
     r = float(r)
@@ -148,14 +185,28 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
 
     # Trim to where the integrand matters, on a cheap scan of the log-weight.
     scan = np.linspace(t_left, t_right, 301)
+    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    if probe:
+        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if u_cut > 0.0 else math.inf), 301)
+        scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
         aug = (_log_weight(scan, m, r, lognorm)
                - upper_growth * np.log(np.maximum(-np.expm1(-wscan / m), _TINY)) + lower_growth * wscan / m)
-    keep = np.nonzero(aug > np.max(aug) - _DECADES)[0]
+        if probe:
+            # |Q|^power only counts where it exceeds the values' own scale in the
+            # bulk: a central moment needs the mass where Q is near zero too.
+            xs = np.abs(model.value_at(np.exp(-wscan / m), -np.expm1(-wscan / m)))
+            bulk = aug > np.max(aug) - 5.0
+            scale = np.max(np.where(bulk & np.isfinite(xs), xs, 0.0))
+            aug = aug + power * np.log(np.maximum(xs, max(scale, _TINY)) / max(scale, _TINY))
+            aug = np.where(np.isnan(aug), -np.inf, aug)  # no value there (a quantile routine gave up)
+    keep = np.nonzero(aug > np.max(aug) - _DECADES)[0] if np.isfinite(np.max(aug)) else np.nonzero(aug == np.inf)[0]
     ta = scan[max(keep[0] - 1, 0)]
     tb = t_right if (u_cut > 0.0 and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
     tpk = min(max(t0, ta), tb)
+    if probe and not math.isfinite(float(np.max(aug))):
+        ta, tb = scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
 
     edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
     for uk in kinks_u:
@@ -165,7 +216,8 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
     return RankQuadrature(m, r, lognorm, edges)
 
 
-def _growth(model, p, r, m):
+def tail_growth(model, p):
+    """(p / alpha_up, p / alpha_low): how fast |x|^p grows into each power-law tail."""
     up = p / model.upper_tail_index if math.isfinite(model.upper_tail_index) else 0.0
     low = p / model.lower_tail_index if math.isfinite(model.lower_tail_index) else 0.0
     return up, low
@@ -221,17 +273,25 @@ def rank_summary(model, n, r):
         if got is not None:
             mean, var = got
             return RankSummary(r, mean, var if has_var else None, 4e-16 * abs(mean), "closed_form", warnings)
-    up, low = _growth(model, 2 if has_var else 1, r, n - r + 1)
-    q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low).fill(model)
+    up, low = tail_growth(model, 2 if has_var else 1)
+    q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
+                        model=model, power=2 if has_var else 1).fill(model)
     total = q.total()
-    mean, err = q.integrate(lambda x: x)
-    mean /= total
-    var = None
-    if has_var:
-        var, err2 = q.integrate(lambda x: (x - mean) ** 2)
-        var /= total
-        err = max(err, err2 / max(2.0 * math.sqrt(max(var, 0.0)), 1e-300) if var > 0 else err2)
-    return RankSummary(r, mean, var, err, "quantile_gauss_legendre", warnings)
+    with np.errstate(over="ignore", invalid="ignore"):
+        mean, err = q.integrate(lambda x: x)
+        mean /= total
+        var = None
+        if has_var and math.isfinite(mean):
+            var, err2 = q.integrate(lambda x: (x - mean) ** 2)
+            var /= total
+            err = max(err, err2 / max(2.0 * math.sqrt(max(var, 0.0)), 1e-300) if var > 0 else err2)
+    if not math.isfinite(mean):
+        warnings.append(f"rank {r}: the mean is beyond double precision (about 1e308); mean and sd are null")
+        return RankSummary(r, None, None, 0.0, "quantile_gauss_legendre", warnings)
+    if var is not None and not math.isfinite(var):
+        warnings.append(f"rank {r}: the variance is beyond double precision (about 1e308); sd is null")
+        var = None
+    return RankSummary(r, mean, var, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings)
 
 
 def rank_quantiles(model, n, r, ps):
