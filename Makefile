@@ -6,7 +6,7 @@ HOST    ?= 127.0.0.1
 PORT    ?= 8000
 WORKERS ?= 2
 
-.PHONY: serve test bench clean
+.PHONY: serve test bench demo clean
 
 $(VENV)/.installed-base: pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -19,13 +19,16 @@ $(VENV)/.installed-test: $(VENV)/.installed-base
 	touch $@
 
 serve: $(VENV)/.installed-base
-	$(VENV)/bin/gunicorn --bind $(HOST):$(PORT) --workers $(WORKERS) 'service:create_app()'
+	HOST=$(HOST) PORT=$(PORT) WORKERS=$(WORKERS) $(VENV)/bin/gunicorn -c gunicorn.conf.py 'service:create_app()'
 
 test: $(VENV)/.installed-test
 	$(PY) -m pytest
 
 bench: $(VENV)/.installed-test
 	$(PY) bench/run.py
+
+demo: $(VENV)/.installed-base
+	HOST=$(HOST) PORT=$(PORT) WORKERS=$(WORKERS) $(PY) demo/run.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info

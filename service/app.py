@@ -4,7 +4,7 @@ from __future__ import annotations
 from flask import Flask
 
 from . import settings
-from .web import auctions, batch, meta, problems, quote, top_values
+from .web import auctions, batch, meta, ops, problems, quote, top_values
 
 
 def create_app(config=None):
@@ -17,4 +17,5 @@ def create_app(config=None):
     problems.register(app)
     for module in (meta, top_values, auctions, batch, quote):
         app.register_blueprint(module.bp)
+    ops.register(app)
     return app

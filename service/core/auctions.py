@@ -305,7 +305,8 @@ def ascending_revenue(auc):
         half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
         y = mid[:, None] + half[:, None] * x
         hw = half[:, None] * w
-        pts = np.where(logp[:, None], sgn[:, None] * np.exp(y), y)
+        pts = y.copy()
+        pts[logp] = sgn[logp, None] * np.exp(y[logp])
         hw = np.where(logp[:, None], hw * pts, hw)  # dx = x dy
         if split is None:
             tot = lo_end * auc.p_sale + float(np.sum(hw * sf2(pts)))
@@ -443,7 +444,7 @@ def forward_figures(auc, rules, quantiles):
         price_rank = 2 if rule in ("second_price", "ascending") and n > 1 else 1
         if not auc.has_variance(n, price_rank):
             var = None
-            note = f"{rule}: revenue_sd is null (the price's variance does not exist: the value model's tail is too heavy)"
+            note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
             if note not in warnings:
                 warnings.append(note)
         out[rule] = {
@@ -458,7 +459,7 @@ def forward_figures(auc, rules, quantiles):
             "_err": err,
         }
     if "all_pay" in rules and n > 1 and auc.p_sale > 0:
-        warnings.append("all_pay: revenue_quantiles are null (the sum of n bids has no closed form here); revenue_sd is exact")
+        warnings.append("all_pay: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
     return out, warnings
 
 

@@ -1,0 +1,106 @@
+"""gunicorn settings for bidstats, read from the environment.
+
+    gunicorn -c gunicorn.conf.py 'service:create_app()'
+
+HOST, PORT                  where to listen (127.0.0.1, 8000)
+WORKERS                     worker processes (2 x CPUs + 1, at most 8)
+BIDSTATS_WORKER_TIMEOUT     seconds a worker may spend on one request before it is restarted (60)
+BIDSTATS_GRACEFUL_TIMEOUT   seconds a worker gets to finish its request on shutdown or restart (30)
+BIDSTATS_KEEPALIVE          seconds an idle keep-alive connection is held (5; the sync workers close every connection)
+BIDSTATS_SERVER_ACCESS_LOG  1 (default): gunicorn also writes its own access line to stderr; 0: only the app's JSON line
+PROMETHEUS_MULTIPROC_DIR    when set, metrics are shared between workers through files in this directory;
+                            it is created if missing and emptied at start-up
+"""
+import glob
+import os
+
+
+def _whole(name, default, minimum=1):
+    raw = os.environ.get(name, "")
+    if raw == "":
+        return default
+    try:
+        value = int(raw)
+    except ValueError:
+        raise SystemExit(f"{name} must be a whole number, not {raw!r}") from None
+    if value < minimum:
+        raise SystemExit(f"{name} must be at least {minimum}")
+    return value
+
+
+def _cpus():
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
+# The numerics are CPU-bound and every worker holds its own numpy and scipy,
+# so more than 8 workers per container buys memory use, not answers.
+MAX_DEFAULT_WORKERS = 8
+
+_host = os.environ.get("HOST") or "127.0.0.1"
+_port = _whole("PORT", 8000)
+bind = [f"[{_host}]:{_port}" if ":" in _host and not _host.startswith("[") else f"{_host}:{_port}"]
+workers = _whole("WORKERS", min(2 * _cpus() + 1, MAX_DEFAULT_WORKERS))
+timeout = _whole("BIDSTATS_WORKER_TIMEOUT", 60)
+graceful_timeout = _whole("BIDSTATS_GRACEFUL_TIMEOUT", 30)
+keepalive = _whole("BIDSTATS_KEEPALIVE", 5)
+# No runtime-control socket (gunicorn 25.1+; older versions ignore the name):
+# nothing here uses one, and a container user may have no home to put it in.
+control_socket_disable = True
+# The worker heartbeat file on a RAM disk where there is one: a container's
+# overlay file system can stall the heartbeat and get healthy workers killed.
+if os.path.isdir("/dev/shm"):
+    worker_tmp_dir = "/dev/shm"
+
+# ------------------------------------------------------------------ logs
+# Everything to stderr. gunicorn's `accesslog = "-"` would write to stdout, and
+# reopening /dev/stderr fails for a non-root container user, so the streams are
+# given through logging instead. The app's own JSON access line (logger
+# bidstats.access) has its own stderr handler and is not configured here.
+_server_access_log = _whole("BIDSTATS_SERVER_ACCESS_LOG", 1, minimum=0) != 0
+access_log_format = '%(h)s "%(r)s" %(s)s %(B)s %(M)sms id=%({x-request-id}o)s'
+logconfig_dict = {
+    "version": 1,
+    "disable_existing_loggers": False,
+    "root": {"level": "INFO", "handlers": ["stderr"]},
+    "loggers": {
+        "gunicorn.error": {"level": "INFO", "handlers": ["stderr"], "propagate": False, "qualname": "gunicorn.error"},
+        "gunicorn.access": {
+            "level": "INFO" if _server_access_log else "CRITICAL",
+            "handlers": ["stderr"] if _server_access_log else [],
+            "propagate": False,
+            "qualname": "gunicorn.access",
+        },
+    },
+    "handlers": {
+        "stderr": {"class": "logging.StreamHandler", "formatter": "generic", "stream": "ext://sys.stderr"},
+    },
+    "formatters": {
+        "generic": {
+            "format": "%(asctime)s [%(process)d] [%(levelname)s] %(message)s",
+            "datefmt": "[%Y-%m-%d %H:%M:%S %z]",
+            "class": "logging.Formatter",
+        },
+    },
+}
+
+# ------------------------------------------------------------------ metrics across workers
+_metrics_dir = os.environ.get("PROMETHEUS_MULTIPROC_DIR", "")
+
+
+def on_starting(server):
+    """Before any worker: a fresh metrics directory, so counts from a previous run do not linger."""
+    if _metrics_dir:
+        os.makedirs(_metrics_dir, exist_ok=True)
+        for path in glob.glob(os.path.join(_metrics_dir, "*.db")):
+            os.remove(path)
+
+
+def child_exit(server, worker):
+    """A worker has gone: drop its live-gauge files (its counters stay in the sums)."""
+    if _metrics_dir:
+        from prometheus_client import multiprocess
+
+        multiprocess.mark_process_dead(worker.pid, _metrics_dir)
