@@ -4,7 +4,7 @@ from __future__ import annotations
 from flask import Flask
 
 from . import settings
-from .web import auctions, batch, meta, ops, problems, quote, top_values
+from .web import auctions, batch, meta, ops, problems, quote, sweeps, top_values
 
 
 def create_app(config=None):
@@ -15,7 +15,7 @@ def create_app(config=None):
     if config:
         app.config.update(config)
     problems.register(app)
-    for module in (meta, top_values, auctions, batch, quote):
+    for module in (meta, top_values, auctions, batch, quote, sweeps):
         app.register_blueprint(module.bp)
     ops.register(app)
     return app

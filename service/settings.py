@@ -32,6 +32,8 @@ class Caps:
     components: int = _int_env("BIDSTATS_MAX_COMPONENTS", 50)
     body_bytes: int = _int_env("BIDSTATS_MAX_BODY_BYTES", 2_000_000)
     batch_items: int = _int_env("BIDSTATS_MAX_BATCH_ITEMS", 1000)
+    sweep_rows: int = _int_env("BIDSTATS_MAX_SWEEP_ROWS", 200_000)
+    sweep_axis: int = _int_env("BIDSTATS_MAX_SWEEP_AXIS", 2000)
 
 
 CAPS = Caps()

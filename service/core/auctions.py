@@ -58,10 +58,10 @@ def _neg_log_cdf(model, x):
 class ForwardAuction:
     """n symmetric bidders with values from ``model``; ``reserve`` may be None."""
 
-    def __init__(self, model, bidders, reserve=None, seller_value=0.0):
+    def __init__(self, model, bidders, reserve=None, seller_value=0.0, fine=False):
         if model.discrete:
             raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
-        self.model, self.n = model, int(bidders)
+        self.model, self.n, self.fine = model, int(bidders), fine
         self.reserve = None if reserve is None else float(reserve)
         self.v0 = seller_value
         # The effective floor: the reserve, or the bottom of the support.
@@ -89,8 +89,8 @@ class ForwardAuction:
         """Panels for the highest of the other n-1 values, cut at the reserve."""
         if self._bid_nodes is None:
             up, low = self._growth(self.n - 1, 1)
-            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), u_cut=self.u_cut,
-                                    upper_growth=up, lower_growth=low).fill(self.model)
+            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
+                                    upper_growth=up, lower_growth=low, fine=self.fine).fill(self.model)
             self._bid_nodes = q
         return self._bid_nodes
 
@@ -143,7 +143,7 @@ class ForwardAuction:
         k = self.n - 1.0
         q = self._inner_quadrature()
         edges, se, d = self._bid_tail()[rule_index]
-        reach = k * se[-1] - 40.0 if not math.isfinite(self.s_r) else math.inf
+        reach = k * se[-1] - 36.0 if not math.isfinite(self.s_r) else math.inf
         out = np.empty(s_q.shape)
         flat = s_q.ravel()
         res = out.ravel()
@@ -203,7 +203,7 @@ class ForwardAuction:
 def _quad_cut(auc, rank):
     """Filled rank quadrature over values >= the floor."""
     up, low = auc._growth(auc.n, rank)
-    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), u_cut=auc.u_cut,
+    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), s_cut=auc.s_r,
                                upper_growth=up, lower_growth=low).fill(auc.model)
 
 
@@ -470,9 +470,9 @@ def _efficiency(auc, e_win_value, warnings):
         warnings.append("efficiency is null: give buyer_value to measure gains from trade")
         return None
     realised = e_win_value - v0 * auc.p_sale
-    u0 = 0.0 if v0 <= auc.model.lower else math.exp(-_neg_log_cdf(auc.model, v0))
+    s0 = math.inf if v0 <= auc.model.lower else _neg_log_cdf(auc.model, v0)
     up, low = os_.tail_growth(auc.model, 1)
-    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), u_cut=u0, upper_growth=up, lower_growth=low).fill(auc.model)
+    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), s_cut=s0, upper_growth=up, lower_growth=low).fill(auc.model)
     best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
     if not best > 0:
         warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")

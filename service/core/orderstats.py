@@ -105,7 +105,7 @@ class RankQuadrature:
     def fill(self, model, rtol=2e-14, max_rounds=12):
         """Evaluate model values at the nodes, refining rough panels."""
         if self.panels == 0:
-            self.values_hi = self.values_lo = np.empty((0, 24))
+            self.values_hi, self.values_lo = np.empty((0, len(_GL_HI[0]))), np.empty((0, len(_GL_LO[0])))
             return self
         vh = model.value_at(self.u_hi, self.v_hi)
         vl = model.value_at(self.u_lo, self.v_lo)
@@ -154,14 +154,18 @@ class RankQuadrature:
         return hi, abs(hi - lo)
 
 
-def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_growth=0.0, model=None, power=0):
-    """Quadrature for rank r of n, restricted to cumulative probability >= u_cut.
+def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
+                    fine=False):
+    """Quadrature for rank r of n, restricted to cumulative probability >= u_cut
+    (or to s = -log u <= s_cut, which keeps its digits when u_cut rounds to 1).
 
     ``upper_growth``/``lower_growth`` are p/alpha for an integrand |x|^p over a
     tail of power-law index alpha, so that the panels reach far enough out.
     With a ``model`` whose quantiles are cheap, the scan that trims the range
     also weighs |Q|^power, so fast-growing tails (a lognormal with a large sigma,
-    a Weibull with a small shape) keep all of their mass.
+    a Weibull with a small shape) keep all of their mass. ``fine`` adds edges every
+    4 units of w = m s, so the weight e^-w changes by at most e^4 within a panel and
+    partial-panel integrals (``cut_weights``) keep full precision anywhere.
     """
     m = float(n - r + 1)
     r = float(r)
@@ -175,11 +179,16 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
     w_right = m * (es + 14.0 * math.sqrt(vs)) + 70.0
     if lower_growth:
         w_right /= max(1.0 - lower_growth / m, 1e-3)
+    if fine:
+        w_right = max(w_right, 90.0)
     t_right = min(math.log(w_right), math.log(m * 690.0))
-    if u_cut > 0.0:
-        if u_cut >= 1.0:
+    if s_cut is None and u_cut > 0.0:
+        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
+    cut = s_cut is not None and math.isfinite(s_cut)
+    if cut:
+        if s_cut <= 0.0:
             return empty
-        t_right = min(t_right, math.log(m * -math.log(u_cut)))
+        t_right = min(t_right, math.log(m * s_cut))
     if t_right <= t_left:
         return empty
 
@@ -187,13 +196,14 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
     scan = np.linspace(t_left, t_right, 301)
     probe = model is not None and power and getattr(model, "cheap_quantiles", False)
     if probe:
-        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if u_cut > 0.0 else math.inf), 301)
+        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 301)
         scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-        aug = (_log_weight(scan, m, r, lognorm)
-               - upper_growth * np.log(np.maximum(-np.expm1(-wscan / m), _TINY)) + lower_growth * wscan / m)
-        if probe:
+        aug = _log_weight(scan, m, r, lognorm)
+        if not probe:  # the power-law tails' growth, in closed form
+            aug = aug - upper_growth * np.log(np.maximum(-np.expm1(-wscan / m), _TINY)) + lower_growth * wscan / m
+        else:  # the growth itself, measured on the model's values
             # |Q|^power only counts where it exceeds the values' own scale in the
             # bulk: a central moment needs the mass where Q is near zero too.
             xs = np.abs(model.value_at(np.exp(-wscan / m), -np.expm1(-wscan / m)))
@@ -203,7 +213,9 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
             aug = np.where(np.isnan(aug), -np.inf, aug)  # no value there (a quantile routine gave up)
     keep = np.nonzero(aug > np.max(aug) - _DECADES)[0] if np.isfinite(np.max(aug)) else np.nonzero(aug == np.inf)[0]
     ta = scan[max(keep[0] - 1, 0)]
-    tb = t_right if (u_cut > 0.0 and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
+    tb = t_right if (cut and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
+    if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
+        tb = max(tb, min(t_right, math.log(80.0)))
     tpk = min(max(t0, ta), tb)
     if probe and not math.isfinite(float(np.max(aug))):
         ta, tb = scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
@@ -212,6 +224,9 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, upper_growth=0.0, lower_grow
     for uk in kinks_u:
         if 0.0 < uk < 1.0:
             edges = np.append(edges, math.log(m * -math.log(uk)))
+    if fine:
+        w_end = min(math.exp(tb), 4.0 * 400)
+        edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
     edges = np.unique(edges[(edges >= ta) & (edges <= tb)])
     return RankQuadrature(m, r, lognorm, edges)
 

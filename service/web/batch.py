@@ -8,13 +8,13 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate
 
 from .. import settings
-from . import auctions, top_values
+from . import auctions, sweeps, top_values
 from .io import json_body, json_response, load
 from .problems import problem_body, validation_body
 
 bp = Blueprint("batch", __name__)
 log = logging.getLogger("bidstats")
-HANDLERS = {**top_values.HANDLERS, **auctions.HANDLERS}
+HANDLERS = {**top_values.HANDLERS, **auctions.HANDLERS, **sweeps.HANDLERS}
 
 
 def _id(value):

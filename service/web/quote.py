@@ -7,15 +7,13 @@ the bare number as text/plain, or {metric, value, ...} for Accept: application/j
 from __future__ import annotations
 
 import math
-import re
 
 from flask import Blueprint, Response, request
 from marshmallow import ValidationError
 
-from ..core import models as M
-from . import auctions, top_values
+from . import auctions, query, top_values
 from .io import json_response
-from .problems import flatten, validation_problem
+from .problems import validation_problem
 
 bp = Blueprint("quote", __name__)
 
@@ -27,50 +25,20 @@ METRICS = {
     "mean_highest": "forward", "mean_second": "forward",
     "mean_lowest": "reverse", "mean_second_lowest": "reverse", "expected_gap": None,
 }
-_NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
-_MODEL_KEYS = sorted({k for cls in M.PARAMETRIC.values() for k in cls.parameters} | {"truncate_low", "truncate_high"})
 _CASE_KEYS = ("bidders", "reserve", "seller_value", "buyer_value")
-
-
-def _number(key, raw, errors):
-    """A query value as a JSON number: plain decimal notation only."""
-    if not _NUMBER.match(raw):
-        errors[key] = [f"Must be a number written with digits and '.', not {raw!r}."]
-        return None
-    x = float(raw)
-    return int(x) if x.is_integer() and "." not in raw and "e" not in raw.lower() else x
 
 
 def _body_from_query(args):
     """(metric, direction, rule, POST body) from the query, or ValidationError."""
     errors = {}
-    known = {"metric", "rule", "direction", "family", *_CASE_KEYS, *_MODEL_KEYS}
-    for key in args:
-        if key not in known:
-            errors[key] = ["Unknown parameter (mixtures, tables and samples need POST)."]
+    query.unknown(args, {"metric", "rule", "direction", "family", *_CASE_KEYS, *query.MODEL_KEYS}, errors)
     metric = args.get("metric")
     if metric not in METRICS:
         errors["metric"] = [f"One of: {', '.join(METRICS)}."]
-    direction = args.get("direction", "forward")
-    if direction not in ("forward", "reverse"):
-        errors["direction"] = ["Must be forward or reverse."]
-    family = args.get("family")
-    if family not in M.PARAMETRIC:
-        errors["family"] = [f"One of the parametric families: {', '.join(sorted(M.PARAMETRIC))}."]
-    if errors.get("metric") is None and METRICS.get(metric) not in (None, direction) and "direction" not in errors:
+    body = query.case_body(args, errors, _CASE_KEYS)
+    direction = query.direction(args, {})
+    if "metric" not in errors and METRICS.get(metric) not in (None, direction) and "direction" not in errors:
         errors["metric"] = [f"{metric} belongs to a {METRICS[metric]} auction; set direction={METRICS[metric]} or pick another metric."]
-    model = {"family": family}
-    for key in _MODEL_KEYS:
-        if key in args:
-            value = _number(key, args[key], errors)
-            if key.startswith("truncate_"):
-                model.setdefault("truncate", {})[key.removeprefix("truncate_")] = value
-            else:
-                model[key] = value
-    body = {("bidder_values" if direction == "forward" else "bidder_costs"): model}
-    for key in _CASE_KEYS:
-        if key in args:
-            body[key] = _number(key, args[key], errors)
     if errors:
         raise ValidationError(errors)
     return metric, direction, args.get("rule", "second_price"), body
@@ -115,37 +83,21 @@ def _wants_json():
 
 @bp.get("/v1/quote")
 def get_quote():
-    as_json = _wants_json()
+    as_json = wants_json()
     try:
         metric, direction, rule, body = _body_from_query(request.args)
         value, warnings = _value(metric, direction, rule, body)
         if value is None or not math.isfinite(value):
             raise ValidationError({"metric": ["This figure does not exist for the model given: " + "; ".join(warnings or ["no value"])]})
     except ValidationError as err:
-        err = ValidationError(_strip_model_prefix(err.messages))
-        if as_json:
-            return validation_problem(err)
-        first = flatten(err.messages)
-        line = "; ".join(f"{e['field']}: {e['message']}" for e in first)
-        return Response(f"error: {line}\n", status=422, mimetype="text/plain")
+        err = query.flat_errors(err)
+        return validation_problem(err) if as_json else query.text_error(err)
     if as_json:
         return json_response({"metric": metric, "value": value, "direction": direction, "rule": rule, "warnings": warnings})
     return Response(repr(float(value)), mimetype="text/plain")
 
 
-def _strip_model_prefix(messages):
-    """Query parameters are flat: report ``median``, not ``bidder_values.median``."""
-    if not isinstance(messages, dict):
-        return messages
-    out = {}
-    for key, val in messages.items():
-        if key in ("bidder_values", "bidder_costs") and isinstance(val, dict):
-            for k, v in val.items():
-                if k == "truncate" and isinstance(v, dict):
-                    for tk, tv in v.items():
-                        out[f"truncate_{tk}"] = tv
-                else:
-                    out[k] = v
-        else:
-            out[key] = val
-    return out
+def wants_json():
+    """True when the caller prefers application/json to text/plain."""
+    accept = request.accept_mimetypes
+    return accept["application/json"] > accept["text/plain"]
