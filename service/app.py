@@ -4,7 +4,7 @@ from __future__ import annotations
 from flask import Flask
 
 from . import settings
-from .web import auctions, batch, meta, ops, problems, quote, sweeps, top_values
+from .web import access, auctions, batch, meta, ops, problems, quote, sweeps, top_values
 
 
 def create_app(config=None):
@@ -18,4 +18,5 @@ def create_app(config=None):
     for module in (meta, top_values, auctions, batch, quote, sweeps):
         app.register_blueprint(module.bp)
     ops.register(app)
+    access.register(app)
     return app
