@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import csv
 import json
-import os
 import socket
 import subprocess
 import sys

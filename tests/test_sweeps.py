@@ -7,7 +7,6 @@ outside references in test_auctions_reference.py.
 """
 import csv
 import io
-import json
 import re
 from pathlib import Path
 

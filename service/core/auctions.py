@@ -24,7 +24,6 @@ import math
 
 import numpy as np
 from scipy import optimize
-from scipy import special as sp
 
 from . import orderstats as os_
 from .errors import ParameterError
@@ -48,11 +47,7 @@ _P_EDGES = np.array([1e-15, 1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.03, 0.1, 0.2,
 
 
 def _neg_log_cdf(model, x):
-    """-log F(x), precise in the upper tail where F is near 1."""
-    s, f = float(model.sf(x)), float(model.cdf(x))
-    if s < 0.5:
-        return -math.log1p(-s)
-    return math.inf if f <= 0.0 else -math.log(f)
+    return float(model.neg_log_cdf(np.array(x, float)))
 
 
 class ForwardAuction:
@@ -559,7 +554,7 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
         note = ("bidding one's own " + ("value" if direction == "forward" else "cost")
                 + " is a dominant strategy under this rule (Vickrey 1961)")
     else:
-        s_q = np.array([_neg_log_cdf(fmodel, x) for x in v])
+        s_q = fmodel.neg_log_cdf(v)
         s_q = np.minimum(s_q, auc.s_r)
         b = np.full(v.shape, auc.floor)
         live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself

@@ -72,6 +72,12 @@ class ValueModel:
         with np.errstate(divide="ignore"):
             return np.log(self.sf(x))
 
+    def neg_log_cdf(self, x):
+        """-log F(x), precise in the upper tail where F is near 1 (inf where F = 0)."""
+        s, f = self.sf(x), self.cdf(x)
+        with np.errstate(divide="ignore"):
+            return np.where(s < 0.5, -np.log1p(-np.minimum(s, 0.5)), -np.log(f))
+
     def ppf(self, u):
         """Quantile function; generic route inverts the CDF numerically."""
         u = np.asarray(u, dtype=float)
@@ -193,15 +199,9 @@ class Uniform(ValueModel):
         return mean, var
 
 
-class Normal(ValueModel):
-    family = "normal"
-    parameters = {"mean": Param(), "sd": Param(bound="positive")}
-
-    def __init__(self, mean, sd):
-        self.mu, self.sd = float(mean), float(sd)
-
-    def _z(self, x):
-        return (np.asarray(x, float) - self.mu) / self.sd
+class _StandardNormalScale(ValueModel):
+    """Families whose CDF is Phi(z(x)) for an increasing z: their probabilities
+    and log-probabilities come from scipy's ndtr and log_ndtr."""
 
     def cdf(self, x):
         return sp.ndtr(self._z(x))
@@ -215,6 +215,17 @@ class Normal(ValueModel):
     def logsf(self, x):
         return sp.log_ndtr(-self._z(x))
 
+
+class Normal(_StandardNormalScale):
+    family = "normal"
+    parameters = {"mean": Param(), "sd": Param(bound="positive")}
+
+    def __init__(self, mean, sd):
+        self.mu, self.sd = float(mean), float(sd)
+
+    def _z(self, x):
+        return (np.asarray(x, float) - self.mu) / self.sd
+
     def pdf(self, x):
         z = self._z(x)
         return np.exp(-0.5 * z * z) / (self.sd * math.sqrt(2 * math.pi))
@@ -226,7 +237,7 @@ class Normal(ValueModel):
         return self.mu - self.sd * sp.ndtri(v)
 
 
-class LogNormal(ValueModel):
+class LogNormal(_StandardNormalScale):
     family = "lognormal"
     parameters = {
         "median": Param(required=False, bound="positive"),
@@ -261,18 +272,6 @@ class LogNormal(ValueModel):
         x = np.asarray(x, float)
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(x > 0, (np.log(np.where(x > 0, x, 1.0)) - self.mu) / self.sigma, -INF)
-
-    def cdf(self, x):
-        return sp.ndtr(self._z(x))
-
-    def sf(self, x):
-        return sp.ndtr(-self._z(x))
-
-    def logcdf(self, x):
-        return sp.log_ndtr(self._z(x))
-
-    def logsf(self, x):
-        return sp.log_ndtr(-self._z(x))
 
     def pdf(self, x):
         x = np.asarray(x, float)

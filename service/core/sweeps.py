@@ -21,6 +21,7 @@ import numpy as np
 from . import orderstats as os_
 from .auctions import ForwardAuction, _forward_case
 from .errors import ParameterError
+from .topvalues import finite
 
 METRICS = {
     "forward": ("expected_revenue", "revenue_sd", "probability_of_sale", "expected_winner_surplus",
@@ -29,13 +30,6 @@ METRICS = {
                 "expected_bidder_surplus", "efficiency", "expected_payoff"),
 }
 _ROUTE = {"second_price": "sp", "ascending": "sp", "first_price": "fp", "descending": "fp", "all_pay": "ap"}
-
-
-def _neg_log_cdf(model, x):
-    """-log F(x) for an array of values, precise where F is near 1 (inf where F = 0)."""
-    s, f = model.sf(x), model.cdf(x)
-    with np.errstate(divide="ignore"):
-        return np.where(s < 0.5, -np.log1p(-np.minimum(s, 0.5)), -np.log(f))
 
 
 def _t_of(s, k):
@@ -61,7 +55,7 @@ def _block(model, n, reserves, v0):
     """Figures for one bidder count over all reserves, per route: a dict of arrays."""
     floor = np.maximum(reserves, model.lower)
     binds = reserves > model.lower
-    s_r = np.where(binds, _neg_log_cdf(model, floor), np.inf)
+    s_r = np.where(binds, model.neg_log_cdf(floor), np.inf)
     with np.errstate(over="ignore", invalid="ignore"):
         p_sale = np.where(np.isfinite(s_r), -np.expm1(-n * s_r), 1.0)
     p0 = 1.0 - p_sale
@@ -131,7 +125,7 @@ def _block(model, n, reserves, v0):
 
 def _best_gain(model, q, dens, v, s, k, v0):
     """E[(X1 - v0)^+]: the largest expected gain from trade, for efficiency."""
-    s0 = _neg_log_cdf(model, np.array([v0]))[0] if v0 > model.lower else np.inf
+    s0 = model.neg_log_cdf(np.array([v0]))[0] if v0 > model.lower else np.inf
     return float((q.cut_weights(_t_of(np.array([s0]), k)) @ (dens * (v - v0)))[0])
 
 
@@ -196,12 +190,5 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
                     # Seller: revenue plus the kept item's value; buyer: the award's value less the payment.
                     "expected_payoff": None if v0 is None else (rev + v0 * (1.0 - p_sale[j]) if sign > 0 else rev - v0 * p_sale[j]),
                 }
-                rows.append([n, r, rule, *[_finite(cells[m]) for m in metrics]])
+                rows.append([n, r, rule, *[finite(cells[m]) for m in metrics]])
     return {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows}
-
-
-def _finite(x):
-    if x is None:
-        return None
-    x = float(x)
-    return x + 0.0 if math.isfinite(x) else None
