@@ -170,7 +170,9 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
     m = float(n - r + 1)
     r = float(r)
     lognorm = math.log(m) + log_beta(r, m)
-    empty = RankQuadrature(m, r, lognorm, [])
+
+    def empty():
+        return RankQuadrature(m, r, lognorm, [])
     es = float(sp.digamma(n + 1.0) - sp.digamma(m)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0)))
     vs = float(sp.polygamma(1, m) - sp.polygamma(1, n + 1.0)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0) ** 2))
     t0 = math.log(m * es)
@@ -187,16 +189,16 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
     cut = s_cut is not None and math.isfinite(s_cut)
     if cut:
         if s_cut <= 0.0:
-            return empty
+            return empty()
         t_right = min(t_right, math.log(m * s_cut))
     if t_right <= t_left:
-        return empty
+        return empty()
 
     # Trim to where the integrand matters, on a cheap scan of the log-weight.
     scan = np.linspace(t_left, t_right, 301)
     probe = model is not None and power and getattr(model, "cheap_quantiles", False)
     if probe:
-        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 301)
+        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 181)
         scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
