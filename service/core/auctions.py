@@ -147,7 +147,7 @@ class ForwardAuction:
                 res[i] = math.nan
                 continue
             res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
-            if q.panels and se[0] <= sq and k * sq <= reach:
+            if q.panels and se[0] <= sq <= se[-1] and k * sq <= reach:
                 j = min(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
                 part = float(self._sub_integral(np.array(math.log(k * sq)), np.array(edges[j + 1])))
                 res[i] = part + math.exp(-k * (se[j + 1] - sq)) * d[j + 1]
@@ -601,10 +601,15 @@ def optimal_reserve(model, bidders, v0):
     x = model.value_at(u, 1.0 - u)
     with np.errstate(all="ignore"):
         psi = x - model.sf(x) / model.pdf(x)
-    good = np.isfinite(psi)
+    good = np.isfinite(psi) & np.isfinite(x)
+    if not np.any(good):  # no virtual value can be evaluated: search the payoff directly
+        good = np.isfinite(x)
+        psi = np.full(x.shape, np.nan)
     x, psi = x[good], psi[good]
+    if len(x) < 2:
+        raise ParameterError("bidder_values", "the value model is too concentrated to search for a reserve")
     scale = max(np.max(np.abs(x)), 1e-300)
-    regular = bool(np.all(np.diff(psi) >= -1e-9 * scale))
+    regular = bool(np.all(np.isfinite(psi)) and np.all(np.diff(psi) >= -1e-9 * scale))
     lo = model.lower if math.isfinite(model.lower) else float(x[0])
     hi = model.upper if math.isfinite(model.upper) else float(x[-1])
 

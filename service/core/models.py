@@ -263,7 +263,9 @@ class LogNormal(_StandardNormalScale):
                 raise ParameterError("mean", "required with sd")
             if sd is None:
                 raise ParameterError("sd", "required with mean")
-            s2 = math.log1p((sd / mean) ** 2)
+            ratio = sd / mean
+            # log(1 + ratio^2), written so that a huge ratio cannot overflow
+            s2 = math.log1p(ratio * ratio) if ratio < 1e100 else 2.0 * math.log(ratio)
             self.mu, self.sigma = math.log(mean) - 0.5 * s2, math.sqrt(s2)
         else:
             raise ParameterError("median", "give median and sigma, or mean and sd")
