@@ -6,7 +6,7 @@ HOST    ?= 127.0.0.1
 PORT    ?= 8000
 WORKERS ?= 2
 
-.PHONY: serve test bench demo clean
+.PHONY: serve test fuzz loadtest bench demo clean
 
 $(VENV)/.installed-base: pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -18,11 +18,27 @@ $(VENV)/.installed-test: $(VENV)/.installed-base
 	$(PY) -m pip install -q -e '.[test]'
 	touch $@
 
+$(VENV)/.installed-fuzz: $(VENV)/.installed-base
+	$(PY) -m pip install -q -e '.[fuzz]'
+	touch $@
+
 serve: $(VENV)/.installed-base
 	HOST=$(HOST) PORT=$(PORT) WORKERS=$(WORKERS) $(VENV)/bin/gunicorn -c gunicorn.conf.py 'service:create_app()'
 
 test: $(VENV)/.installed-test
 	$(PY) -m pytest
+
+# Requests generated from openapi.yaml against gunicorn on a free loopback port (fuzz/run.py;
+# FUZZ_SEED, FUZZ_MAX_EXAMPLES, FUZZ_OUT override).
+fuzz: $(VENV)/.installed-fuzz
+	$(PY) fuzz/run.py
+
+# Load and fault tests (loadtest/): throughput, a killed worker, failover behind nginx, caps.
+# Everything runs on 127.0.0.1; wrk and nginx are installed with apt-get when missing.
+loadtest: $(VENV)/.installed-test
+	PATH="$$PATH:/usr/sbin" sh -c 'command -v wrk && command -v nginx' >/dev/null || \
+	  { apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y -q wrk nginx; }
+	$(PY) -m pytest loadtest -s
 
 bench: $(VENV)/.installed-test
 	$(PY) bench/run.py

@@ -34,6 +34,7 @@ class Caps:
     batch_items: int = _int_env("BIDSTATS_MAX_BATCH_ITEMS", 1000)
     sweep_rows: int = _int_env("BIDSTATS_MAX_SWEEP_ROWS", 200_000)
     sweep_axis: int = _int_env("BIDSTATS_MAX_SWEEP_AXIS", 2000)
+    seconds: int = _int_env("BIDSTATS_MAX_SECONDS", 30)
 
 
 CAPS = Caps()

@@ -53,7 +53,7 @@ def _neg_log_cdf(model, x):
 class ForwardAuction:
     """n symmetric bidders with values from ``model``; ``reserve`` may be None."""
 
-    def __init__(self, model, bidders, reserve=None, seller_value=0.0, fine=False):
+    def __init__(self, model, bidders, reserve=None, seller_value=0.0, fine=True):
         if model.discrete:
             raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
         self.model, self.n, self.fine = model, int(bidders), fine
@@ -138,7 +138,10 @@ class ForwardAuction:
         k = self.n - 1.0
         q = self._inner_quadrature()
         edges, se, d = self._bid_tail()[rule_index]
-        reach = k * se[-1] - 36.0 if not math.isfinite(self.s_r) else math.inf
+        # The panel recurrence is exact out to the cut when the panels reach it; where they
+        # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
+        ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
+        reach = math.inf if ends_at_cut else k * se[-1] - 36.0
         out = np.empty(s_q.shape)
         flat = s_q.ravel()
         res = out.ravel()
@@ -189,7 +192,7 @@ class ForwardAuction:
             bids = part + np.exp(-k * (se[1:, None] - s)) * d[1:, None]
             # An equilibrium bid lies between the floor and the value; far out in the
             # tail, where the weights are negligible, rounding could break that.
-            bids = np.minimum(np.maximum(bids, self.floor), vals)
+            bids = np.minimum(np.maximum(bids, self.floor if math.isfinite(self.floor) else np.min(vals)), vals)
             out.append((t, dt, vals, s, bids))
         self._node_bid_cache = out
         return out
@@ -288,6 +291,17 @@ def ascending_revenue(auc):
     def cdf2(x):
         return os_.rank_cdf(m, n, 2, x)
 
+    # A panel spanning many decades on one side of zero (a floor of 1e-300, say) is
+    # cut into pieces of at most e^3, which the log-|x| rule below integrates exactly.
+    extra = []
+    for lo_e, hi_e in zip(edges[:-1], edges[1:]):
+        if lo_e * hi_e > 0:
+            span = abs(math.log(abs(hi_e) / abs(lo_e)))
+            if span > 3.0:
+                k = min(int(span / 3.0), 400)
+                extra.extend(math.copysign(v, lo_e) for v in np.geomspace(abs(lo_e), abs(hi_e), k + 2)[1:-1])
+    if extra:
+        edges = np.unique(np.concatenate((edges, extra)))
     totals = []
     a, b = edges[:-1], edges[1:]
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
@@ -402,9 +416,10 @@ def forward_figures(auc, rules, quantiles):
     """Each rule's forward figures, expected revenue by the rule's own route."""
     n = auc.n
     warnings = []
+    bid_rules = {"first_price", "descending", "all_pay"} & set(rules)
     if auc.p_sale == 0.0:
         e_win_value = 0.0
-    elif n == 1:
+    elif n == 1 or not bid_rules:  # no bids needed: the highest value's own quadrature
         e1_q = _quad_cut(auc, 1)
         e_win_value = e1_q.integrate(lambda x: x)[0]
     else:
@@ -466,6 +481,8 @@ def _efficiency(auc, e_win_value, warnings):
         return None
     realised = e_win_value - v0 * auc.p_sale
     s0 = math.inf if v0 <= auc.model.lower else _neg_log_cdf(auc.model, v0)
+    if s0 == auc.s_r and realised > 0:  # the same cut as the reserve's: the best gain is the realised one
+        return 1.0
     up, low = os_.tail_growth(auc.model, 1)
     q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), s_cut=s0, upper_growth=up, lower_growth=low).fill(auc.model)
     best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
@@ -497,8 +514,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     if direction == "forward" and v0 is None:
         v0 = 0.0
     auc = ForwardAuction(fmodel, bidders, freserve, v0)
-    if not os_.moment_exists(fmodel, bidders, 1, 1):
-        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+    _check_price_exists(fmodel, bidders)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)
@@ -535,6 +551,13 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     }
 
 
+def _check_price_exists(fmodel, bidders):
+    """The expected price needs the highest value's mean and, with rivals, the
+    second-highest's (whose lower tail is the thinner of the two)."""
+    if not os_.moment_exists(fmodel, bidders, 1, 1) or (bidders > 1 and not os_.moment_exists(fmodel, bidders, 2, 1)):
+        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+
+
 def _grid(model, points):
     lo = model.lower if math.isfinite(model.lower) else float(model.ppf(1e-3))
     hi = model.upper if math.isfinite(model.upper) else float(model.isf(1e-3))
@@ -545,6 +568,10 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     """Equilibrium bids on a grid of values (forward) or costs (reverse)."""
     fmodel, freserve, _ = _forward_case(model, direction, reserve, None)
     auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
+    if rule not in ("second_price", "ascending") and bidders > 1 and not auc.reserve_binds \
+            and not os_.moment_exists(fmodel, bidders - 1, 1, 1):
+        raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
+                                        "(the value model's tail is too heavy); give a reserve")
     grid = np.asarray(at, float) if at is not None else _grid(model, points)
     v = grid if direction == "forward" else -grid
     inside = (v >= fmodel.lower) & (v <= fmodel.upper)
@@ -651,8 +678,7 @@ def reserve_report(model, direction, bidders, own_value):
                     .replace("every value's virtual value already exceeds it, so no reserve binds", "every cost's virtual cost is already below it, so no maximum price binds")
                     .replace("no value's virtual value reaches it, so the item is best kept", "no cost's virtual cost is below it, so the contract is best not awarded")
                     .replace("over reserves", "over maximum prices"))
-    if not os_.moment_exists(fmodel, bidders, 1, 1):
-        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+    _check_price_exists(fmodel, bidders)
     payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
     _, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
     sign = 1.0 if direction == "forward" else -1.0

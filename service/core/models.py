@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special as sp
 
+from . import budget
 from .errors import ParameterError
 
 INF = math.inf
@@ -125,6 +126,7 @@ class ValueModel:
         target = v if use_sf else u
         sign = -1.0 if use_sf else 1.0
         for _ in range(200):
+            budget.check()
             g = (self.sf(x) if use_sf else self.cdf(x)) - target
             below = sign * g < 0
             lo = np.where(below, x, lo)
@@ -431,12 +433,22 @@ class BetaValues(ValueModel):
         lp = sp.xlogy(self.a - 1, yy) + sp.xlog1py(self.b - 1, -yy) - self._lognorm
         return np.where(inside, np.exp(lp), 0.0)
 
+    def _inv(self, p, a, b):
+        """y with I_y(a, b) = p; where scipy gives up in the far tail (p ~ 1e-30),
+        the leading term of the tail, I_y ~ y^a / (a B(a, b))."""
+        p = np.asarray(p, float)
+        y = sp.betaincinv(a, b, p)
+        bad = np.isnan(y) & (p < 1e-8)
+        if np.any(bad):
+            y = np.where(bad, np.exp((np.log(np.where(bad, p, 1.0)) + math.log(a) + sp.betaln(a, b)) / a), y)
+        return y
+
     def ppf(self, u):
-        return self.lower + self.width * sp.betaincinv(self.a, self.b, u)
+        return self.lower + self.width * self._inv(u, self.a, self.b)
 
     def isf(self, v):
         # The upper end as high - width * y, with y from the mirrored Beta(b, a).
-        return self.upper - self.width * sp.betaincinv(self.b, self.a, v)
+        return self.upper - self.width * self._inv(v, self.b, self.a)
 
 
 class Triangular(ValueModel):

@@ -19,6 +19,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special as sp
 
+from . import budget
+
 _GL_HI = np.polynomial.legendre.leggauss(24)
 _GL_LO = np.polynomial.legendre.leggauss(16)
 
@@ -102,7 +104,7 @@ class RankQuadrature:
             out.append((mid[:, None] + half[:, None] * x, half[:, None] * w, vals))
         return out
 
-    def fill(self, model, rtol=2e-14, max_rounds=12):
+    def fill(self, model, rtol=2e-14, max_rounds=60):
         """Evaluate model values at the nodes, refining rough panels."""
         if self.panels == 0:
             self.values_hi, self.values_lo = np.empty((0, len(_GL_HI[0]))), np.empty((0, len(_GL_LO[0])))
@@ -110,6 +112,7 @@ class RankQuadrature:
         vh = model.value_at(self.u_hi, self.v_hi)
         vl = model.value_at(self.u_lo, self.v_lo)
         for _ in range(max_rounds):
+            budget.check()
             err = np.abs(np.sum(self.w_hi * vh, axis=1) - np.sum(self.w_lo * vl, axis=1))
             scale = np.sum(np.abs(self.w_hi * vh)) + 1e-300
             bad = err > rtol * scale
@@ -214,6 +217,8 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
             aug = aug + power * np.log(np.maximum(xs, max(scale, _TINY)) / max(scale, _TINY))
             aug = np.where(np.isnan(aug), -np.inf, aug)  # no value there (a quantile routine gave up)
     keep = np.nonzero(aug > np.max(aug) - _DECADES)[0] if np.isfinite(np.max(aug)) else np.nonzero(aug == np.inf)[0]
+    if len(keep) == 0:  # nothing finite to go by: the whole scanned range
+        keep = np.arange(len(scan))
     ta = scan[max(keep[0] - 1, 0)]
     tb = t_right if (cut and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
     if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside

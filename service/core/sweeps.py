@@ -18,8 +18,9 @@ import math
 
 import numpy as np
 
+from . import budget
 from . import orderstats as os_
-from .auctions import ForwardAuction, _forward_case
+from .auctions import ForwardAuction, _check_price_exists, _forward_case
 from .errors import ParameterError
 from .topvalues import finite
 
@@ -164,13 +165,14 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
     for i, m in enumerate(metrics):
         if m not in names:
             raise ParameterError(f"metrics.{i}", f"one of {', '.join(names)} for a {direction} sweep")
-    if not os_.moment_exists(fmodel, max(bidders), 1, 1):
-        raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
+    for n in sorted(set(bidders)):
+        _check_price_exists(fmodel, n)
     res = np.asarray(reserves, float)
     fres = res if direction == "forward" else -res
     sign = 1.0 if direction == "forward" else -1.0
     rows = []
     for n in bidders:
+        budget.check()
         blk = _block(fmodel, n, fres, v0)
         has_var = {"sp": os_.moment_exists(fmodel, n, min(2, n), 2), "fp": os_.moment_exists(fmodel, n, 1, 2),
                    "ap": os_.moment_exists(fmodel, n, 1, 2)}

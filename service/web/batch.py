@@ -8,6 +8,7 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate
 
 from .. import settings
+from ..core import budget
 from . import auctions, sweeps, top_values
 from .io import json_body, json_response, load
 from .problems import problem_body, validation_body
@@ -51,8 +52,9 @@ def _answer(raw):
 def post_batch():
     req = load(BatchRequest, json_body())
     out = []
-    for raw in req["requests"]:
-        status, body = _answer(raw)
+    with budget.within(settings.CAPS.seconds):  # one budget for the whole batch
+        answers = [_answer(raw) for raw in req["requests"]]
+    for raw, (status, body) in zip(req["requests"], answers):
         ident = raw.get("id") if isinstance(raw, dict) else None
         out.append({"id": ident if isinstance(ident, (str, int)) and not isinstance(ident, bool) else None,
                     "status": status, "body": body})

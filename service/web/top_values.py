@@ -5,7 +5,7 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from .. import settings
-from ..core import topvalues
+from ..core import budget, topvalues
 from ..core.errors import ParameterError
 from .fields import StrictFloat, StrictInteger, ValueModelField
 from .io import load, register_posts
@@ -21,7 +21,8 @@ _MODEL_FIELDS = {"smoothing", "sample", "components", "truncate"}
 def core_call(fn, field_prefix="bidder_values", **kw):
     """One call into the core; its parameter errors become 422s at their field."""
     try:
-        return fn(**kw)
+        with budget.within(settings.CAPS.seconds):
+            return fn(**kw)
     except ParameterError as e:
         field = f"{field_prefix}.{e.field}" if e.field.split(".")[0] in _MODEL_FIELDS else e.field
         raise ValidationError({field: [e.message]}) from None
