@@ -198,10 +198,10 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
         return empty()
 
     # Trim to where the integrand matters, on a cheap scan of the log-weight.
-    scan = np.linspace(t_left, t_right, 301)
     probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    scan = np.linspace(t_left, t_right, 151 if probe else 301)
     if probe:
-        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 181)
+        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 121)
         scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
