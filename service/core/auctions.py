@@ -53,10 +53,10 @@ def _neg_log_cdf(model, x):
 class ForwardAuction:
     """n symmetric bidders with values from ``model``; ``reserve`` may be None."""
 
-    def __init__(self, model, bidders, reserve=None, seller_value=0.0, fine=True):
+    def __init__(self, model, bidders, reserve=None, seller_value=0.0):
         if model.discrete:
             raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
-        self.model, self.n, self.fine = model, int(bidders), fine
+        self.model, self.n = model, int(bidders)
         self.reserve = None if reserve is None else float(reserve)
         self.v0 = seller_value
         # The effective floor: the reserve, or the bottom of the support.
@@ -85,7 +85,7 @@ class ForwardAuction:
         if self._bid_nodes is None:
             up, low = self._growth(self.n - 1, 1)
             q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
-                                    upper_growth=up, lower_growth=low, fine=self.fine).fill(self.model)
+                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model)
             self._bid_nodes = q
         return self._bid_nodes
 
@@ -130,14 +130,14 @@ class ForwardAuction:
         vals = m.value_at(np.exp(-s), -np.expm1(-s))
         return float(np.dot(ww, vals))
 
-    def bids_at_s(self, s_q, rule_index=0):
+    def bids_at_s(self, s_q):
         """First-price equilibrium bids at values with -log F(v) = s_q (array)."""
         s_q = np.asarray(s_q, float)
         if self.n == 1:
             return np.full(s_q.shape, self.floor)
         k = self.n - 1.0
         q = self._inner_quadrature()
-        edges, se, d = self._bid_tail()[rule_index]
+        edges, se, d = self._bid_tail()[0]
         # The panel recurrence is exact out to the cut when the panels reach it; where they
         # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
         ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)

@@ -355,7 +355,7 @@ class Gamma(ValueModel):
         x = np.asarray(x, float)
         with np.errstate(divide="ignore", invalid="ignore"):
             lp = sp.xlogy(self.k - 1.0, np.where(x > 0, x, 1.0)) - x / self.theta - self._lognorm
-        return np.where(x > 0, _positive_pdf(lp), 0.0 if self.k >= 1 else 0.0)
+        return np.where(x > 0, _positive_pdf(lp), 0.0)
 
     def ppf(self, u):
         return self.theta * sp.gammaincinv(self.k, u)

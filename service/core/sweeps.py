@@ -90,7 +90,7 @@ def _block(model, n, reserves, v0):
     out["sp"] = (rev_sp, m2 - (rev_sp - c) ** 2, rev_sp)
 
     # First price and all-pay on the nodes of the highest rival value.
-    auc = ForwardAuction(model, n, None, v0, fine=True)
+    auc = ForwardAuction(model, n, None, v0)
     t, dt, v1, s1, b0 = auc.node_bids()[0]
     q1 = auc._inner_quadrature()
     v1, s1, b0 = v1.ravel(), s1.ravel(), b0.ravel()
