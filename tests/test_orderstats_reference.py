@@ -452,6 +452,17 @@ def test_uniform_is_scaled_beta(n, rank):
                                st.beta(rank, n - rank + 1).sf((high - q) / (high - low)), rtol=1e-9)
 
 
+@pytest.mark.parametrize("n,rank", [(2, 1), (6, 2), (1000, 2), (10**6, 2), (50, 7)])
+def test_reflected_closed_moments_are_the_mirror_ranks(n, rank):
+    # -X for X ~ Uniform(2, 5): rank r of n from the top of -X is minus rank
+    # n - r + 1 from the top of X, i.e. -(2 + 3 Beta(r, n - r + 1)) (David and
+    # Nagaraja 2003, section 2.1); reference scipy.stats.beta.
+    b = st.beta(rank, n - rank + 1)
+    mean, var = M.Reflected(M.Uniform(low=2.0, high=5.0)).closed_rank_moments(n, rank)
+    assert rel_err(mean, -(2.0 + 3.0 * b.mean())) < 1e-13
+    assert rel_err(var, 9.0 * b.var()) < 1e-12
+
+
 # ---------------------------------------------------------------------------
 # 4. Exponential values, Renyi's representation: rank r of n (from the top)
 #    = shift + mean * sum_{j=r}^{n} E_j / j with E_j iid Exp(1)
@@ -705,6 +716,25 @@ def test_rank_cdf_against_beta_cdf(family, n):
         x = ref.isf(st.beta.isf(PS, rank, n - rank + 1))
         want = st.beta.sf(ref.sf(x), rank, n - rank + 1)
         np.testing.assert_allclose(O.rank_cdf(model, n, rank, x), want, rtol=1e-9)
+
+
+# At n = 10^6 the points lie within 1e-9 of probability of the top of the support.
+# There scipy.stats' triang survival function loses digits (1.1e-7 relative against
+# mpmath), so it is no reference; and a truncated normal's S(x) = (S0(x) - S0(high)) /
+# mass cancels, in ours and in scipy's truncnorm alike (1e-9 relative against mpmath).
+@pytest.mark.parametrize("family,n", [(f, n) for f in sorted(QUANTILE_FAMILIES) for n in (2, 10, 1000, 10**6)
+                                      if not (n == 10**6 and f in ("triangular", "truncated-normal"))])
+def test_rank_sf_against_beta_cdf(family, n):
+    # P(rank r of n > x) = P(V < S(x)), V ~ Beta(r, n - r + 1) (David and Nagaraja
+    # 2003, section 2.1): relative digits deep in the upper tail, where 1 - cdf
+    # would keep none; scipy.stats for S and the Beta distribution.
+    make, ref = QUANTILE_FAMILIES[family]
+    model = make()
+    ps = np.concatenate((PS, [1e-12, 1e-9]))
+    for rank in (1, 2):
+        x = ref.isf(st.beta.isf(ps, rank, n - rank + 1))
+        want = st.beta.cdf(ref.sf(x), rank, n - rank + 1)
+        np.testing.assert_allclose(O.rank_sf(model, n, rank, x), want, rtol=1e-9)
 
 
 @pytest.mark.parametrize("rank", [1, 2])

@@ -67,6 +67,7 @@ class ForwardAuction:
         self.f_r = self.u_cut  # F(floor)
         self.p_sale = -math.expm1(-self.n * self.s_r) if math.isfinite(self.s_r) else 1.0
         self._bid_nodes = None
+        self._bid_tails = None
         self._sp_quad = None
         self._node_bid_cache = None
 
@@ -91,7 +92,10 @@ class ForwardAuction:
 
     def _bid_tail(self):
         """D_k: the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from each panel
-        edge k to the reserve, shifted by e^((n-1) s_k) so nothing overflows."""
+        edge k to the reserve, shifted by e^((n-1) s_k) so nothing overflows.
+        Computed once per auction."""
+        if self._bid_tails is not None:
+            return self._bid_tails
         q = self._inner_quadrature()
         k = self.n - 1.0
         edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
@@ -106,6 +110,7 @@ class ForwardAuction:
             for i in range(len(edges) - 2, -1, -1):
                 d[i] = panel[i] + math.exp(-k * (se[i + 1] - se[i])) * d[i + 1]
             out.append((edges, se, d))
+        self._bid_tails = out
         return out
 
     def _partial(self, s_q, s_end):
@@ -142,25 +147,26 @@ class ForwardAuction:
         # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
         ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
         reach = math.inf if ends_at_cut else k * se[-1] - 36.0
-        out = np.empty(s_q.shape)
         flat = s_q.ravel()
-        res = out.ravel()
-        for i, sq in enumerate(flat):
-            if not sq <= self.s_r:
-                res[i] = math.nan
-                continue
-            res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
-            if q.panels and se[0] <= sq <= se[-1] and k * sq <= reach:
-                j = min(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
-                part = float(self._sub_integral(np.array(math.log(k * sq)), np.array(edges[j + 1])))
-                res[i] = part + math.exp(-k * (se[j + 1] - sq)) * d[j + 1]
-            elif q.panels and sq < se[0]:
-                part = self._partial(sq, se[0])
-                res[i] = part + math.exp(-k * (se[0] - sq)) * d[0]
+        res = np.full(flat.shape, math.nan)
+        with np.errstate(invalid="ignore"):
+            live = flat <= self.s_r
+            on_panels = live & (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach) if q.panels else np.zeros(flat.shape, bool)
+        if np.any(on_panels):
+            # Within the panels: the node's partial panel, then the recurrence from its right edge.
+            sq = flat[on_panels]
+            j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
+            part = self._sub_integral(np.log(k * sq), edges[j + 1])
+            res[on_panels] = part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
+        for i in np.nonzero(live & ~on_panels)[0]:
+            sq = flat[i]
+            if q.panels and sq < se[0]:
+                res[i] = self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
             else:
                 end = self.s_r if math.isfinite(self.s_r) else sq + 80.0 / k
+                res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
                 res[i] = self._partial(sq, end) + res_mass
-        return out
+        return res.reshape(s_q.shape)
 
     def _sub_integral(self, t_q, t_end):
         """Integral of v (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
@@ -177,7 +183,7 @@ class ForwardAuction:
     def node_bids(self):
         """For both rules: (t, dt, values, s, bids) at the inner quadrature's
         nodes, bids by the panel recurrence plus the node's partial panel."""
-        if getattr(self, "_node_bid_cache", None) is not None:
+        if self._node_bid_cache is not None:
             return self._node_bid_cache
         q = self._inner_quadrature()
         k = self.n - 1.0
@@ -205,18 +211,34 @@ def _quad_cut(auc, rank):
                                upper_growth=up, lower_growth=low).fill(auc.model)
 
 
-def _second_price_distribution(auc):
-    """The price max(X2, r) on a sale: its atoms and the quadrature above r."""
+def _closed_moments(auc, rank):
+    """(mean, variance) of the rank-th highest value where the family has them in
+    closed form and no reserve binds (the price is then that value itself), else None."""
+    closed = getattr(auc.model, "closed_rank_moments", None)
+    if closed is None or auc.reserve_binds:
+        return None
+    return closed(auc.n, rank)
+
+
+def _second_price_atoms(auc):
+    """The price max(X2, r) on a sale has atoms: P(no sale) and P(price = r)."""
     n, fr = auc.n, auc.f_r
-    p0 = fr**n
-    pr = n * fr ** (n - 1) * (1.0 - fr) if auc.reserve_binds else 0.0
+    return fr**n, (n * fr ** (n - 1) * (1.0 - fr) if auc.reserve_binds else 0.0)
+
+
+def _second_price_quadrature(auc):
+    """The price's continuous part: the second-highest value's quadrature above r."""
     if auc._sp_quad is None:
         auc._sp_quad = _quad_cut(auc, 2)
-    return p0, pr, auc._sp_quad
+    return auc._sp_quad
 
 
 def _price_stats_second(auc, mean):
-    p0, pr, q = _second_price_distribution(auc)
+    closed = _closed_moments(auc, 2)
+    if closed is not None and closed[1] is not None:
+        return closed[1] + (closed[0] - mean) ** 2
+    p0, pr = _second_price_atoms(auc)
+    q = _second_price_quadrature(auc)
     var = p0 * mean**2 + (pr * (auc.floor - mean) ** 2 if pr else 0.0)
     if q.panels:
         var += q.integrate(lambda x: (x - mean) ** 2)[0]
@@ -248,7 +270,7 @@ def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
 
 
 def _price_quantiles_second(auc, ps):
-    p0, pr, _ = _second_price_distribution(auc)
+    p0, pr = _second_price_atoms(auc)
     n, m = auc.n, auc.model
 
     def sale_quantile(q):
@@ -263,8 +285,13 @@ def _price_quantiles_second(auc, ps):
 
 
 def second_price_revenue(auc):
-    """E[max(X2, r) 1{X1 >= r}] in quantile space over the second-highest."""
-    p0, pr, q = _second_price_distribution(auc)
+    """E[max(X2, r) 1{X1 >= r}]: in closed form where the family has it and no
+    reserve binds, else in quantile space over the second-highest."""
+    closed = _closed_moments(auc, 2)
+    if closed is not None:
+        return closed[0], 4e-16 * abs(closed[0])
+    p0, pr = _second_price_atoms(auc)
+    q = _second_price_quadrature(auc)
     above, err = q.integrate(lambda x: x) if q.panels else (0.0, 0.0)
     return (pr * auc.floor if pr else 0.0) + above, err
 
@@ -286,7 +313,7 @@ def ascending_revenue(auc):
         edges = np.unique(np.append(edges, split))
 
     def sf2(x):
-        return 1.0 - os_.rank_cdf(m, n, 2, x)
+        return os_.rank_sf(m, n, 2, x)
 
     def cdf2(x):
         return os_.rank_cdf(m, n, 2, x)
@@ -417,11 +444,13 @@ def forward_figures(auc, rules, quantiles):
     n = auc.n
     warnings = []
     bid_rules = {"first_price", "descending", "all_pay"} & set(rules)
+    closed_top = _closed_moments(auc, 1)
     if auc.p_sale == 0.0:
         e_win_value = 0.0
+    elif closed_top is not None:
+        e_win_value = closed_top[0]
     elif n == 1 or not bid_rules:  # no bids needed: the highest value's own quadrature
-        e1_q = _quad_cut(auc, 1)
-        e_win_value = e1_q.integrate(lambda x: x)[0]
+        e_win_value = _quad_cut(auc, 1).integrate(lambda x: x)[0]
     else:
         e_win_value = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * v)[0]
     eff = _efficiency(auc, e_win_value, warnings)

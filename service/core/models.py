@@ -692,6 +692,12 @@ class Reflected(ValueModel):
     def atoms(self):
         return -self.parent.atoms[::-1]
 
+    def closed_rank_moments(self, n, r):
+        """Rank r from the top of -X is minus rank n - r + 1 from the top of X."""
+        closed = getattr(self.parent, "closed_rank_moments", None)
+        got = closed(n, n - r + 1) if closed is not None else None
+        return None if got is None else (-got[0], got[1])
+
 
 class QuantileTable(ValueModel):
     """A piecewise-linear CDF through analyst-supplied (p, value) points."""
