@@ -1,5 +1,6 @@
-"""bidstats benchmarks: speed and accuracy of the order-statistics core, and the
-cost of a whole in-process request. Run with `make bench` (or
+"""bidstats benchmarks: speed and accuracy of the order-statistics core, the
+cost of a whole in-process request, and HTTP throughput under load next to the
+trivial endpoint (a real gunicorn driven by wrk on loopback, when wrk is installed). Run with `make bench` (or
 `.venv/bin/python bench/run.py [section ...]`; `--list` names the sections).
 
 This is a benchmark, not a test: it asserts nothing and only prints plain-text
@@ -20,9 +21,11 @@ import math
 import os
 import platform
 import signal
+import shutil
 import statistics
 import subprocess
 import sys
+import tempfile
 import time
 import timeit
 import warnings
@@ -445,6 +448,31 @@ def section_sweeps(ctx):
     print("target: well under 1 s for the 20,000 rows")
 
 
+def section_http(ctx):
+    """Requests per second under wrk, each shape next to GET /healthz of the same gunicorn,
+    by the load test's own measurement (loadtest/harness.py)."""
+    heading("HTTP throughput under load: POST /v1/revenue next to GET /healthz")
+    root = Path(__file__).resolve().parents[1]
+    if shutil.which("wrk") is None:
+        print("wrk is not installed (`make loadtest` installs it with apt-get): section skipped")
+        return
+    sys.path.insert(0, str(root / "loadtest"))
+    import harness
+
+    with tempfile.TemporaryDirectory() as tmp:
+        g = harness.Gunicorn(log_path=Path(tmp) / "gunicorn.log", workers=2)
+        try:
+            g.start()
+            results, lines = harness.measure_throughput(g.url, lambda url, **kw: harness.Wrk(Path(tmp), url, **kw))
+        finally:
+            g.stop()
+    print("\n".join(lines))
+    base = results["healthz"].rps
+    ctx["http_ratios"] = {name: r.rps / base for name, r in results.items() if name in harness.THROUGHPUT_TARGETS}
+    ctx["http_targets"] = harness.THROUGHPUT_TARGETS
+    ctx["http_errors"] = sum(r.non2xx + r.socket_errors for r in results.values())
+
+
 def section_summary(ctx):
     """Every headline figure of this run in one table, against its target."""
     heading("Summary of this run")
@@ -471,12 +499,16 @@ def section_summary(ctx):
     if get("sweep_max") is not None:
         rows.append(row("sweep of 20,000 rows through HTTP (worst model)", fmt_time(get("sweep_max")), "< 1 s", get("sweep_max") < 1.0))
         rows.append(row("cell-by-cell time / sweep time (worst model)", f"{get('sweep_cells_ratio_min'):.1f}x", "(reported)", None))
+    if get("http_ratios") is not None:
+        for name, ratio in get("http_ratios").items():
+            target = get("http_targets")[name]
+            rows.append(row(f"HTTP {name} revenue req/s / GET /healthz req/s", f"{ratio:.2f}", f">= {target:.2f}", ratio >= target))
+        rows.append(row("HTTP answers under load that were errors", f"{get('http_errors')}", "0", get("http_errors") == 0))
     print(table(["figure", "this run", "target", ""], rows))
-    print("HTTP throughput under load against the trivial endpoint: `make loadtest` (wrk, real gunicorn).")
 
 
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
-            section_summary]
+            section_http, section_summary]
 
 
 def main(argv):

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import json
 import os
+import platform
 import shutil
 import signal
 import socket
@@ -296,6 +297,40 @@ def wrk(tmp_path):
         if w.proc.poll() is None:
             w.proc.kill()
             w.proc.wait()
+
+
+# ---------------------------------------------------------------- throughput
+# The request shapes measured side by side: the trivial endpoint (gunicorn, Flask and
+# the operations layer with no work), a value model whose order statistics have closed
+# forms, and a numeric one with all five rules. Shared by the load test and `make bench`.
+THROUGHPUT_SHAPES = (
+    ("healthz", "/healthz", None),
+    ("closed form", "/v1/revenue", UNIFORM6_SECOND_PRICE),
+    ("numeric", "/v1/revenue", LOGNORMAL6_ALL_RULES),
+)
+THROUGHPUT_TARGETS = {"closed form": 0.50, "numeric": 0.25}  # fractions of /healthz's requests per second
+
+
+def measure_throughput(base_url, start_wrk, warm_up_s=1, measure_s=6, connections=4):
+    """Each shape under wrk in turn, after a warm-up of each: ({name: WrkResult}, lines of a report).
+    ``start_wrk(url, body=, seconds=, connections=)`` starts one bounded run."""
+    for _, path, body in THROUGHPUT_SHAPES:
+        start_wrk(base_url + path, body=body, seconds=warm_up_s, connections=connections).result()
+    load_before = os.getloadavg()[0]
+    results = {name: start_wrk(base_url + path, body=body, seconds=measure_s, connections=connections).result()
+               for name, path, body in THROUGHPUT_SHAPES}
+    base = results["healthz"].rps
+    lines = [f"throughput on {platform.node() or 'this machine'}, {time.strftime('%Y-%m-%d')}: gunicorn WORKERS=2, "
+             f"wrk -t1 -c{connections} -d{measure_s}s, loopback, {os.cpu_count()} CPUs, "
+             f"1-minute load average {load_before:.2f} before and {os.getloadavg()[0]:.2f} after",
+             f"{'request':<12} {'req/s':>8} {'ratio':>6} {'p50 ms':>8} {'p90 ms':>8} {'p99 ms':>8} {'errors':>7}  target"]
+    for name, r in results.items():
+        ratio = r.rps / base if base else 0.0
+        target = THROUGHPUT_TARGETS.get(name)
+        verdict = "" if target is None else f">= {target:.0%}: {'PASS' if ratio >= target else 'MISS'}"
+        lines.append(f"{name:<12} {r.rps:>8.0f} {ratio:>6.2f} {r.p50_us / 1e3:>8.2f} {r.p90_us / 1e3:>8.2f} "
+                     f"{r.p99_us / 1e3:>8.2f} {r.socket_errors + r.non2xx:>7}  {verdict}")
+    return results, lines
 
 
 def report(lines):
