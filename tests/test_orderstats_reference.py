@@ -481,6 +481,19 @@ def test_exponential_renyi(n, rank):
     assert rel_err(s.var, want_var) < 1e-13
 
 
+def test_cached_rule_serves_each_model_its_own_answer():
+    # The rank rule for (n, r) is built once and handed out as copies: filling one copy
+    # with a model must not leak into another. Uniform(2, 5): rank 2 of 10 is
+    # 2 + 3 Beta(9, 2), mean 2 + 3 * 9/11; Exponential(3), Renyi: 3 * sum_{j=2}^{10} 1/j
+    # (David and Nagaraja 2003, sections 2.1 and 2.5).
+    first = O.rank_quadrature(10, 2).fill(M.Uniform(low=2.0, high=5.0))
+    second = O.rank_quadrature(10, 2).fill(M.Exponential(mean=3.0, shift=0.0))
+    assert rel_err(first.integrate(lambda x: x)[0] / first.total(), 2.0 + 3.0 * 9.0 / 11.0) < 1e-13
+    assert rel_err(second.integrate(lambda x: x)[0] / second.total(), 3.0 * math.fsum(1.0 / j for j in range(2, 11))) < 1e-13
+    with pytest.raises(ValueError):
+        O.rank_quadrature(10, 2).w_hi[0, 0] = 1.0  # the shared arrays are read-only
+
+
 def test_exponential_against_monte_carlo():
     # Seeded Monte Carlo of the raw draws (not of the representation): the sample
     # mean of the maximum of 50 Exp(3) draws over 40 000 auctions has standard

@@ -13,6 +13,8 @@ their difference is the reported error estimate.
 """
 from __future__ import annotations
 
+import copy
+import functools
 import math
 from dataclasses import dataclass
 
@@ -157,8 +159,34 @@ class RankQuadrature:
         return hi, abs(hi - lo)
 
 
+_RULE_CACHE_SIZE = 256  # rules of at most about 80 KB each (1 KB a panel), per worker
+_RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds its rule each time
+
+
 def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
                     fine=False):
+    """Quadrature for rank r of n (see ``_build_rank_quadrature``).
+
+    Without a model to probe, the rule depends only on its arguments, so it is built
+    once per worker for each (n, r, kinks, cut, reach) and handed out as a fresh copy
+    (``fill`` replaces arrays, never writes into them; the cached ones are read-only).
+    """
+    kinks = tuple(float(k) for k in np.atleast_1d(np.asarray(kinks_u, float)))
+    if (model is not None and power and getattr(model, "cheap_quantiles", False)) or len(kinks) > _RULE_CACHE_KINKS:
+        return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine)
+    return copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
+                                  float(upper_growth), float(lower_growth), bool(fine)))
+
+
+@functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
+def _cached_rule(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, fine):
+    q = _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, None, 0, fine)
+    for name in ("a", "b", "u_hi", "v_hi", "w_hi", "u_lo", "v_lo", "w_lo"):
+        getattr(q, name).flags.writeable = False
+    return q
+
+
+def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, model, power, fine):
     """Quadrature for rank r of n, restricted to cumulative probability >= u_cut
     (or to s = -log u <= s_cut, which keeps its digits when u_cut rounds to 1).
 
