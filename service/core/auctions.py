@@ -290,7 +290,7 @@ def second_price_revenue(auc):
     closed = _closed_moments(auc, 2)
     if closed is not None:
         return closed[0], 4e-16 * abs(closed[0])
-    p0, pr = _second_price_atoms(auc)
+    _, pr = _second_price_atoms(auc)
     q = _second_price_quadrature(auc)
     above, err = q.integrate(lambda x: x) if q.panels else (0.0, 0.0)
     return (pr * auc.floor if pr else 0.0) + above, err
