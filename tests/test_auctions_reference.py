@@ -832,3 +832,34 @@ def test_clustered_values_against_quad(name, n, r):
     assert rep["second_price"]["expected_revenue"] == pytest.approx(want_rev, abs=1e-11 * scale)
     for rule in RULES:
         assert rep[rule]["expected_revenue"] == pytest.approx(want_rev, abs=1e-11 * scale), rule
+
+
+@pytest.mark.parametrize("name,n,vs", [
+    ("normals_0_20_45", 10, [1.0, 15.0, 16.5, 17.5, 20.0, 30.0, 44.0]),
+    ("kernel_0_0_0_7_half", 5, [0.2, 3.0, 6.0, 7.0, 8.0]),
+])
+def test_clustered_first_price_bids_against_quad(name, n, vs):
+    # b(v) = E[Y | Y < v] = v - int_{-inf}^v (F(y)/F(v))^(n-1) dy, Y the highest of n-1 rival
+    # values (Krishna 2009, ch. 2, integrated by parts), by quad with F from scipy.stats.norm
+    # as in _quad_second. Just above a gap F(v)^(n-1) is small (0.3^9 = 2e-5 at v = 16.5 for
+    # the three normals), so the bid magnifies any quadrature error in the rivals' values
+    # below v. Tolerance 1e-11 of the values' scale, as above.
+    parts, build = CLUSTERED[name]
+    w = np.array([p[0] for p in parts])
+    mu = np.array([p[1] for p in parts])
+    sd = np.array([p[2] for p in parts])
+    scale = max(abs(m) + 13 * s for _, m, s in parts)
+    edges = np.unique(np.concatenate([mu + k * sd for k in (-13, -8, -4, -2, -1, 0, 1, 2, 4, 8, 13)]))
+
+    def log_F(x):
+        return math.log(float(np.dot(w, stats.norm.cdf(x, mu, sd))))
+
+    def want(v):
+        e = np.unique(np.append(edges[edges < v], v))
+        lv = log_F(v)
+        return v - math.fsum(integrate.quad(lambda y: math.exp((n - 1) * (log_F(y) - lv)), a, b,
+                                            epsabs=0, epsrel=1e-12, limit=400)[0] for a, b in zip(e[:-1], e[1:]))
+
+    got = A.bid_strategy(build(), "forward", n, rule="first_price", at=vs)["bids"]
+    for v, b in zip(vs, got):
+        assert b == pytest.approx(want(v), abs=1e-11 * scale), v

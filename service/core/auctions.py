@@ -86,7 +86,7 @@ class ForwardAuction:
         if self._bid_nodes is None:
             up, low = self._growth(self.n - 1, 1)
             q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
-                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model)
+                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model, conditional=True)
             self._bid_nodes = q
         return self._bid_nodes
 

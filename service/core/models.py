@@ -195,15 +195,16 @@ def density_dips(pdf, grid):
     c, d = b - g * (b - a), a + g * (b - a)
     fc, fd = log_f(c), log_f(d)
     for _ in range(60):  # each step keeps 0.618 of every bracket: 60 reach 3e-13 of it
-        left = fc <= fd  # the minimum lies in [a, d]: d becomes the new upper end
+        left = fc <= fd  # the minimum lies in [a, d]; otherwise in [c, b]
         a, b = np.where(left, a, c), np.where(left, d, b)
-        c, d, fc, fd = np.where(left, b - g * (b - a), d), np.where(left, c, a + g * (b - a)), \
-            np.where(left, np.nan, fd), np.where(left, fc, np.nan)
-        new = np.where(left, c, d)
-        fn = log_f(new)
-        fc, fd = np.where(left, fn, fc), np.where(left, fd, fn)
+        keep, f_keep = np.where(left, c, d), np.where(left, fc, fd)  # the surviving inner point
+        new = np.where(left, b - g * (b - a), a + g * (b - a))
+        f_new = log_f(new)
+        c, fc = np.where(left, new, keep), np.where(left, f_new, f_keep)
+        d, fd = np.where(left, keep, new), np.where(left, f_keep, f_new)
     best, f_best = np.where(fc <= fd, c, d), np.minimum(fc, fd)
     return [float(v) for v in np.where(f_best <= lf[i], best, x[i])]
+
 
 class Uniform(ValueModel):
     family = "uniform"
@@ -853,7 +854,8 @@ class KernelSmoothed(ValueModel):
 
     def kink_values(self):
         """The dips of the density in the gaps between neighbouring sample values more
-        than two bandwidths apart (closer ones cannot part two kernels into two modes)."""
+        than two bandwidths apart (two equal kernels 2h apart or closer make one mode,
+        so a narrower gap holds no deep dip)."""
         if self._dips is None:
             i = np.nonzero(np.diff(self.c) > 2.0 * self.h)[0]
             grid = np.concatenate((self.c[i], 0.5 * (self.c[i] + self.c[i + 1]), self.c[i + 1]))
