@@ -25,6 +25,7 @@ import math
 import numpy as np
 from scipy import optimize
 
+from . import budget
 from . import orderstats as os_
 from .errors import ParameterError
 from .models import Reflected
@@ -86,7 +87,7 @@ class ForwardAuction:
         if self._bid_nodes is None:
             up, low = self._growth(self.n - 1, 1)
             q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
-                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model)
+                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model, conditional=True)
             self._bid_nodes = q
         return self._bid_nodes
 
@@ -329,7 +330,6 @@ def ascending_revenue(auc):
                 extra.extend(math.copysign(v, lo_e) for v in np.geomspace(abs(lo_e), abs(hi_e), k + 2)[1:-1])
     if extra:
         edges = np.unique(np.concatenate((edges, extra)))
-    totals = []
     a, b = edges[:-1], edges[1:]
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
     # power-law tail becomes an exponential the rule integrates exactly.
@@ -337,19 +337,15 @@ def ascending_revenue(auc):
     sgn = np.sign(a + b)
     la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
     lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
-    for x, w in _GL:
-        half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
-        y = mid[:, None] + half[:, None] * x
-        hw = half[:, None] * w
-        pts = y.copy()
-        pts[logp] = sgn[logp, None] * np.exp(y[logp])
-        hw = np.where(logp[:, None], hw * pts, hw)  # dx = x dy
+
+    def integrand(x):
         if split is None:
-            tot = lo_end * auc.p_sale + float(np.sum(hw * sf2(pts)))
-        else:
-            up = pts >= split
-            tot = split + float(np.sum(np.where(up, hw * sf2(pts), -hw * cdf2(pts))))
-        totals.append(tot)
+            return sf2(x)
+        c = cdf2(x)
+        return np.where(x >= split, 1.0 - c, -c)
+
+    base = lo_end * auc.p_sale if split is None else split
+    totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
     # Power-law tails beyond the last edge, integrated in closed form.
     tail = 0.0
     if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
@@ -359,6 +355,43 @@ def ascending_revenue(auc):
         bot = edges[0]
         tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
     return totals[0] + tail, abs(totals[0] - totals[1])
+
+
+def _value_panel_sums(la, lb, logp, sgn, integrand):
+    """Per panel, the 24-node and the 16-node Gauss-Legendre integrals of
+    ``integrand`` over [la, lb], in x or (where ``logp``) in y = log|x|, dx = x dy."""
+    out = []
+    for x, w in _GL:
+        half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
+        y = mid[:, None] + half[:, None] * x
+        hw = half[:, None] * w
+        pts = y.copy()
+        pts[logp] = sgn[logp, None] * np.exp(y[logp])
+        hw = np.where(logp[:, None], hw * pts, hw)
+        out.append(np.sum(hw * integrand(pts), axis=1))
+    return out
+
+
+def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-14, max_panels=4000):
+    """Both rules' integrals over all panels, halving (in each panel's own coordinate)
+    any panel whose two rules disagree by more than rtol of the whole, so that steep
+    stretches the fixed edges do not resolve (a mixture's far-apart components) are
+    refined where they are and nowhere else."""
+    hi, lo = _value_panel_sums(la, lb, logp, sgn, integrand)
+    while True:
+        budget.check()
+        bad = np.abs(hi - lo) > rtol * (offset_scale + np.sum(np.abs(hi)))
+        if not np.any(bad) or len(la) + np.count_nonzero(bad) > max_panels:
+            break
+        mid = 0.5 * (la[bad] + lb[bad])
+        na, nb = np.concatenate((la[bad], mid)), np.concatenate((mid, lb[bad]))
+        nlog, nsgn = np.tile(logp[bad], 2), np.tile(sgn[bad], 2)
+        nhi, nlo = _value_panel_sums(na, nb, nlog, nsgn, integrand)
+        keep = ~bad
+        la, lb = np.concatenate((la[keep], na)), np.concatenate((lb[keep], nb))
+        logp, sgn = np.concatenate((logp[keep], nlog)), np.concatenate((sgn[keep], nsgn))
+        hi, lo = np.concatenate((hi[keep], nhi)), np.concatenate((lo[keep], nlo))
+    return float(np.sum(hi)), float(np.sum(lo))
 
 
 def _bid_outer(auc, integrand):

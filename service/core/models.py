@@ -166,6 +166,46 @@ def _positive_pdf(logpdf):
         return np.exp(logpdf)
 
 
+_DIP_PROBS = np.array([1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.05, 0.15, 0.3, 0.5, 0.7, 0.85, 0.95, 0.99,
+                       0.999, 1 - 1e-4, 1 - 1e-6, 1 - 1e-9, 1 - 1e-12])
+
+
+def density_dips(pdf, grid):
+    """Local minima of a density, found on a grid of values and refined together by a
+    golden-section search of log f (clipped where f underflows, so a wide gap gives a
+    point inside it).
+
+    Q'(u) = 1/f(Q(u)), so at a deep dip between far-apart clusters Q nearly jumps:
+    the rise across the gap happens within a stretch of u far shorter than any panel,
+    and no rule on a panel across it resolves it. Panels split there, as at a kink.
+    """
+    x = np.unique(np.asarray(grid, float)[np.isfinite(grid)])
+    if len(x) < 3:
+        return []
+
+    def log_f(z):
+        return np.log(np.maximum(pdf(z), 1e-300))
+
+    lf = log_f(x)
+    i = np.nonzero((lf[1:-1] < lf[:-2]) & (lf[1:-1] <= lf[2:]))[0] + 1
+    if len(i) == 0:
+        return []
+    g = 0.5 * (math.sqrt(5.0) - 1.0)
+    a, b = x[i - 1], x[i + 1]
+    c, d = b - g * (b - a), a + g * (b - a)
+    fc, fd = log_f(c), log_f(d)
+    for _ in range(60):  # each step keeps 0.618 of every bracket: 60 reach 3e-13 of it
+        left = fc <= fd  # the minimum lies in [a, d]; otherwise in [c, b]
+        a, b = np.where(left, a, c), np.where(left, d, b)
+        keep, f_keep = np.where(left, c, d), np.where(left, fc, fd)  # the surviving inner point
+        new = np.where(left, b - g * (b - a), a + g * (b - a))
+        f_new = log_f(new)
+        c, fc = np.where(left, new, keep), np.where(left, f_new, f_keep)
+        d, fd = np.where(left, keep, new), np.where(left, f_keep, f_new)
+    best, f_best = np.where(fc <= fd, c, d), np.minimum(fc, fd)
+    return [float(v) for v in np.where(f_best <= lf[i], best, x[i])]
+
+
 class Uniform(ValueModel):
     family = "uniform"
     parameters = {"low": Param(), "high": Param()}
@@ -773,6 +813,7 @@ class Mixture(ValueModel):
         self.lower_tail_index = min(m.lower_tail_index for m in live)
         if any(m.discrete for m in live):
             raise ParameterError("components", "a step (smoothing: none) empirical model cannot be mixed")
+        self._dips = None
 
     def _sum(self, method, x):
         x = np.asarray(x, float)
@@ -788,11 +829,16 @@ class Mixture(ValueModel):
         return self._sum("pdf", x)
 
     def kink_values(self):
+        """The components' kinks and finite bounds, and the dips of the mixed density
+        between components (see :func:`density_dips`)."""
         ks = []
         for w, m in zip(self.weights, self.models):
             if w > 0:
                 ks += list(m.kink_values()) + [b for b in (m.lower, m.upper) if math.isfinite(b)]
-        return sorted(set(ks))
+        if self._dips is None:
+            grid = np.concatenate([m.value_at(_DIP_PROBS, 1.0 - _DIP_PROBS) for w, m in zip(self.weights, self.models) if w > 0])
+            self._dips = density_dips(self.pdf, np.concatenate((grid, ks)))
+        return sorted(set(ks + self._dips))
 
     def _bracket(self, u, v):
         qs = np.array([m.value_at(u, v) for w, m in zip(self.weights, self.models) if w > 0])
@@ -810,6 +856,17 @@ class KernelSmoothed(ValueModel):
         self.c = np.sort(np.asarray(sample, float))
         self.h = float(bandwidth)
         self.wt = 1.0 / len(self.c)
+        self._dips = None
+
+    def kink_values(self):
+        """The dips of the density in the gaps between neighbouring sample values more
+        than two bandwidths apart (two equal kernels 2h apart or closer make one mode,
+        so a narrower gap holds no deep dip)."""
+        if self._dips is None:
+            i = np.nonzero(np.diff(self.c) > 2.0 * self.h)[0]
+            grid = np.concatenate((self.c[i], 0.5 * (self.c[i] + self.c[i + 1]), self.c[i + 1]))
+            self._dips = density_dips(self.pdf, grid)
+        return list(self._dips)
 
     def cdf(self, x):
         x = np.asarray(x, float)

@@ -106,8 +106,12 @@ class RankQuadrature:
             out.append((mid[:, None] + half[:, None] * x, half[:, None] * w, vals))
         return out
 
-    def fill(self, model, rtol=2e-14, max_rounds=60):
-        """Evaluate model values at the nodes, refining rough panels."""
+    def fill(self, model, rtol=2e-14, max_rounds=60, conditional=False):
+        """Evaluate model values at the nodes, refining rough panels: those whose two
+        rules differ by more than rtol of the whole integral or, with ``conditional``,
+        of the part at and below the panel's values (floored at 1e-12 of the whole).
+        Integrals conditioned on Y < v (the equilibrium bids) divide by that part, so
+        an error negligible for the whole can still dominate them."""
         if self.panels == 0:
             self.values_hi, self.values_lo = np.empty((0, len(_GL_HI[0]))), np.empty((0, len(_GL_LO[0])))
             return self
@@ -116,7 +120,10 @@ class RankQuadrature:
         for _ in range(max_rounds):
             budget.check()
             err = np.abs(np.sum(self.w_hi * vh, axis=1) - np.sum(self.w_lo * vl, axis=1))
-            scale = np.sum(np.abs(self.w_hi * vh)) + 1e-300
+            mass = np.sum(np.abs(self.w_hi * vh), axis=1)
+            scale = np.sum(mass) + 1e-300
+            if conditional:  # panels run up in t, i.e. down in value: the part below is a reversed cumsum
+                scale = np.maximum(np.cumsum(mass[::-1])[::-1], 1e-12 * scale)
             bad = err > rtol * scale
             if model.discrete or not np.any(bad) or self.panels > 4000:
                 break
