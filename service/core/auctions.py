@@ -341,8 +341,10 @@ def ascending_revenue(auc):
     def integrand(x):
         if split is None:
             return sf2(x)
-        c = cdf2(x)
-        return np.where(x >= split, 1.0 - c, -c)
+        up = x >= split
+        out = np.empty(x.shape)
+        out[up], out[~up] = sf2(x[up]), -cdf2(x[~up])
+        return out
 
     base = lo_end * auc.p_sale if split is None else split
     totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
