@@ -21,7 +21,7 @@ reserve at a drawn quantile inside the support.
 
 Every test runs derandomized with no example database (the same examples on
 every machine, so CI is reproducible) and no deadline. Example counts (the
-whole file takes about 30 s on 2 CPUs):
+whole file takes about 100 s on one CPU):
 
     test_rank_means_fall_with_rank                      60
     test_rank_quantiles_fall_with_rank                  40
