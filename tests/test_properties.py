@@ -413,29 +413,12 @@ def test_revenue_rises_with_bidders(spec, n):
 # ---------------------------------------------------------------------------
 RESERVES = st.one_of(st.none(), RESERVE_U)
 
-# ---- minimal falsifying examples of bugs in service/ (see each xfail's reason) ----
+# ---- minimal falsifying examples of bugs fixed in service/, kept as pinned examples ----
 U01 = Spec("uniform", (("low", 0.0), ("high", 1.0)))
 N01 = Spec("normal", (("mean", 0.0), ("sd", 1.0)))
 KERNEL_CLUSTER = Spec("kernel", (("sample", (0.0, 0.0, 0.0, 1.0, 6.0)),))
 KERNEL_DRAWN = Spec("kernel", (("sample", (0.0, 0.0, 0.0, 7.0, 0.5)),))
 MIX_APART = Spec("mixture", (("components", ((0.5, N01), (0.5, Spec("normal", (("mean", 17.0), ("sd", 1.0)))))),))
-BUG_RESERVE_BIDS = (
-    "service/core/auctions.py ForwardAuction.bids_at_s with a binding reserve (as of b6483a9): Uniform(0,1), "
-    "first_price: n=27, reserve 0.0625, v=0.15625 bids 0.150457914 (Krishna 2009 closed form "
-    "(n-1)v/n + r^n/(n v^(n-1)) = 0.150462963); n=500, reserve 0.5, v=0.9 bids 0.8404927 (0.8982); n=1000, "
-    "reserve 0.5 and reserve 0.9, v=0.95 both bid 0.9329476 (0.94905); without a reserve the bids are right")
-BUG_FLOOR_LOGPANEL = (
-    "service/core/auctions.py ascending_revenue: the panel from a tiny positive floor (the support's bottom or "
-    "the reserve) to the first edge runs in log|x| over hundreds of units with one 24-node rule: "
-    "Uniform(1e-300, 1), n=10, no reserve: ascending 0.8150649 against 9/11 = 0.8181818 (Krishna 2009, ch. 2); "
-    "second_price is right")
-BUG_NODE_BIDS = (
-    "service/core/auctions.py ForwardAuction.node_bids: bids at the lowest-tail nodes of the highest rival value "
-    "are far outside [floor, v] (Normal(0,1), n=100000: node v=3.2675 gets bid -3.19e6; Beta(1, 0.5623413), "
-    "n=10^6: node v=0.99999998541 gets bid 0.2714), and they enter the first-price variance through "
-    "(b - mean)^2 x weight: that Beta gives first_price revenue_sd 3.98e-9 > second_price 1.29e-10; "
-    "Normal(100,1), n=100000 gives first_price revenue_sd 0.12200612 against 0.12200597 (scipy quad), so "
-    "sd(a + bX) != b sd(X) by ~1e-9 |a|")
 
 
 @props(60)
