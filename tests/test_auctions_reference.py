@@ -700,7 +700,9 @@ def test_efficiency_and_surplus_with_reserve(family, n):
     if m.lower >= 0:
         e_top = mp_e_top(Q, n, 0.0)
         for res in rep.values():
-            assert res["efficiency"] < 1.0
+            # The item goes unsold with chance 2^-n; at n = 50 that is 9e-16, so the
+            # efficiency lies within rounding of 1 and only the approx check below holds.
+            assert res["efficiency"] < 1.0 or 0.5**n < 1e-15
             assert res["efficiency"] == pytest.approx(e_top_cut / e_top, rel=1e-9)
     for rule, res in rep.items():
         assert res["expected_bidder_surplus"] == pytest.approx(e_top_cut - res["expected_revenue"], rel=1e-8)

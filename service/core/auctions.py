@@ -21,6 +21,7 @@ Each rule's expected revenue comes by its own route, so that their agreement
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import optimize
@@ -182,12 +183,12 @@ class ForwardAuction:
         return np.sum(hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq)), axis=-1)
 
     def node_bids(self):
-        """For both rules: (t, dt, values, s, bids) at the inner quadrature's
-        nodes, bids by the panel recurrence plus the node's partial panel."""
+        """For both rules: the inner quadrature's nodes with the bids there (bids by
+        the panel recurrence plus the node's partial panel), as :class:`NodeBids`."""
         if self._node_bid_cache is not None:
             return self._node_bid_cache
         q = self._inner_quadrature()
-        k = self.n - 1.0
+        n, k = self.n, self.n - 1.0
         out = []
         half = 0.5 * (q.b - q.a)[:, None]
         for (t, dt, vals), (edges, se, d), tail in zip(q.rules(), self._bid_tail(), _TAIL):
@@ -195,14 +196,31 @@ class ForwardAuction:
             # The integrand shifted to each panel's right end, integrated spectrally
             # from every node to that end (no new value evaluations).
             g = vals * k * s * np.exp(k * (se[1:, None] - s))
-            part = half * (g @ tail.T) * np.exp(-k * (se[1:, None] - s))
-            bids = part + np.exp(-k * (se[1:, None] - s)) * d[1:, None]
+            shrink = np.exp(-k * (se[1:, None] - s))
+            bids = (half * (g @ tail.T) + d[1:, None]) * shrink
             # An equilibrium bid lies between the floor and the value; far out in the
             # tail, where the weights are negligible, rounding could break that.
             bids = np.minimum(np.maximum(bids, self.floor if math.isfinite(self.floor) else np.min(vals)), vals)
-            out.append((t, dt, vals, s, bids))
+            rivals = np.exp(-k * s)
+            one = np.exp(-s) * s
+            out.append(NodeBids(t, dt, vals, s, bids, rivals, one, n * rivals * one))
         self._node_bid_cache = out
         return out
+
+
+@dataclass(frozen=True)
+class NodeBids:
+    """One Gauss rule's nodes in t for the highest rival value, with what the bid
+    integrals need there; every density is per unit t, so sum(dt * density * h) = E[h]."""
+
+    t: np.ndarray
+    dt: np.ndarray
+    values: np.ndarray
+    s: np.ndarray  # -log F at the node's value
+    bids: np.ndarray  # the first-price equilibrium bid b(v)
+    rivals: np.ndarray  # F(v)^(n-1): the chance that v beats every rival
+    one: np.ndarray  # one bidder's value density
+    top: np.ndarray  # the highest of the n values' density, n F^(n-1) times one
 
 
 def _quad_cut(auc, rank):
@@ -397,15 +415,14 @@ def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-
 
 
 def _bid_outer(auc, integrand):
-    """Sum over the bid nodes of dt * integrand(s, v, b), for both rules."""
-    vals = [float(np.sum(dt * integrand(s, v, b))) for (t, dt, v, s, b) in auc.node_bids()]
+    """Sum over the bid nodes of dt * integrand(nodes), for both rules."""
+    vals = [float(np.sum(nb.dt * integrand(nb))) for nb in auc.node_bids()]
     return vals[0], abs(vals[0] - vals[1])
 
 
 def first_price_revenue(auc):
     """E[b(X1) 1{X1 >= r}]: the winner pays its own equilibrium bid."""
-    n = auc.n
-    return _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * b)
+    return _bid_outer(auc, lambda nb: nb.top * nb.bids)
 
 
 def descending_revenue(auc):
@@ -419,23 +436,22 @@ def descending_revenue(auc):
     t_c = edges[c]
     floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
     vals = []
-    for (t, dt, v, s, b), (_, _, d) in zip(auc.node_bids(), auc._bid_tail()):
-        shade = k * (v - b) * s
-        weight = np.where(t < t_c, -np.expm1(-n * s), -np.exp(-n * s))
-        vals.append(d[c] - floor_term + float(np.sum(dt * shade * weight)))
+    for nb, (_, _, d) in zip(auc.node_bids(), auc._bid_tail()):
+        shade = k * (nb.values - nb.bids) * nb.s
+        weight = np.where(nb.t < t_c, -np.expm1(-n * nb.s), -np.exp(-n * nb.s))
+        vals.append(d[c] - floor_term + float(np.sum(nb.dt * shade * weight)))
     return vals[0], abs(vals[0] - vals[1])
 
 
 def all_pay_revenue(auc):
     """n E[a(X) 1{X >= r}], a(v) = F(v)^(n-1) b(v): every bidder pays its bid."""
-    n, k = auc.n, auc.n - 1.0
-    return _bid_outer(auc, lambda s, v, b: n * np.exp(-s) * s * np.exp(-k * s) * b)
+    n = auc.n
+    return _bid_outer(auc, lambda nb: n * nb.one * nb.rivals * nb.bids)
 
 
 def _bid_price_stats(auc, mean):
     """Variance of the price b(X1) 1{sale}, shared by first-price and descending."""
-    n = auc.n
-    var, _ = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * (b - mean) ** 2)
+    var, _ = _bid_outer(auc, lambda nb: nb.top * (nb.bids - mean) ** 2)
     return var + (1.0 - auc.p_sale) * mean**2
 
 
@@ -458,11 +474,10 @@ def _bid_price_quantiles(auc, ps):
 
 
 def _all_pay_stats(auc):
-    n, k = auc.n, auc.n - 1.0
-    ea, _ = _bid_outer(auc, lambda s, v, b: np.exp(-s) * s * np.exp(-k * s) * b)
-    ea2, _ = _bid_outer(auc, lambda s, v, b: np.exp(-s) * s * (np.exp(-k * s) * b) ** 2)
-    winner_pays, _ = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * np.exp(-k * s) * b)
-    return n * max(ea2 - ea * ea, 0.0), winner_pays
+    ea, _ = _bid_outer(auc, lambda nb: nb.one * nb.rivals * nb.bids)
+    ea2, _ = _bid_outer(auc, lambda nb: nb.one * (nb.rivals * nb.bids) ** 2)
+    winner_pays, _ = _bid_outer(auc, lambda nb: nb.top * nb.rivals * nb.bids)
+    return auc.n * max(ea2 - ea * ea, 0.0), winner_pays
 
 
 ROUTES = {
@@ -487,7 +502,7 @@ def forward_figures(auc, rules, quantiles):
     elif n == 1 or not bid_rules:  # no bids needed: the highest value's own quadrature
         e_win_value = _quad_cut(auc, 1).integrate(lambda x: x)[0]
     else:
-        e_win_value = _bid_outer(auc, lambda s, v, b: n * np.exp(-n * s) * s * v)[0]
+        e_win_value = _bid_outer(auc, lambda nb: nb.top * nb.values)[0]
     eff = _efficiency(auc, e_win_value, warnings)
     out, shared = {}, {}
     for rule in rules:

@@ -354,12 +354,26 @@ def rank_summary(model, n, r):
 def rank_quantiles(model, n, r, ps):
     """The p-quantiles of rank r of n: Q at the Beta(m, r) quantiles."""
     ps = np.asarray(ps, float)
-    m = n - r + 1.0
-    u = sp.betaincinv(m, float(r), ps)
-    v = sp.betainccinv(float(r), m, ps)
+    if ps.ndim == 1 and len(ps) <= 64:
+        u, v = _beta_quantiles(n, r, tuple(ps.tolist()))
+    else:
+        u, v = _beta_quantiles.__wrapped__(n, r, ps)
     if model.discrete:
         return model.ppf(np.where(v < 0.5, 1.0 - v, u))
     return model.value_at(np.where(v < 0.5, 1.0 - v, u), np.where(v < 0.5, v, 1.0 - u))
+
+
+@functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
+def _beta_quantiles(n, r, ps):
+    """U ~ Beta(m, r) at probabilities ps, from below (u) and from above (v = P-quantile of 1 - U),
+    each from the inverse that keeps its digits. Model-free, so the common probability
+    sets (the default quantiles, the ascending route's edges) are computed once per worker."""
+    m = n - r + 1.0
+    u = sp.betaincinv(m, float(r), ps)
+    v = sp.betainccinv(float(r), m, ps)
+    if isinstance(ps, tuple):
+        u.flags.writeable = v.flags.writeable = False
+    return u, v
 
 
 def rank_cdf(model, n, r, x):
