@@ -72,6 +72,7 @@ class ForwardAuction:
         self._bid_tails = None
         self._sp_quad = None
         self._node_bid_cache = None
+        self._closed = {}
 
     # ---- shared pieces -----------------------------------------------------
     def _growth(self, n, r):
@@ -232,11 +233,12 @@ def _quad_cut(auc, rank):
 
 def _closed_moments(auc, rank):
     """(mean, variance) of the rank-th highest value where the family has them in
-    closed form and no reserve binds (the price is then that value itself), else None."""
-    closed = getattr(auc.model, "closed_rank_moments", None)
-    if closed is None or auc.reserve_binds:
-        return None
-    return closed(auc.n, rank)
+    closed form and no reserve binds (the price is then that value itself), else None.
+    Asked by several rules' figures, so kept on the auction."""
+    if rank not in auc._closed:
+        closed = getattr(auc.model, "closed_rank_moments", None)
+        auc._closed[rank] = None if closed is None or auc.reserve_binds else closed(auc.n, rank)
+    return auc._closed[rank]
 
 
 def _second_price_atoms(auc):

@@ -395,9 +395,7 @@ def _rank_tail(model, n, r, x, upper):
     shape = np.shape(x)
     x = np.atleast_1d(np.asarray(x, float))
     s = np.broadcast_to(model.sf(x), x.shape)
-    by_s = s < 0.5
-    if upper and r <= m:
-        by_s = np.isfinite(s)
+    by_s = np.isfinite(s) if upper and r <= m else s < 0.5
     out = np.empty(x.shape)
     if np.any(by_s):
         out[by_s] = (sp.betainc if upper else sp.betaincc)(r, m, s[by_s])
