@@ -39,13 +39,28 @@ ASSUMPTIONS = [
     "symmetric equilibrium play (truthful bidding where it is dominant)",
     "a single indivisible item or contract, no entry costs, no collusion",
 ]
-_GL = (np.polynomial.legendre.leggauss(24), np.polynomial.legendre.leggauss(16))
+_GL = os_.GAUSS_RULES
 
 
-# M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial.
+# M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial,
+# for each rule; as one block-diagonal matrix (transposed) for both rules side by side.
 _TAIL = tuple(os_.partial_panel_weights(1.0, i) - os_.partial_panel_weights(x, i) for i, (x, _) in enumerate(_GL))
+_TAIL_BOTH = np.zeros((len(os_.BOTH_NODES),) * 2)
+_TAIL_BOTH[:os_.RULE_SPLIT, :os_.RULE_SPLIT] = _TAIL[0].T
+_TAIL_BOTH[os_.RULE_SPLIT:, os_.RULE_SPLIT:] = _TAIL[1].T
 _P_EDGES = np.array([1e-15, 1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.03, 0.1, 0.2, 0.35, 0.5,
                      0.65, 0.8, 0.9, 0.97, 0.99, 0.999, 1 - 1e-4, 1 - 1e-6, 1 - 1e-9, 1 - 1e-12, 1 - 1e-15])
+
+
+def _discounted_tails(panel, w, end):
+    """d with d[P] = end and d[i] = e^-(w[i+1] - w[i]) (panel[i] + d[i+1]) for the P
+    panels between edges w (increasing): every factor is at most 1, so nothing
+    overflows. A plain loop over Python floats: P is a few dozen."""
+    shrink, panel = np.exp(w[:-1] - w[1:]).tolist(), panel.tolist()
+    d = [0.0] * len(shrink) + [end]
+    for i in range(len(shrink) - 1, -1, -1):
+        d[i] = shrink[i] * (panel[i] + d[i + 1])
+    return np.array(d)
 
 
 def _neg_log_cdf(model, x):
@@ -94,27 +109,24 @@ class ForwardAuction:
         return self._bid_nodes
 
     def _bid_tail(self):
-        """D_k: the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from each panel
-        edge k to the reserve, shifted by e^((n-1) s_k) so nothing overflows.
-        Computed once per auction."""
+        """The inner quadrature's nodes with the pieces of the bid integral, as
+        :class:`BidTail`. Computed once per auction."""
         if self._bid_tails is not None:
             return self._bid_tails
         q = self._inner_quadrature()
         k = self.n - 1.0
         edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
         se = np.exp(edges) / k
-        out = []
-        for t, dt, vals in q.rules():
-            s = np.exp(t) / k
-            panel = np.sum(dt * vals * k * s * np.exp(-k * (s - se[:-1, None])), axis=1)
-            d = np.zeros(len(edges))
-            end_mass = self.floor * math.exp(-k * (self.s_r - se[-1])) if math.isfinite(self.s_r) else 0.0
-            d[-1] = end_mass if self.floor != -math.inf else 0.0
-            for i in range(len(edges) - 2, -1, -1):
-                d[i] = panel[i] + math.exp(-k * (se[i + 1] - se[i])) * d[i + 1]
-            out.append((edges, se, d))
-        self._bid_tails = out
-        return out
+        t, dt, vals = q.stacked()
+        s = np.exp(t) / k
+        growth = np.exp(k * (se[1:, None] - s))
+        g = vals * k * s * growth
+        end_mass = self.floor * math.exp(-k * (self.s_r - se[-1])) if math.isfinite(self.s_r) else 0.0
+        end_mass = end_mass if self.floor != -math.inf else 0.0
+        panels = (dt * g) @ os_.RULE_COLUMNS
+        d = np.array([_discounted_tails(panels[:, i], k * se, end_mass) for i in (0, 1)])
+        self._bid_tails = BidTail(edges, se, d, t, dt, vals, s, g, growth)
+        return self._bid_tails
 
     def _partial(self, s_q, s_end):
         """Integral of v (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
@@ -145,23 +157,23 @@ class ForwardAuction:
             return np.full(s_q.shape, self.floor)
         k = self.n - 1.0
         q = self._inner_quadrature()
-        edges, se, d = self._bid_tail()[0]
+        tail = self._bid_tail()
+        edges, se, d = tail.edges, tail.se, tail.d[0]
         # The panel recurrence is exact out to the cut when the panels reach it; where they
         # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
         ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
         reach = math.inf if ends_at_cut else k * se[-1] - 36.0
         flat = s_q.ravel()
         res = np.full(flat.shape, math.nan)
-        with np.errstate(invalid="ignore"):
-            live = flat <= self.s_r
-            on_panels = live & (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach) if q.panels else np.zeros(flat.shape, bool)
-        if np.any(on_panels):
+        live = flat <= self.s_r  # comparisons with NaN are False and do not warn
+        on_panels = live & (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach) if q.panels else np.zeros(flat.shape, bool)
+        if on_panels.any():
             # Within the panels: the node's partial panel, then the recurrence from its right edge.
             sq = flat[on_panels]
             j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
             part = self._sub_integral(np.log(k * sq), edges[j + 1])
             res[on_panels] = part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
-        for i in np.nonzero(live & ~on_panels)[0]:
+        for i in (np.nonzero(live & ~on_panels)[0] if not on_panels.all() else ()):
             sq = flat[i]
             if q.panels and sq < se[0]:
                 res[i] = self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
@@ -184,35 +196,49 @@ class ForwardAuction:
         return np.sum(hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq)), axis=-1)
 
     def node_bids(self):
-        """For both rules: the inner quadrature's nodes with the bids there (bids by
-        the panel recurrence plus the node's partial panel), as :class:`NodeBids`."""
+        """The inner quadrature's nodes with the bids there (bids by the panel
+        recurrence plus the node's partial panel), as :class:`NodeBids`."""
         if self._node_bid_cache is not None:
             return self._node_bid_cache
         q = self._inner_quadrature()
         n, k = self.n, self.n - 1.0
-        out = []
+        tail = self._bid_tail()
+        # g integrated spectrally from every node to its panel's right end (no new value
+        # evaluations), plus each rule's tail beyond, shifted back to the node.
         half = 0.5 * (q.b - q.a)[:, None]
-        for (t, dt, vals), (edges, se, d), tail in zip(q.rules(), self._bid_tail(), _TAIL):
-            s = np.exp(t) / k
-            # The integrand shifted to each panel's right end, integrated spectrally
-            # from every node to that end (no new value evaluations).
-            g = vals * k * s * np.exp(k * (se[1:, None] - s))
-            shrink = np.exp(-k * (se[1:, None] - s))
-            bids = (half * (g @ tail.T) + d[1:, None]) * shrink
-            # An equilibrium bid lies between the floor and the value; far out in the
-            # tail, where the weights are negligible, rounding could break that.
-            bids = np.minimum(np.maximum(bids, self.floor if math.isfinite(self.floor) else np.min(vals)), vals)
-            rivals = np.exp(-k * s)
-            one = np.exp(-s) * s
-            out.append(NodeBids(t, dt, vals, s, bids, rivals, one, n * rivals * one))
-        self._node_bid_cache = out
-        return out
+        bids = (half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / tail.growth
+        # An equilibrium bid lies between the floor and the value; far out in the
+        # tail, where the weights are negligible, rounding could break that.
+        vals, s = tail.values, tail.s
+        bids = np.minimum(np.maximum(bids, self.floor if math.isfinite(self.floor) else np.min(vals)), vals)
+        rivals = np.exp(-k * s)
+        one = np.exp(-s) * s
+        self._node_bid_cache = NodeBids(tail.t, tail.dt, vals, s, bids, rivals, one, n * rivals * one,
+                                        tail.dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1)))
+        return self._node_bid_cache
+
+
+@dataclass(frozen=True)
+class BidTail:
+    """The inner quadrature's nodes (both Gauss rules side by side, as in
+    ``RankQuadrature.stacked``) and the panel recurrence of the bid integral."""
+
+    edges: np.ndarray  # t at the panel edges
+    se: np.ndarray  # s = -log F at the panel edges
+    d: np.ndarray  # (2, panels + 1): per rule, the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
+    t: np.ndarray
+    dt: np.ndarray
+    values: np.ndarray
+    s: np.ndarray
+    g: np.ndarray  # v (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
+    growth: np.ndarray  # e^((n-1)(se_right - s)), that shift
 
 
 @dataclass(frozen=True)
 class NodeBids:
-    """One Gauss rule's nodes in t for the highest rival value, with what the bid
-    integrals need there; every density is per unit t, so sum(dt * density * h) = E[h]."""
+    """Both Gauss rules' nodes in t for the highest rival value (side by side, the
+    24-node rule first), with what the bid integrals need there; every density is
+    per unit t, so each rule's sum of dt * density * h is E[h]."""
 
     t: np.ndarray
     dt: np.ndarray
@@ -222,6 +248,15 @@ class NodeBids:
     rivals: np.ndarray  # F(v)^(n-1): the chance that v beats every rival
     one: np.ndarray  # one bidder's value density
     top: np.ndarray  # the highest of the n values' density, n F^(n-1) times one
+    rule_dt: np.ndarray  # (nodes, 2): dt in each rule's column
+
+    def integrals(self, h):
+        """Sum of dt * h over the nodes, by the 24-node and by the 16-node rule."""
+        return h.reshape(-1) @ self.rule_dt
+
+    def first_rule(self, a):
+        """The 24-node rule's columns of a node array, flattened."""
+        return a[:, :os_.RULE_SPLIT].ravel()
 
 
 def _quad_cut(auc, rank):
@@ -283,9 +318,9 @@ def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
     out = np.zeros(ps.shape)
     lo = ps <= below
     hi = ps > below + p0
-    if np.any(lo):
+    if lo.any():
         out[lo] = sale_quantile(ps[lo])
-    if np.any(hi):
+    if hi.any():
         out[hi] = sale_quantile(np.minimum(ps[hi] - p0, auc.p_sale))
     return out
 
@@ -341,19 +376,20 @@ def ascending_revenue(auc):
 
     # A panel spanning many decades on one side of zero (a floor of 1e-300, say) is
     # cut into pieces of at most e^3, which the log-|x| rule below integrates exactly.
-    extra = []
-    for lo_e, hi_e in zip(edges[:-1], edges[1:]):
-        if lo_e * hi_e > 0:
-            span = abs(math.log(abs(hi_e) / abs(lo_e)))
-            if span > 3.0:
-                k = min(int(span / 3.0), 400)
-                extra.extend(math.copysign(v, lo_e) for v in np.geomspace(abs(lo_e), abs(hi_e), k + 2)[1:-1])
-    if extra:
-        edges = np.unique(np.concatenate((edges, extra)))
     a, b = edges[:-1], edges[1:]
+    same_side = a * b > 0
+    log_ratio = np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
+    wide = np.nonzero(log_ratio > 3.0)[0]
+    if wide.size:
+        extra = [math.copysign(v, a[i]) for i in wide
+                 for v in np.geomspace(abs(a[i]), abs(b[i]), min(int(log_ratio[i] / 3.0), 400) + 2)[1:-1]]
+        edges = np.unique(np.concatenate((edges, extra)))
+        a, b = edges[:-1], edges[1:]
+        same_side = a * b > 0
+        log_ratio = np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
     # power-law tail becomes an exponential the rule integrates exactly.
-    logp = (a * b > 0) & (np.maximum(np.abs(a), np.abs(b)) > 2.0 * np.minimum(np.abs(a), np.abs(b)))
+    logp = same_side & (log_ratio > math.log(2.0))
     sgn = np.sign(a + b)
     la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
     lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
@@ -381,17 +417,16 @@ def ascending_revenue(auc):
 
 def _value_panel_sums(la, lb, logp, sgn, integrand):
     """Per panel, the 24-node and the 16-node Gauss-Legendre integrals of
-    ``integrand`` over [la, lb], in x or (where ``logp``) in y = log|x|, dx = x dy."""
-    out = []
-    for x, w in _GL:
-        half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
-        y = mid[:, None] + half[:, None] * x
-        hw = half[:, None] * w
-        pts = y.copy()
-        pts[logp] = sgn[logp, None] * np.exp(y[logp])
-        hw = np.where(logp[:, None], hw * pts, hw)
-        out.append(np.sum(hw * integrand(pts), axis=1))
-    return out
+    ``integrand`` over [la, lb], in x or (where ``logp``) in y = log|x|, dx = x dy.
+    Both rules' nodes go to ``integrand`` in one call."""
+    half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
+    y = mid[:, None] + half[:, None] * os_.BOTH_NODES
+    hw = half[:, None] * os_.BOTH_WEIGHTS
+    pts = y.copy()
+    pts[logp] = sgn[logp, None] * np.exp(y[logp])
+    hw = np.where(logp[:, None], hw * pts, hw)
+    sums = (hw * integrand(pts)) @ os_.RULE_COLUMNS
+    return sums[:, 0], sums[:, 1]
 
 
 def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-14, max_panels=4000):
@@ -402,8 +437,8 @@ def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-
     hi, lo = _value_panel_sums(la, lb, logp, sgn, integrand)
     while True:
         budget.check()
-        bad = np.abs(hi - lo) > rtol * (offset_scale + np.sum(np.abs(hi)))
-        if not np.any(bad) or len(la) + np.count_nonzero(bad) > max_panels:
+        bad = np.abs(hi - lo) > rtol * (offset_scale + np.abs(hi).sum())
+        if not bad.any() or len(la) + np.count_nonzero(bad) > max_panels:
             break
         mid = 0.5 * (la[bad] + lb[bad])
         na, nb = np.concatenate((la[bad], mid)), np.concatenate((mid, lb[bad]))
@@ -417,9 +452,10 @@ def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-
 
 
 def _bid_outer(auc, integrand):
-    """Sum over the bid nodes of dt * integrand(nodes), for both rules."""
-    vals = [float(np.sum(nb.dt * integrand(nb))) for nb in auc.node_bids()]
-    return vals[0], abs(vals[0] - vals[1])
+    """E[integrand(nodes)] over the bid nodes, and the two rules' difference."""
+    nb = auc.node_bids()
+    hi, lo = nb.integrals(integrand(nb)).tolist()
+    return hi, abs(hi - lo)
 
 
 def first_price_revenue(auc):
@@ -432,17 +468,14 @@ def descending_revenue(auc):
     E = b(c) - r F(r)^n + int_c^inf b' (1 - F^n) dv - int_r^c b' F^n dv,
     with b' dv = -(n-1) (v - b) ds from the equilibrium equation."""
     n, k = auc.n, auc.n - 1.0
-    q = auc._inner_quadrature()
-    edges = np.append(q.a, q.b[-1])
-    c = int(np.argmin(np.abs(edges - math.log(k / n))))
-    t_c = edges[c]
+    tail, nb = auc._bid_tail(), auc.node_bids()
+    c = int(np.argmin(np.abs(tail.edges - math.log(k / n))))
+    t_c = tail.edges[c]
     floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
-    vals = []
-    for nb, (_, _, d) in zip(auc.node_bids(), auc._bid_tail()):
-        shade = k * (nb.values - nb.bids) * nb.s
-        weight = np.where(nb.t < t_c, -np.expm1(-n * nb.s), -np.exp(-n * nb.s))
-        vals.append(d[c] - floor_term + float(np.sum(nb.dt * shade * weight)))
-    return vals[0], abs(vals[0] - vals[1])
+    shade = k * (nb.values - nb.bids) * nb.s
+    weight = np.where(nb.t < t_c, -np.expm1(-n * nb.s), -np.exp(-n * nb.s))
+    hi, lo = (tail.d[:, c] - floor_term + nb.integrals(shade * weight)).tolist()
+    return hi, abs(hi - lo)
 
 
 def all_pay_revenue(auc):

@@ -257,6 +257,18 @@ class _StandardNormalScale(ValueModel):
     def logsf(self, x):
         return sp.log_ndtr(-self._z(x))
 
+    def value_at(self, u, v):
+        """One ndtri call on the smaller tail probability, so both tails stay precise."""
+        u, v = np.asarray(u, dtype=float), np.asarray(v, dtype=float)
+        z = sp.ndtri(np.minimum(u, v))
+        return self._from_z(np.where(v < 0.5, -z, z))
+
+    def ppf(self, u):
+        return self._from_z(sp.ndtri(u))
+
+    def isf(self, v):
+        return self._from_z(-sp.ndtri(v))
+
 
 class Normal(_StandardNormalScale):
     family = "normal"
@@ -272,11 +284,8 @@ class Normal(_StandardNormalScale):
         z = self._z(x)
         return np.exp(-0.5 * z * z) / (self.sd * math.sqrt(2 * math.pi))
 
-    def ppf(self, u):
-        return self.mu + self.sd * sp.ndtri(u)
-
-    def isf(self, v):
-        return self.mu - self.sd * sp.ndtri(v)
+    def _from_z(self, z):
+        return self.mu + self.sd * z
 
 
 class LogNormal(_StandardNormalScale):
@@ -313,9 +322,8 @@ class LogNormal(_StandardNormalScale):
             raise ParameterError("median", "give median and sigma, or mean and sd")
 
     def _z(self, x):
-        x = np.asarray(x, float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(x > 0, (np.log(np.where(x > 0, x, 1.0)) - self.mu) / self.sigma, -INF)
+        with np.errstate(divide="ignore"):  # log 0 = -inf: no value at or below 0
+            return (np.log(np.fmax(np.asarray(x, float), 0.0)) - self.mu) / self.sigma
 
     def pdf(self, x):
         x = np.asarray(x, float)
@@ -324,11 +332,8 @@ class LogNormal(_StandardNormalScale):
             d = np.exp(-0.5 * z * z) / (np.where(x > 0, x, 1.0) * self.sigma * math.sqrt(2 * math.pi))
         return np.where(x > 0, d, 0.0)
 
-    def ppf(self, u):
-        return np.exp(self.mu + self.sigma * sp.ndtri(u))
-
-    def isf(self, v):
-        return np.exp(self.mu - self.sigma * sp.ndtri(v))
+    def _from_z(self, z):
+        return np.exp(self.mu + self.sigma * z)
 
 
 class Exponential(ValueModel):

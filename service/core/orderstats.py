@@ -25,6 +25,14 @@ from . import budget
 
 _GL_HI = np.polynomial.legendre.leggauss(24)
 _GL_LO = np.polynomial.legendre.leggauss(16)
+GAUSS_RULES = (_GL_HI, _GL_LO)
+# Both rules side by side, for integrands evaluated once for the pair: columns
+# [:RULE_SPLIT] hold the 24-node rule, the rest the 16-node rule, and
+# x @ RULE_COLUMNS sums each rule's columns of x separately.
+BOTH_NODES, BOTH_WEIGHTS = (np.concatenate(v) for v in zip(*GAUSS_RULES))
+RULE_SPLIT = len(_GL_HI[0])
+RULE_COLUMNS = np.zeros((len(BOTH_NODES), 2))
+RULE_COLUMNS[:RULE_SPLIT, 0] = RULE_COLUMNS[RULE_SPLIT:, 1] = 1.0
 
 
 def _lagrange_antiderivatives(x):
@@ -62,6 +70,13 @@ def _log_weight(t, m, r, lognorm):
     w = np.exp(t)
     with np.errstate(divide="ignore"):
         return t - w + (r - 1.0) * np.log(-np.expm1(-w / m)) - lognorm
+
+
+def _values_both(model, u_hi, v_hi, u_lo, v_lo):
+    """The model's values at both rules' nodes, from one ``value_at`` call."""
+    k = u_hi.size
+    vals = model.value_at(np.concatenate((u_hi.ravel(), u_lo.ravel())), np.concatenate((v_hi.ravel(), v_lo.ravel())))
+    return vals[:k].reshape(u_hi.shape), vals[k:].reshape(u_lo.shape)
 
 
 class RankQuadrature:
@@ -106,6 +121,12 @@ class RankQuadrature:
             out.append((mid[:, None] + half[:, None] * x, half[:, None] * w, vals))
         return out
 
+    def stacked(self):
+        """(t nodes, dt weights, values), both rules side by side: (panels, 24 + 16)."""
+        half, mid = 0.5 * (self.b - self.a), 0.5 * (self.b + self.a)
+        t = mid[:, None] + half[:, None] * BOTH_NODES
+        return t, half[:, None] * BOTH_WEIGHTS, np.hstack((self.values_hi, self.values_lo))
+
     def fill(self, model, rtol=2e-14, max_rounds=60, conditional=False):
         """Evaluate model values at the nodes, refining rough panels: those whose two
         rules differ by more than rtol of the whole integral or, with ``conditional``,
@@ -115,8 +136,7 @@ class RankQuadrature:
         if self.panels == 0:
             self.values_hi, self.values_lo = np.empty((0, len(_GL_HI[0]))), np.empty((0, len(_GL_LO[0])))
             return self
-        vh = model.value_at(self.u_hi, self.v_hi)
-        vl = model.value_at(self.u_lo, self.v_lo)
+        vh, vl = _values_both(model, self.u_hi, self.v_hi, self.u_lo, self.v_lo)
         for _ in range(max_rounds):
             budget.check()
             err = np.abs(np.sum(self.w_hi * vh, axis=1) - np.sum(self.w_lo * vl, axis=1))
@@ -125,7 +145,7 @@ class RankQuadrature:
             if conditional:  # panels run up in t, i.e. down in value: the part below is a reversed cumsum
                 scale = np.maximum(np.cumsum(mass[::-1])[::-1], 1e-12 * scale)
             bad = err > rtol * scale
-            if model.discrete or not np.any(bad) or self.panels > 4000:
+            if model.discrete or not bad.any() or self.panels > 4000:
                 break
             a, b = self.a[bad], self.b[bad]
             mid = 0.5 * (a + b)
@@ -135,8 +155,9 @@ class RankQuadrature:
             uh, vvh, _ = self._nodes(na, nb, _GL_HI)
             ul, vvl, _ = self._nodes(na, nb, _GL_LO)
             order = self._set_panels(np.concatenate((old_a, na)), np.concatenate((old_b, nb)))
-            vh = np.concatenate((keep_h, model.value_at(uh, vvh)))[order]
-            vl = np.concatenate((keep_l, model.value_at(ul, vvl)))[order]
+            new_h, new_l = _values_both(model, uh, vvh, ul, vvl)
+            vh = np.concatenate((keep_h, new_h))[order]
+            vl = np.concatenate((keep_l, new_l))[order]
         self.values_hi, self.values_lo = vh, vl
         return self
 
@@ -396,10 +417,12 @@ def _rank_tail(model, n, r, x, upper):
     x = np.atleast_1d(np.asarray(x, float))
     s = np.broadcast_to(model.sf(x), x.shape)
     by_s = np.isfinite(s) if upper and r <= m else s < 0.5
+    if by_s.all():
+        return (sp.betainc if upper else sp.betaincc)(r, m, s).reshape(shape)
     out = np.empty(x.shape)
-    if np.any(by_s):
+    if by_s.any():
         out[by_s] = (sp.betainc if upper else sp.betaincc)(r, m, s[by_s])
-    if not np.all(by_s):
+    if not by_s.all():
         f = model.cdf(x[~by_s])
         out[~by_s] = (sp.betaincc if upper else sp.betainc)(m, r, f)
     return out.reshape(shape)

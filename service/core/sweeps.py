@@ -91,9 +91,9 @@ def _block(model, n, reserves, v0):
 
     # First price and all-pay on the nodes of the highest rival value.
     auc = ForwardAuction(model, n, None, v0)
-    nb = auc.node_bids()[0]
+    nb = auc.node_bids()
     q1 = auc._inner_quadrature()
-    v1, s1, b0 = nb.values.ravel(), nb.s.ravel(), nb.bids.ravel()
+    v1, s1, b0 = nb.first_rule(nb.values), nb.first_rule(nb.s), nb.first_rule(nb.bids)
     W1 = q1.cut_weights(_t_of(s_r, k))
     b0_r = _bids_at_reserves(auc, q1, floor, s_r, binds)
     delta = np.where(binds, floor - b0_r, 0.0)
@@ -107,11 +107,11 @@ def _block(model, n, reserves, v0):
             i3 = np.where(np.isfinite(s_r), n * np.exp(-n * s_r) * -np.expm1(-(n - 2.0) * s_r) / (n - 2.0), 0.0)
         else:
             i3 = np.where(np.isfinite(s_r), 2.0 * s_r * np.exp(-2.0 * s_r), 0.0)
-    outer, single = nb.top.ravel(), nb.one.ravel()  # densities per dt: the highest value's, one bidder's
+    outer, single = nb.first_rule(nb.top), nb.first_rule(nb.one)  # densities per dt: the highest value's, one bidder's
     rev_fp = W1 @ (outer * b0) + delta * n * g_r * sx
     m2_fp = W1 @ (outer * (b0 - c) ** 2) + 2.0 * delta * g_r * (W1 @ (n * single * (b0 - c))) + delta**2 * i3 + p0 * c * c
     out["fp"] = (rev_fp, m2_fp - (rev_fp - c) ** 2, rev_fp)
-    a0 = nb.rivals.ravel() * b0  # a_r(v) = F(v)^(n-1) b_0(v) + G(r) delta
+    a0 = nb.first_rule(nb.rivals) * b0  # a_r(v) = F(v)^(n-1) b_0(v) + G(r) delta
     lift = g_r * delta
     ea = W1 @ (single * a0) + lift * sx
     ea2 = W1 @ (single * a0 * a0) + 2.0 * lift * (W1 @ (single * a0)) + lift**2 * sx
@@ -134,7 +134,8 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
     and a spectral partial panel, elsewhere by the standalone route."""
     k = auc.n - 1.0
     out = floor.copy()
-    edges, se, d = auc._bid_tail()[0]
+    tail = auc._bid_tail()
+    edges, se, d = tail.edges, tail.se, tail.d[0]
     t_r = _t_of(s_r, k)
     inside = binds & (t_r >= q.a[0]) & (t_r < q.b[-1]) & (k * s_r <= k * se[-1] - 36.0)
     if np.any(inside):
