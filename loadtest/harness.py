@@ -311,17 +311,39 @@ THROUGHPUT_SHAPES = (
 THROUGHPUT_TARGETS = {"closed form": 0.50, "numeric": 0.25}  # fractions of /healthz's requests per second
 
 
-def measure_throughput(base_url, start_wrk, warm_up_s=1, measure_s=6, connections=4):
-    """Each shape under wrk in turn, after a warm-up of each: ({name: WrkResult}, lines of a report).
-    ``start_wrk(url, body=, seconds=, connections=)`` starts one bounded run."""
+def combine(rounds):
+    """One WrkResult from several runs of the same shape: counts and time summed,
+    the mean weighted by requests, max the largest, and each latency percentile
+    the median of the runs' (wrk gives percentiles per run, not their histograms)."""
+    def median(xs):
+        xs = sorted(xs)
+        return xs[len(xs) // 2]
+    total = sum(r.requests for r in rounds)
+    sums = {f: sum(getattr(r, f) for r in rounds)
+            for f in ("requests", "duration_us", "bytes", "connect", "read", "write", "status_errors", "timeout", "non2xx")}
+    return WrkResult(**sums, mean_us=sum(r.mean_us * r.requests for r in rounds) / total if total else 0.0,
+                     p50_us=median([r.p50_us for r in rounds]), p90_us=median([r.p90_us for r in rounds]),
+                     p99_us=median([r.p99_us for r in rounds]), max_us=max(r.max_us for r in rounds),
+                     raw="\n".join(r.raw for r in rounds))
+
+
+def measure_throughput(base_url, start_wrk, warm_up_s=1, measure_s=6, connections=4, rounds=3):
+    """Each shape under wrk, after a warm-up of each: ({name: WrkResult}, lines of a report).
+    The shapes take turns in ``rounds`` rounds of measure_s / rounds seconds each, so that
+    a slow spell of a shared machine weighs on every shape alike, not on whichever shape
+    ran then. ``start_wrk(url, body=, seconds=, connections=)`` starts one bounded run."""
     for _, path, body in THROUGHPUT_SHAPES:
         start_wrk(base_url + path, body=body, seconds=warm_up_s, connections=connections).result()
     load_before = os.getloadavg()[0]
-    results = {name: start_wrk(base_url + path, body=body, seconds=measure_s, connections=connections).result()
-               for name, path, body in THROUGHPUT_SHAPES}
+    per_round = max(measure_s // rounds, 1)
+    runs = {name: [] for name, _, _ in THROUGHPUT_SHAPES}
+    for _ in range(rounds):
+        for name, path, body in THROUGHPUT_SHAPES:
+            runs[name].append(start_wrk(base_url + path, body=body, seconds=per_round, connections=connections).result())
+    results = {name: combine(rs) for name, rs in runs.items()}
     base = results["healthz"].rps
     lines = [f"throughput on {platform.node() or 'this machine'}, {time.strftime('%Y-%m-%d')}: gunicorn WORKERS=2, "
-             f"wrk -t1 -c{connections} -d{measure_s}s, loopback, {os.cpu_count()} CPUs, "
+             f"wrk -t1 -c{connections}, {rounds} rounds of {per_round} s per shape taken in turn, loopback, {os.cpu_count()} CPUs, "
              f"1-minute load average {load_before:.2f} before and {os.getloadavg()[0]:.2f} after",
              f"{'request':<12} {'req/s':>8} {'ratio':>6} {'p50 ms':>8} {'p90 ms':>8} {'p99 ms':>8} {'errors':>7}  target"]
     for name, r in results.items():
@@ -330,6 +352,7 @@ def measure_throughput(base_url, start_wrk, warm_up_s=1, measure_s=6, connection
         verdict = "" if target is None else f">= {target:.0%}: {'PASS' if ratio >= target else 'MISS'}"
         lines.append(f"{name:<12} {r.rps:>8.0f} {ratio:>6.2f} {r.p50_us / 1e3:>8.2f} {r.p90_us / 1e3:>8.2f} "
                      f"{r.p99_us / 1e3:>8.2f} {r.socket_errors + r.non2xx:>7}  {verdict}")
+    lines.append("(latency percentiles: the median of the rounds')")
     return results, lines
 
 

@@ -1,8 +1,9 @@
 """Throughput and latency of POST /v1/revenue next to GET /healthz of the same app.
 
 One gunicorn with the shipped gunicorn.conf.py (WORKERS=2) on a free loopback
-port. wrk drives, in one run of this test, three request shapes in turn
-(harness.THROUGHPUT_SHAPES; `make bench` runs the same measurement):
+port. wrk drives, in one run of this test, three request shapes taking turns in
+three rounds of 2 s each, so that a slow spell of the machine falls on every shape
+alike (harness.THROUGHPUT_SHAPES; `make bench` runs the same measurement):
 
 - GET /healthz, the trivial endpoint: the cost of gunicorn, Flask and the
   operations layer with no work;
@@ -19,7 +20,7 @@ from __future__ import annotations
 
 from harness import measure_throughput, report
 
-# Seconds of load per shape, after a one-second warm-up of each (21 s in all).
+# Seconds of load per shape in all (three rounds of 2 s), after a one-second warm-up of each (21 s in all).
 WARM_UP_S = 1
 MEASURE_S = 6
 CONNECTIONS = 4   # two per worker: one being answered, one waiting in the backlog

@@ -193,7 +193,7 @@ class ForwardAuction:
         ss = np.exp(tt) / k
         vv = self.model.value_at(np.exp(-ss), -np.expm1(-ss))
         sq = (np.exp(t_q) / k)[..., None]
-        return np.sum(hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq)), axis=-1)
+        return (hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
 
     def node_bids(self):
         """The inner quadrature's nodes with the bids there (bids by the panel
@@ -448,7 +448,7 @@ def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-
         la, lb = np.concatenate((la[keep], na)), np.concatenate((lb[keep], nb))
         logp, sgn = np.concatenate((logp[keep], nlog)), np.concatenate((sgn[keep], nsgn))
         hi, lo = np.concatenate((hi[keep], nhi)), np.concatenate((lo[keep], nlo))
-    return float(np.sum(hi)), float(np.sum(lo))
+    return float(hi.sum()), float(lo.sum())
 
 
 def _bid_outer(auc, integrand):
@@ -554,14 +554,18 @@ def forward_figures(auc, rules, quantiles):
         else:
             mean, err = ROUTES[rule](auc)
             winner_pay = mean
-            # Quantiles depend only on the price distribution, which the two rules
-            # of each pair share; compute them once per pair.
+            # The sd and quantiles depend only on the price distribution, which the two
+            # rules of each pair share; they are computed once per pair (the sd about the
+            # first rule's mean: the pair's means agree to their error estimates, whose
+            # square is far below rounding of the variance).
             if rule in ("second_price", "ascending"):
-                var = _price_stats_second(auc, mean)
-                qs = shared["second"] if "second" in shared else shared.setdefault("second", _price_quantiles_second(auc, quantiles))
+                if "second" not in shared:
+                    shared["second"] = _price_stats_second(auc, mean), _price_quantiles_second(auc, quantiles)
+                var, qs = shared["second"]
             elif rule in ("first_price", "descending"):
-                var = _bid_price_stats(auc, mean)
-                qs = shared["bid"] if "bid" in shared else shared.setdefault("bid", _bid_price_quantiles(auc, quantiles))
+                if "bid" not in shared:
+                    shared["bid"] = _bid_price_stats(auc, mean), _bid_price_quantiles(auc, quantiles)
+                var, qs = shared["bid"]
             else:
                 var, winner_pay = _all_pay_stats(auc)
                 qs = None

@@ -95,9 +95,9 @@ class ValueModel:
         v = np.asarray(v, dtype=float)
         upper = v < 0.5
         out = np.empty(np.broadcast(u, v).shape)
-        if np.any(upper):
+        if upper.any():
             out[upper] = self.isf(v[upper])
-        if np.any(~upper):
+        if not upper.all():
             out[~upper] = self.ppf(u[~upper])
         return out
 
@@ -139,7 +139,7 @@ class ValueModel:
             x_new = np.where(ok, newton, 0.5 * (lo + hi))
             done = np.abs(x_new - x) <= 4e-16 * np.maximum(np.abs(x), 1e-300)
             x = x_new
-            if np.all(done | (hi - lo <= 4e-16 * np.abs(x))):
+            if (done | (hi - lo <= 4e-16 * np.abs(x))).all():
                 break
         x = np.where(u <= 0.0, self.lower, x)
         x = np.where(v <= 0.0, self.upper, x)

@@ -47,8 +47,11 @@ _ANTI = (_lagrange_antiderivatives(_GL_HI[0]), _lagrange_antiderivatives(_GL_LO[
 
 def partial_panel_weights(x, rule=0):
     """W[q, j] = integral from -1 to x_q of the j-th Lagrange basis polynomial:
-    the weights that integrate a panel's node values up to local point x_q."""
-    return np.polynomial.legendre.legval(np.atleast_1d(np.asarray(x, float)), _ANTI[rule]).T
+    the weights that integrate a panel's node values up to local point x_q. One
+    eval_legendre call for all points and degrees (legval loops in Python)."""
+    x = np.atleast_1d(np.asarray(x, float))
+    anti = _ANTI[rule]
+    return sp.eval_legendre(np.arange(len(anti)), x[:, None]) @ anti
 
 
 _EDGES_Z = np.array([1.0, 2.5, 4.5, 7.0, 10.0, 14.0, 20.0, 28.0, 40.0, 56.0, 80.0, 112.0, 160.0, 230.0, 330.0, 480.0, 700.0])
@@ -139,9 +142,9 @@ class RankQuadrature:
         vh, vl = _values_both(model, self.u_hi, self.v_hi, self.u_lo, self.v_lo)
         for _ in range(max_rounds):
             budget.check()
-            err = np.abs(np.sum(self.w_hi * vh, axis=1) - np.sum(self.w_lo * vl, axis=1))
-            mass = np.sum(np.abs(self.w_hi * vh), axis=1)
-            scale = np.sum(mass) + 1e-300
+            err = np.abs((self.w_hi * vh).sum(axis=1) - (self.w_lo * vl).sum(axis=1))
+            mass = np.abs(self.w_hi * vh).sum(axis=1)
+            scale = mass.sum() + 1e-300
             if conditional:  # panels run up in t, i.e. down in value: the part below is a reversed cumsum
                 scale = np.maximum(np.cumsum(mass[::-1])[::-1], 1e-12 * scale)
             bad = err > rtol * scale
@@ -178,12 +181,12 @@ class RankQuadrature:
         return W.reshape(len(t_cut), P * J)
 
     def total(self):
-        return float(np.sum(self.w_hi))
+        return float(self.w_hi.sum())
 
     def integrate(self, fn):
         """Integral of fn(values), and the two-rule error estimate."""
-        hi = float(np.sum(self.w_hi * fn(self.values_hi)))
-        lo = float(np.sum(self.w_lo * fn(self.values_lo)))
+        hi = float((self.w_hi * fn(self.values_hi)).sum())
+        lo = float((self.w_lo * fn(self.values_lo)).sum())
         return hi, abs(hi - lo)
 
 
