@@ -43,11 +43,11 @@ _GL = os_.GAUSS_RULES
 
 
 # M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial,
-# for each rule; as one block-diagonal matrix (transposed) for both rules side by side.
-_TAIL = tuple(os_.partial_panel_weights(1.0, i) - os_.partial_panel_weights(x, i) for i, (x, _) in enumerate(_GL))
+# per rule, laid out transposed as one block-diagonal matrix for both rules side by side.
 _TAIL_BOTH = np.zeros((len(os_.BOTH_NODES),) * 2)
-_TAIL_BOTH[:os_.RULE_SPLIT, :os_.RULE_SPLIT] = _TAIL[0].T
-_TAIL_BOTH[os_.RULE_SPLIT:, os_.RULE_SPLIT:] = _TAIL[1].T
+for _i, (_x, _) in enumerate(_GL):
+    _block = slice(0, os_.RULE_SPLIT) if _i == 0 else slice(os_.RULE_SPLIT, None)
+    _TAIL_BOTH[_block, _block] = (os_.partial_panel_weights(1.0, _i) - os_.partial_panel_weights(_x, _i)).T
 _P_EDGES = np.array([1e-15, 1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.03, 0.1, 0.2, 0.35, 0.5,
                      0.65, 0.8, 0.9, 0.97, 0.99, 0.999, 1 - 1e-4, 1 - 1e-6, 1 - 1e-9, 1 - 1e-12, 1 - 1e-15])
 
@@ -376,17 +376,19 @@ def ascending_revenue(auc):
 
     # A panel spanning many decades on one side of zero (a floor of 1e-300, say) is
     # cut into pieces of at most e^3, which the log-|x| rule below integrates exactly.
-    a, b = edges[:-1], edges[1:]
-    same_side = a * b > 0
-    log_ratio = np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
+    def spans(edges):
+        """Panels, whether each lies on one side of zero, and its |log(b / a)| there."""
+        a, b = edges[:-1], edges[1:]
+        same_side = a * b > 0
+        return a, b, same_side, np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
+
+    a, b, same_side, log_ratio = spans(edges)
     wide = np.nonzero(log_ratio > 3.0)[0]
     if wide.size:
         extra = [math.copysign(v, a[i]) for i in wide
                  for v in np.geomspace(abs(a[i]), abs(b[i]), min(int(log_ratio[i] / 3.0), 400) + 2)[1:-1]]
         edges = np.unique(np.concatenate((edges, extra)))
-        a, b = edges[:-1], edges[1:]
-        same_side = a * b > 0
-        log_ratio = np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
+        a, b, same_side, log_ratio = spans(edges)
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
     # power-law tail becomes an exponential the rule integrates exactly.
     logp = same_side & (log_ratio > math.log(2.0))
