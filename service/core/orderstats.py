@@ -118,11 +118,8 @@ class RankQuadrature:
 
     def rules(self):
         """Per rule: (t nodes, dt weights, values), for integrands of one's own."""
-        out = []
-        for (x, w), vals in ((_GL_HI, self.values_hi), (_GL_LO, self.values_lo)):
-            half, mid = 0.5 * (self.b - self.a), 0.5 * (self.b + self.a)
-            out.append((mid[:, None] + half[:, None] * x, half[:, None] * w, vals))
-        return out
+        t, dt, _ = self.stacked()
+        return [(t[:, :RULE_SPLIT], dt[:, :RULE_SPLIT], self.values_hi), (t[:, RULE_SPLIT:], dt[:, RULE_SPLIT:], self.values_lo)]
 
     def stacked(self):
         """(t nodes, dt weights, values), both rules side by side: (panels, 24 + 16)."""
