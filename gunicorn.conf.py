@@ -8,6 +8,7 @@ BIDSTATS_WORKER_TIMEOUT     seconds a worker may spend on one request before it 
 BIDSTATS_GRACEFUL_TIMEOUT   seconds a worker gets to finish its request on shutdown or restart (30)
 BIDSTATS_KEEPALIVE          seconds an idle keep-alive connection is held (5; the sync workers close every connection)
 BIDSTATS_SERVER_ACCESS_LOG  1 (default): gunicorn also writes its own access line to stderr; 0: only the app's JSON line
+OPENBLAS_NUM_THREADS        BLAS threads per worker (1; see below)
 PROMETHEUS_MULTIPROC_DIR    when set, metrics are shared between workers through files in this directory;
                             it is created if missing and emptied at start-up
 """
@@ -43,6 +44,12 @@ _host = os.environ.get("HOST") or "127.0.0.1"
 _port = _whole("PORT", 8000)
 bind = [f"[{_host}]:{_port}" if ":" in _host and not _host.startswith("[") else f"{_host}:{_port}"]
 workers = _whole("WORKERS", min(2 * _cpus() + 1, MAX_DEFAULT_WORKERS))
+# One BLAS thread per worker. Each worker is a single-threaded process already, and
+# OpenBLAS would otherwise start a thread per CPU in every worker, threads that wake
+# and spin beside the other workers on the same CPUs for matrix products too small to
+# gain from them (common practice, no source). Workers inherit this environment; an
+# operator's own setting wins.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 timeout = _whole("BIDSTATS_WORKER_TIMEOUT", 60)
 graceful_timeout = _whole("BIDSTATS_GRACEFUL_TIMEOUT", 30)
 keepalive = _whole("BIDSTATS_KEEPALIVE", 5)

@@ -750,6 +750,54 @@ def test_rank_sf_against_beta_cdf(family, n):
         np.testing.assert_allclose(O.rank_sf(model, n, rank, x), want, rtol=1e-9)
 
 
+@pytest.mark.parametrize("n,rank", [(2, 1), (3, 2), (6, 2), (6, 3), (10, 2), (9, 1)])
+def test_rank_sf_binomial_sum_against_mpmath(n, rank):
+    # With few terms, P(rank r of n > x) is the binomial sum P(Bin(n, S) >= r)
+    # (David and Nagaraja 2003, eq. 2.1.3). Reference: mpmath's regularised incomplete
+    # beta I_S(r, n - r + 1) at 40 digits, over S from where the answer nears underflow
+    # to 1 - 1e-16: every term is positive, so the sum keeps its relative digits down
+    # to the smallest normal double (below it, only the absolute 1e-300 is asked).
+    s = np.concatenate((10.0 ** np.linspace(-150, -1, 40), np.linspace(0.05, 0.95, 19), 1.0 - 10.0 ** np.linspace(-16, -2, 15)))
+    got = O._binomial_upper(n, rank, s)
+    with mp.workdps(40):
+        want = np.array([float(mp.betainc(rank, n - rank + 1, 0, mp.mpf(float(x)), regularized=True)) for x in s])
+    normal = want >= 1e-300
+    assert normal.sum() > 50
+    np.testing.assert_allclose(got[normal], want[normal], rtol=4e-15, atol=0)
+    np.testing.assert_allclose(got[~normal], want[~normal], rtol=0, atol=1e-300)
+
+
+def test_rank_sf_routes_agree_at_the_binomial_threshold():
+    # Either side of the switch from the binomial sum to betainc the same function is
+    # taken: scipy.special.betainc as the reference on the sum's side and scipy.stats'
+    # lognormal survival function for S (David and Nagaraja 2003, section 2.1).
+    model = M.LogNormal(median=50.0, sigma=0.4)
+    x = st.lognorm.ppf(np.linspace(0.01, 0.99, 25), 0.4, scale=50.0)
+    for n in (O._BINOMIAL_MAX_STEPS + 1, O._BINOMIAL_MAX_STEPS + 2):
+        sf = st.lognorm.sf(x, 0.4, scale=50.0)
+        np.testing.assert_allclose(O.rank_sf(model, n, 1, x), st.beta.cdf(sf, 1, n), rtol=1e-13)
+
+
+def test_kept_standard_values_serve_each_model_its_own_values():
+    # A normal-scale family's values at a cached rule's nodes come from standard values
+    # kept with the rule: every lognormal filled from it must get its own quantiles
+    # (scipy.stats.lognorm.ppf, isf in the upper tail), also after a mixture refined
+    # another copy of the same rule, and the kept arrays must be read-only.
+    for median, sigma in ((62000.0, 0.35), (3.0, 1.7), (62000.0, 0.35)):
+        q = O.rank_quadrature(7, 2).fill(M.LogNormal(median=median, sigma=sigma))
+        upper = q.v < 0.5
+        want = np.where(upper, st.lognorm.isf(q.v, sigma, scale=median), st.lognorm.ppf(q.u, sigma, scale=median))
+        np.testing.assert_allclose(q.values, want, rtol=1e-13)
+    mixture = M.Mixture([(0.5, M.Normal(10.0, 0.01)), (0.5, M.Normal(60.0, 0.01))])
+    refined = O.rank_quadrature(7, 2).fill(mixture)
+    assert refined.panels > O.rank_quadrature(7, 2).panels  # the dip between the clusters was refined
+    q = O.rank_quadrature(7, 2).fill(M.Normal(5.0, 2.0))
+    np.testing.assert_allclose(q.values, np.where(q.v < 0.5, st.norm.isf(q.v, 5.0, 2.0), st.norm.ppf(q.u, 5.0, 2.0)), rtol=1e-13)
+    kept = O.rank_quadrature(7, 2).kept(("standard", M.standard_normal_at), lambda: None)
+    with pytest.raises(ValueError):
+        kept[0, 0] = 1.0
+
+
 @pytest.mark.parametrize("rank", [1, 2])
 def test_rank_cdf_against_monte_carlo(rank):
     # Seeded Monte Carlo: 200 000 auctions of 10 lognormal(0, 0.5) values. The

@@ -115,17 +115,14 @@ class ForwardAuction:
             return self._bid_tails
         q = self._inner_quadrature()
         k = self.n - 1.0
-        edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
-        se = np.exp(edges) / k
-        t, dt, vals = q.stacked()
-        s = np.exp(t) / k
-        growth = np.exp(k * (se[1:, None] - s))
-        g = vals * k * s * growth
-        end_mass = self.floor * math.exp(-k * (self.s_r - se[-1])) if math.isfinite(self.s_r) else 0.0
+        nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
+        vals = q.values
+        g = vals * nodes.k_s_growth
+        end_mass = self.floor * math.exp(-k * (self.s_r - nodes.se[-1])) if math.isfinite(self.s_r) else 0.0
         end_mass = end_mass if self.floor != -math.inf else 0.0
-        panels = (dt * g) @ os_.RULE_COLUMNS
-        d = np.array([_discounted_tails(panels[:, i], k * se, end_mass) for i in (0, 1)])
-        self._bid_tails = BidTail(edges, se, d, t, dt, vals, s, g, growth)
+        panels = (nodes.dt * g) @ os_.RULE_COLUMNS
+        d = np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)])
+        self._bid_tails = BidTail(nodes.edges, nodes.se, d, nodes.t, nodes.dt, vals, nodes.s, g, nodes.growth)
         return self._bid_tails
 
     def _partial(self, s_q, s_end):
@@ -201,21 +198,53 @@ class ForwardAuction:
         if self._node_bid_cache is not None:
             return self._node_bid_cache
         q = self._inner_quadrature()
-        n, k = self.n, self.n - 1.0
         tail = self._bid_tail()
+        nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
         # g integrated spectrally from every node to its panel's right end (no new value
         # evaluations), plus each rule's tail beyond, shifted back to the node.
-        half = 0.5 * (q.b - q.a)[:, None]
-        bids = (half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / tail.growth
+        bids = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / tail.growth
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
-        vals, s = tail.values, tail.s
+        vals = tail.values
         bids = np.minimum(np.maximum(bids, self.floor if math.isfinite(self.floor) else np.min(vals)), vals)
-        rivals = np.exp(-k * s)
-        one = np.exp(-s) * s
-        self._node_bid_cache = NodeBids(tail.t, tail.dt, vals, s, bids, rivals, one, n * rivals * one,
-                                        tail.dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1)))
+        self._node_bid_cache = NodeBids(nodes.t, nodes.dt, vals, nodes.s, bids, nodes.rivals, nodes.one, nodes.top,
+                                        nodes.rule_dt)
         return self._node_bid_cache
+
+
+@dataclass(frozen=True)
+class BidNodes:
+    """What the bid route needs of the inner quadrature's nodes (both Gauss rules side
+    by side, as in ``RankQuadrature.stacked``) that depends on those nodes and n alone,
+    never on the model's values; so it is kept with the rule (``RankQuadrature.kept``)."""
+
+    edges: np.ndarray  # t at the panel edges
+    se: np.ndarray  # s = -log F at the panel edges
+    half: np.ndarray  # (panels, 1): half of each panel's width in t
+    t: np.ndarray
+    dt: np.ndarray
+    s: np.ndarray
+    growth: np.ndarray  # e^((n-1)(se_right - s)): the shift of the bid integrand to the panel's right edge
+    k_s_growth: np.ndarray  # (n-1) s growth: the bid integrand per unit value
+    rivals: np.ndarray  # F^(n-1)
+    one: np.ndarray  # one bidder's value density per unit t
+    top: np.ndarray  # the highest of n values' density per unit t
+    rule_dt: np.ndarray  # (nodes, 2): dt in each rule's column
+
+
+def _bid_nodes(q, n):
+    k = n - 1.0
+    edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
+    se = np.exp(edges) / k
+    half = 0.5 * (q.b - q.a)[:, None]
+    t = 0.5 * (q.b + q.a)[:, None] + half * os_.BOTH_NODES
+    dt = half * os_.BOTH_WEIGHTS
+    s = np.exp(t) / k
+    growth = np.exp(k * (se[1:, None] - s))
+    rivals = np.exp(-k * s)
+    one = np.exp(-s) * s
+    rule_dt = dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1))
+    return BidNodes(edges, se, half, t, dt, s, growth, k * s * growth, rivals, one, n * rivals * one, rule_dt)
 
 
 @dataclass(frozen=True)
@@ -469,15 +498,21 @@ def descending_revenue(auc):
     """The descending clock price b(X1), integrated by parts:
     E = b(c) - r F(r)^n + int_c^inf b' (1 - F^n) dv - int_r^c b' F^n dv,
     with b' dv = -(n-1) (v - b) ds from the equilibrium equation."""
-    n, k = auc.n, auc.n - 1.0
+    n = auc.n
     tail, nb = auc._bid_tail(), auc.node_bids()
-    c = int(np.argmin(np.abs(tail.edges - math.log(k / n))))
-    t_c = tail.edges[c]
+    c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail, n))
     floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
-    shade = k * (nb.values - nb.bids) * nb.s
-    weight = np.where(nb.t < t_c, -np.expm1(-n * nb.s), -np.exp(-n * nb.s))
-    hi, lo = (tail.d[:, c] - floor_term + nb.integrals(shade * weight)).tolist()
+    hi, lo = (tail.d[:, c] - floor_term + nb.integrals((nb.values - nb.bids) * weight)).tolist()
     return hi, abs(hi - lo)
+
+
+def _descending_weight(tail, n):
+    """The descending route's split edge c (the edge nearest F^n = e^-1) and its node
+    weight, (n-1) s (1 - F^n) where t < t_c and -(n-1) s F^n elsewhere: functions of
+    the nodes and n alone."""
+    k = n - 1.0
+    c = int(np.argmin(np.abs(tail.edges - math.log(k / n))))
+    return c, k * tail.s * np.where(tail.t < tail.edges[c], -np.expm1(-n * tail.s), -np.exp(-n * tail.s))
 
 
 def all_pay_revenue(auc):

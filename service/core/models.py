@@ -49,6 +49,14 @@ class ValueModel:
     discrete = False
     #: Whether ppf/isf are closed forms (cheap enough to probe the tails with).
     cheap_quantiles = True
+    #: For a family whose values are a fixed increasing map of one parameter-free
+    #: quantile function: that function, (u, v) -> standard value. Then
+    #: value_at(u, v) == from_standard(standard_quantile(u, v)), and a quadrature
+    #: keeps the standard values at its fixed nodes instead of recomputing them.
+    standard_quantile = None
+
+    def from_standard(self, z):
+        raise NotImplementedError
 
     # --- to be overridden -------------------------------------------------
     def cdf(self, x):
@@ -241,9 +249,18 @@ class Uniform(ValueModel):
         return mean, var
 
 
+def standard_normal_at(u, v):
+    """z with Phi(z) = u and 1 - Phi(z) = v: one ndtri call on the smaller tail
+    probability, so both tails stay precise."""
+    z = sp.ndtri(np.minimum(u, v))
+    return np.where(v < 0.5, -z, z)
+
+
 class _StandardNormalScale(ValueModel):
     """Families whose CDF is Phi(z(x)) for an increasing z: their probabilities
     and log-probabilities come from scipy's ndtr and log_ndtr."""
+
+    standard_quantile = staticmethod(standard_normal_at)
 
     def cdf(self, x):
         return sp.ndtr(self._z(x))
@@ -258,16 +275,13 @@ class _StandardNormalScale(ValueModel):
         return sp.log_ndtr(-self._z(x))
 
     def value_at(self, u, v):
-        """One ndtri call on the smaller tail probability, so both tails stay precise."""
-        u, v = np.asarray(u, dtype=float), np.asarray(v, dtype=float)
-        z = sp.ndtri(np.minimum(u, v))
-        return self._from_z(np.where(v < 0.5, -z, z))
+        return self.from_standard(standard_normal_at(np.asarray(u, dtype=float), np.asarray(v, dtype=float)))
 
     def ppf(self, u):
-        return self._from_z(sp.ndtri(u))
+        return self.from_standard(sp.ndtri(u))
 
     def isf(self, v):
-        return self._from_z(-sp.ndtri(v))
+        return self.from_standard(-sp.ndtri(v))
 
 
 class Normal(_StandardNormalScale):
@@ -284,7 +298,7 @@ class Normal(_StandardNormalScale):
         z = self._z(x)
         return np.exp(-0.5 * z * z) / (self.sd * math.sqrt(2 * math.pi))
 
-    def _from_z(self, z):
+    def from_standard(self, z):
         return self.mu + self.sd * z
 
 
@@ -332,7 +346,7 @@ class LogNormal(_StandardNormalScale):
             d = np.exp(-0.5 * z * z) / (np.where(x > 0, x, 1.0) * self.sigma * math.sqrt(2 * math.pi))
         return np.where(x > 0, d, 0.0)
 
-    def _from_z(self, z):
+    def from_standard(self, z):
         return np.exp(self.mu + self.sigma * z)
 
 

@@ -75,57 +75,79 @@ def _log_weight(t, m, r, lognorm):
         return t - w + (r - 1.0) * np.log(-np.expm1(-w / m)) - lognorm
 
 
-def _values_both(model, u_hi, v_hi, u_lo, v_lo):
-    """The model's values at both rules' nodes, from one ``value_at`` call."""
-    k = u_hi.size
-    vals = model.value_at(np.concatenate((u_hi.ravel(), u_lo.ravel())), np.concatenate((v_hi.ravel(), v_lo.ravel())))
-    return vals[:k].reshape(u_hi.shape), vals[k:].reshape(u_lo.shape)
-
-
 class RankQuadrature:
     """Nodes and weights for E[h(X_r) 1{X_r >= cut}] in quantile space.
 
-    Arrays are (panels, nodes): ``*_hi`` for the 24-node rule, ``*_lo`` for the
-    16-node rule. ``fill`` evaluates the model's values at the nodes and splits
-    any panel whose two rules disagree, so rough quantile functions (a kernel
-    density through a few scattered bids) still integrate to full precision.
+    Arrays are (panels, 24 + 16), both Gauss rules side by side: columns
+    [:RULE_SPLIT] hold the 24-node rule, the rest the 16-node rule (``*_hi`` and
+    ``*_lo`` are views of each). ``fill`` evaluates the model's values at the nodes
+    and splits any panel whose two rules disagree, so rough quantile functions (a
+    kernel density through a few scattered bids) still integrate to full precision.
     """
 
     def __init__(self, m, r, lognorm, edges):
         self.m, self.r, self.lognorm = m, r, lognorm
         edges = np.asarray(edges, float)
         self._set_panels(edges[:-1], edges[1:])
-        self.values_hi = self.values_lo = None
+        self.values = None
+        # What depends on the nodes as built and on nothing else (see ``kept``): the
+        # copies handed out of the rule cache share it, so a worker builds each once.
+        self._kept, self._built_nodes = {}, self.u
 
     @property
     def panels(self):
         return len(self.a)
 
-    def _nodes(self, a, b, rule):
-        x, w = rule
+    w_hi = property(lambda self: self.w[:, :RULE_SPLIT])
+    w_lo = property(lambda self: self.w[:, RULE_SPLIT:])
+    values_hi = property(lambda self: self.values[:, :RULE_SPLIT])
+    values_lo = property(lambda self: self.values[:, RULE_SPLIT:])
+
+    def kept(self, key, build):
+        """``build()``, a function of the nodes alone (never of a model's values), built
+        once for the nodes as built and kept with them; its arrays are made read-only.
+        Nodes refined by ``fill`` are new, so there it is built afresh each time."""
+        if self.u is not self._built_nodes:
+            return build()
+        hit = self._kept.get(key)
+        if hit is None:
+            hit = self._kept[key] = build()
+            for a in (hit if isinstance(hit, tuple) else (hit,)):
+                if isinstance(a, np.ndarray):
+                    a.flags.writeable = False
+        return hit
+
+    def _node_values(self, model):
+        """The model's values at the nodes. A family with a standard quantile maps the
+        standard values kept with the nodes, so only the map is paid."""
+        std = model.standard_quantile
+        if std is None:
+            return model.value_at(self.u, self.v)
+        return model.from_standard(self.kept(("standard", std), lambda: std(self.u, self.v)))
+
+    def _nodes(self, a, b):
         half, mid = 0.5 * (b - a), 0.5 * (b + a)
-        t = mid[:, None] + half[:, None] * x
-        wt = half[:, None] * w * np.exp(_log_weight(t, self.m, self.r, self.lognorm))
+        t = mid[:, None] + half[:, None] * BOTH_NODES
+        wt = half[:, None] * BOTH_WEIGHTS * np.exp(_log_weight(t, self.m, self.r, self.lognorm))
         s = np.exp(t) / self.m
         return np.exp(-s), -np.expm1(-s), wt
 
     def _set_panels(self, a, b):
         order = np.argsort(a)
         self.a, self.b = a[order], b[order]
-        self.u_hi, self.v_hi, self.w_hi = self._nodes(self.a, self.b, _GL_HI)
-        self.u_lo, self.v_lo, self.w_lo = self._nodes(self.a, self.b, _GL_LO)
+        self.u, self.v, self.w = self._nodes(self.a, self.b)
         return order
 
     def rules(self):
         """Per rule: (t nodes, dt weights, values), for integrands of one's own."""
-        t, dt, _ = self.stacked()
-        return [(t[:, :RULE_SPLIT], dt[:, :RULE_SPLIT], self.values_hi), (t[:, RULE_SPLIT:], dt[:, RULE_SPLIT:], self.values_lo)]
+        t, dt, v = self.stacked()
+        return [(t[:, :RULE_SPLIT], dt[:, :RULE_SPLIT], v[:, :RULE_SPLIT]), (t[:, RULE_SPLIT:], dt[:, RULE_SPLIT:], v[:, RULE_SPLIT:])]
 
     def stacked(self):
-        """(t nodes, dt weights, values), both rules side by side: (panels, 24 + 16)."""
+        """(t nodes, dt weights, values), both rules side by side."""
         half, mid = 0.5 * (self.b - self.a), 0.5 * (self.b + self.a)
         t = mid[:, None] + half[:, None] * BOTH_NODES
-        return t, half[:, None] * BOTH_WEIGHTS, np.hstack((self.values_hi, self.values_lo))
+        return t, half[:, None] * BOTH_WEIGHTS, self.values
 
     def fill(self, model, rtol=2e-14, max_rounds=60, conditional=False):
         """Evaluate model values at the nodes, refining rough panels: those whose two
@@ -134,13 +156,15 @@ class RankQuadrature:
         Integrals conditioned on Y < v (the equilibrium bids) divide by that part, so
         an error negligible for the whole can still dominate them."""
         if self.panels == 0:
-            self.values_hi, self.values_lo = np.empty((0, len(_GL_HI[0]))), np.empty((0, len(_GL_LO[0])))
+            self.values = np.empty((0, len(BOTH_NODES)))
             return self
-        vh, vl = _values_both(model, self.u_hi, self.v_hi, self.u_lo, self.v_lo)
+        vals = self._node_values(model)
         for _ in range(max_rounds):
             budget.check()
-            err = np.abs((self.w_hi * vh).sum(axis=1) - (self.w_lo * vl).sum(axis=1))
-            mass = np.abs(self.w_hi * vh).sum(axis=1)
+            parts = self.w * vals
+            hi = parts[:, :RULE_SPLIT]
+            err = np.abs(hi.sum(axis=1) - parts[:, RULE_SPLIT:].sum(axis=1))
+            mass = np.abs(hi).sum(axis=1)
             scale = mass.sum() + 1e-300
             if conditional:  # panels run up in t, i.e. down in value: the part below is a reversed cumsum
                 scale = np.maximum(np.cumsum(mass[::-1])[::-1], 1e-12 * scale)
@@ -150,15 +174,11 @@ class RankQuadrature:
             a, b = self.a[bad], self.b[bad]
             mid = 0.5 * (a + b)
             na, nb = np.concatenate((a, mid)), np.concatenate((mid, b))
-            old_a, old_b = self.a[~bad], self.b[~bad]
-            keep_h, keep_l = vh[~bad], vl[~bad]
-            uh, vvh, _ = self._nodes(na, nb, _GL_HI)
-            ul, vvl, _ = self._nodes(na, nb, _GL_LO)
-            order = self._set_panels(np.concatenate((old_a, na)), np.concatenate((old_b, nb)))
-            new_h, new_l = _values_both(model, uh, vvh, ul, vvl)
-            vh = np.concatenate((keep_h, new_h))[order]
-            vl = np.concatenate((keep_l, new_l))[order]
-        self.values_hi, self.values_lo = vh, vl
+            keep = vals[~bad]
+            u_new, v_new, _ = self._nodes(na, nb)
+            order = self._set_panels(np.concatenate((self.a[~bad], na)), np.concatenate((self.b[~bad], nb)))
+            vals = np.concatenate((keep, model.value_at(u_new, v_new)))[order]
+        self.values = vals
         return self
 
     def cut_weights(self, t_cut):
@@ -182,8 +202,8 @@ class RankQuadrature:
 
     def integrate(self, fn):
         """Integral of fn(values), and the two-rule error estimate."""
-        hi = float((self.w_hi * fn(self.values_hi)).sum())
-        lo = float((self.w_lo * fn(self.values_lo)).sum())
+        parts = self.w * fn(self.values)
+        hi, lo = float(parts[:, :RULE_SPLIT].sum()), float(parts[:, RULE_SPLIT:].sum())
         return hi, abs(hi - lo)
 
 
@@ -209,7 +229,7 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
 def _cached_rule(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, fine):
     q = _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, None, 0, fine)
-    for name in ("a", "b", "u_hi", "v_hi", "w_hi", "u_lo", "v_lo", "w_lo"):
+    for name in ("a", "b", "u", "v", "w"):
         getattr(q, name).flags.writeable = False
     return q
 
@@ -407,17 +427,38 @@ def rank_sf(model, n, r, x):
     return _rank_tail(model, n, r, x, upper=True)
 
 
+# Up to this many terms past the first, the binomial sum below costs less than betainc.
+_BINOMIAL_MAX_STEPS = 8
+
+
+def _binomial_upper(n, r, s):
+    """P(Bin(n, s) >= r) = sum over j >= r of C(n, j) s^j (1 - s)^(n - j), the chance that
+    rank r of n exceeds the value whose survival is s (David and Nagaraja 2003, eq. 2.1.3),
+    by Horner's rule in s. Every term is positive, so nothing cancels, and where s^r nears
+    underflow it keeps more digits than betainc."""
+    f = 1.0 - s
+    acc = np.ones_like(s)
+    f_pow = np.ones_like(s)
+    for i in range(n - r - 1, -1, -1):
+        f_pow = f_pow * f
+        acc = acc * s + math.comb(n, r + i) * f_pow
+    return acc * s**r
+
+
 def _rank_tail(model, n, r, x, upper):
     """Each point by the incomplete beta that keeps its digits: in S where S < 1/2, else in F.
     scipy's betaincc is about ten times slower than betainc, so the survival function
-    takes betainc in S everywhere when r <= m: V ~ Beta(r, m) then has its mass below 1/2,
-    and where S >= 1/2 (known to full precision) the answer is not small."""
+    takes S everywhere when r <= m: V ~ Beta(r, m) then has its mass below 1/2, and where
+    S >= 1/2 (known to full precision) the answer is not small. With few terms there, the
+    binomial sum replaces betainc."""
     m, r = n - r + 1.0, float(r)
     shape = np.shape(x)
     x = np.atleast_1d(np.asarray(x, float))
     s = np.broadcast_to(model.sf(x), x.shape)
     by_s = np.isfinite(s) if upper and r <= m else s < 0.5
     if by_s.all():
+        if upper and n - r <= _BINOMIAL_MAX_STEPS:
+            return _binomial_upper(n, int(r), s).reshape(shape)
         return (sp.betainc if upper else sp.betaincc)(r, m, s).reshape(shape)
     out = np.empty(x.shape)
     if by_s.any():
