@@ -15,6 +15,7 @@ stopped by a timer signal and reported as such, so the run never hangs.
 """
 from __future__ import annotations
 
+import contextlib
 import datetime
 import functools
 import math
@@ -225,6 +226,15 @@ def rel_error(x, n):
 # --------------------------------------------------------------------------
 # Sections
 # --------------------------------------------------------------------------
+@contextlib.contextmanager
+def quiet_access_log():
+    """The app's JSON access line goes to whatever sys.stderr is at the time: inside
+    this block, /dev/null. The in-process requests of a section still build and write
+    their line, as in service, without printing a thousand of them into the report."""
+    with open(os.devnull, "w") as sink, contextlib.redirect_stderr(sink):
+        yield
+
+
 def _nproc():
     try:
         return subprocess.run(["nproc"], capture_output=True, text=True, check=True).stdout.strip()
@@ -507,6 +517,9 @@ def section_summary(ctx):
     print(table(["figure", "this run", "target", ""], rows))
 
 
+# Sections that send requests to the app in-process.
+IN_PROCESS = {"section_request", "section_sweeps"}
+
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
             section_http, section_summary]
 
@@ -525,7 +538,8 @@ def main(argv):
     t0 = time.perf_counter()
     ctx = {}
     for section in chosen:
-        section(ctx)
+        with quiet_access_log() if section.__name__ in IN_PROCESS else contextlib.nullcontext():
+            section(ctx)
         sys.stdout.flush()
     print()
     print(f"total run time {time.perf_counter() - t0:.1f} s")

@@ -207,7 +207,9 @@ class RankQuadrature:
         return hi, abs(hi - lo)
 
 
-_RULE_CACHE_SIZE = 256  # rules of at most about 80 KB each (1 KB a panel), per worker
+# Per worker. A rule takes about 1 KB a panel (at most about 80 KB); what ``kept`` adds
+# for the bid route's rules takes about 4 KB a panel more (120 KB at 32 panels).
+_RULE_CACHE_SIZE = 256
 _RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds its rule each time
 
 
