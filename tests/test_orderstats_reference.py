@@ -796,6 +796,11 @@ def test_kept_standard_values_serve_each_model_its_own_values():
     kept = O.rank_quadrature(7, 2).kept(("standard", M.standard_normal_at), lambda: None)
     with pytest.raises(ValueError):
         kept[0, 0] = 1.0
+    # The bid route's node arrays are kept the same way: read-only, so no request can
+    # change what the next one reads.
+    from service.core.auctions import ForwardAuction
+    with pytest.raises(ValueError):
+        ForwardAuction(M.LogNormal(median=3.0, sigma=0.5), 5).node_bids().rivals[0, 0] = 1.0
 
 
 @pytest.mark.parametrize("rank", [1, 2])

@@ -14,6 +14,7 @@ their difference is the reported error estimate.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import functools
 import math
 from dataclasses import dataclass
@@ -105,14 +106,15 @@ class RankQuadrature:
 
     def kept(self, key, build):
         """``build()``, a function of the nodes alone (never of a model's values), built
-        once for the nodes as built and kept with them; its arrays are made read-only.
-        Nodes refined by ``fill`` are new, so there it is built afresh each time."""
-        if self.u is not self._built_nodes:
-            return build()
-        hit = self._kept.get(key)
+        once and kept with the nodes, its arrays made read-only. For the nodes as built
+        the store is shared with the rule cache's copies; nodes refined by ``fill`` are
+        this quadrature's own, and so is their store."""
+        store = self._kept if self.u is self._built_nodes else self._refined_kept
+        hit = store.get(key)
         if hit is None:
-            hit = self._kept[key] = build()
-            for a in (hit if isinstance(hit, tuple) else (hit,)):
+            hit = store[key] = build()
+            parts = hit if isinstance(hit, tuple) else vars(hit).values() if dataclasses.is_dataclass(hit) else (hit,)
+            for a in parts:
                 if isinstance(a, np.ndarray):
                     a.flags.writeable = False
         return hit
@@ -136,6 +138,7 @@ class RankQuadrature:
         order = np.argsort(a)
         self.a, self.b = a[order], b[order]
         self.u, self.v, self.w = self._nodes(self.a, self.b)
+        self._refined_kept = {}
         return order
 
     def rules(self):
