@@ -750,7 +750,7 @@ def test_rank_sf_against_beta_cdf(family, n):
         np.testing.assert_allclose(O.rank_sf(model, n, rank, x), want, rtol=1e-9)
 
 
-@pytest.mark.parametrize("n,rank", [(2, 1), (3, 2), (6, 2), (6, 3), (10, 2), (9, 1)])
+@pytest.mark.parametrize("n,rank", [(1, 1), (2, 1), (3, 2), (6, 2), (6, 3), (10, 2), (9, 1)])
 def test_rank_sf_binomial_sum_against_mpmath(n, rank):
     # With few terms, P(rank r of n > x) is the binomial sum P(Bin(n, S) >= r)
     # (David and Nagaraja 2003, eq. 2.1.3). Reference: mpmath's regularised incomplete

@@ -451,11 +451,11 @@ def _value_panel_sums(la, lb, logp, sgn, integrand):
     ``integrand`` over [la, lb], in x or (where ``logp``) in y = log|x|, dx = x dy.
     Both rules' nodes go to ``integrand`` in one call."""
     half, mid = 0.5 * (lb - la), 0.5 * (lb + la)
-    y = mid[:, None] + half[:, None] * os_.BOTH_NODES
+    pts = mid[:, None] + half[:, None] * os_.BOTH_NODES
     hw = half[:, None] * os_.BOTH_WEIGHTS
-    pts = y.copy()
-    pts[logp] = sgn[logp, None] * np.exp(y[logp])
-    hw = np.where(logp[:, None], hw * pts, hw)
+    if logp.any():
+        pts[logp] = sgn[logp, None] * np.exp(pts[logp])
+        hw = np.where(logp[:, None], hw * pts, hw)
     sums = (hw * integrand(pts)) @ os_.RULE_COLUMNS
     return sums[:, 0], sums[:, 1]
 
@@ -616,7 +616,7 @@ def forward_figures(auc, rules, quantiles):
             "rule": rule,
             "expected_revenue": mean,
             "revenue_sd": None if var is None else math.sqrt(max(var, 0.0)),
-            "revenue_quantiles": None if qs is None else [{"p": float(p), "value": float(x)} for p, x in zip(quantiles, qs)],
+            "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),  # at ``quantiles``
             "probability_of_sale": auc.p_sale,
             "expected_winner_surplus": e_win_value - winner_pay,
             "expected_bidder_surplus": e_win_value - mean,
@@ -680,13 +680,11 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         f = figures[rule]
         err = max(err, f["_err"])
         qs = f["revenue_quantiles"]
-        if qs is not None:
-            qs = [{"p": float(p), "value": sign * q["value"]} for p, q in zip(quantiles, qs)]
         results.append({
             "rule": rule,
             mean_k: finite(sign * f["expected_revenue"]),
             sd_k: finite(f["revenue_sd"]),
-            q_k: None if qs is None else [{"p": q["p"], "value": finite(q["value"])} for q in qs],
+            q_k: None if qs is None else [{"p": float(p), "value": finite(sign * x)} for p, x in zip(quantiles, qs)],
             p_k: finite(f["probability_of_sale"]),
             "expected_winner_surplus": finite(f["expected_winner_surplus"]),
             "expected_bidder_surplus": finite(f["expected_bidder_surplus"]),

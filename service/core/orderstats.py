@@ -401,25 +401,39 @@ def rank_quantiles(model, n, r, ps):
     """The p-quantiles of rank r of n: Q at the Beta(m, r) quantiles."""
     ps = np.asarray(ps, float)
     if ps.ndim == 1 and len(ps) <= 64:
-        u, v = _beta_quantiles(n, r, tuple(ps.tolist()))
+        key = tuple(ps.tolist())
+        std = model.standard_quantile
+        if std is not None:
+            return model.from_standard(_standard_beta_quantiles(n, r, key, std))
+        u, v = _beta_quantiles(n, r, key)
     else:
         u, v = _beta_quantiles.__wrapped__(n, r, ps)
     if model.discrete:
-        return model.ppf(np.where(v < 0.5, 1.0 - v, u))
-    return model.value_at(np.where(v < 0.5, 1.0 - v, u), np.where(v < 0.5, v, 1.0 - u))
+        return model.ppf(u)
+    return model.value_at(u, v)
 
 
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
 def _beta_quantiles(n, r, ps):
-    """U ~ Beta(m, r) at probabilities ps, from below (u) and from above (v = P-quantile of 1 - U),
-    each from the inverse that keeps its digits. Model-free, so the common probability
-    sets (the default quantiles, the ascending route's edges) are computed once per worker."""
+    """U ~ Beta(m, r) at probabilities ps as (u, v = 1 - u), each taken from the inverse
+    that keeps its digits: v from above where it is below 1/2, else u from below.
+    Model-free, so the common probability sets (the default quantiles, the ascending
+    route's edges) are computed once per worker."""
     m = n - r + 1.0
     u = sp.betaincinv(m, float(r), ps)
     v = sp.betainccinv(float(r), m, ps)
+    u, v = np.where(v < 0.5, 1.0 - v, u), np.where(v < 0.5, v, 1.0 - u)
     if isinstance(ps, tuple):
         u.flags.writeable = v.flags.writeable = False
     return u, v
+
+
+@functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
+def _standard_beta_quantiles(n, r, ps, std):
+    """The standard values at ``_beta_quantiles``, for a family with a standard quantile."""
+    z = std(*_beta_quantiles(n, r, ps))
+    z.flags.writeable = False
+    return z
 
 
 def rank_cdf(model, n, r, x):
@@ -442,9 +456,8 @@ def _binomial_upper(n, r, s):
     by Horner's rule in s. Every term is positive, so nothing cancels, and where s^r nears
     underflow it keeps more digits than betainc."""
     f = 1.0 - s
-    acc = np.ones_like(s)
-    f_pow = np.ones_like(s)
-    for i in range(n - r - 1, -1, -1):
+    acc, f_pow = (s + n * f if n > r else np.ones_like(s)), f  # the two top terms: C(n, n) = 1, C(n, n-1) = n
+    for i in range(n - r - 2, -1, -1):
         f_pow = f_pow * f
         acc = acc * s + math.comb(n, r + i) * f_pow
     return acc * s**r
