@@ -27,6 +27,7 @@ from scipy import integrate, optimize
 from service.core import models as M
 from service.core import orderstats as O
 from service.core import topvalues as T
+from service.core.auctions import ForwardAuction
 
 INF = math.inf
 PARAMETRIC_RTOL = 1e-10
@@ -768,9 +769,10 @@ def test_rank_sf_binomial_sum_against_mpmath(n, rank):
 
 
 def test_rank_sf_routes_agree_at_the_binomial_threshold():
-    # Either side of the switch from the binomial sum to betainc the same function is
-    # taken: scipy.special.betainc as the reference on the sum's side and scipy.stats'
-    # lognormal survival function for S (David and Nagaraja 2003, section 2.1).
+    # Either side of the switch from the binomial sum (n = 9, rank 1: 8 terms past the
+    # first) to betainc (n = 10) the same function is taken: P(V < S), V ~ Beta(1, n),
+    # with scipy.stats' Beta distribution and lognormal survival function as the
+    # reference (David and Nagaraja 2003, section 2.1).
     model = M.LogNormal(median=50.0, sigma=0.4)
     x = st.lognorm.ppf(np.linspace(0.01, 0.99, 25), 0.4, scale=50.0)
     for n in (O._BINOMIAL_MAX_STEPS + 1, O._BINOMIAL_MAX_STEPS + 2):
@@ -798,7 +800,6 @@ def test_kept_standard_values_serve_each_model_its_own_values():
         kept[0, 0] = 1.0
     # The bid route's node arrays are kept the same way: read-only, so no request can
     # change what the next one reads.
-    from service.core.auctions import ForwardAuction
     with pytest.raises(ValueError):
         ForwardAuction(M.LogNormal(median=3.0, sigma=0.5), 5).node_bids().rivals[0, 0] = 1.0
 
