@@ -122,7 +122,7 @@ class ForwardAuction:
         end_mass = end_mass if self.floor != -math.inf else 0.0
         panels = (nodes.dt * g) @ os_.RULE_COLUMNS
         d = np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)])
-        self._bid_tails = BidTail(nodes.edges, nodes.se, d, nodes.t, nodes.dt, vals, nodes.s, g, nodes.growth)
+        self._bid_tails = BidTail(nodes, vals, d, g)
         return self._bid_tails
 
     def _partial(self, s_q, s_end):
@@ -155,7 +155,7 @@ class ForwardAuction:
         k = self.n - 1.0
         q = self._inner_quadrature()
         tail = self._bid_tail()
-        edges, se, d = tail.edges, tail.se, tail.d[0]
+        edges, se, d = tail.nodes.edges, tail.nodes.se, tail.d[0]
         # The panel recurrence is exact out to the cut when the panels reach it; where they
         # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
         ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
@@ -197,12 +197,11 @@ class ForwardAuction:
         recurrence plus the node's partial panel), as :class:`NodeBids`."""
         if self._node_bid_cache is not None:
             return self._node_bid_cache
-        q = self._inner_quadrature()
         tail = self._bid_tail()
-        nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
+        nodes = tail.nodes
         # g integrated spectrally from every node to its panel's right end (no new value
         # evaluations), plus each rule's tail beyond, shifted back to the node.
-        bids = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / tail.growth
+        bids = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
         vals = tail.values
@@ -236,31 +235,24 @@ def _bid_nodes(q, n):
     k = n - 1.0
     edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
     se = np.exp(edges) / k
-    half = 0.5 * (q.b - q.a)[:, None]
-    t = 0.5 * (q.b + q.a)[:, None] + half * os_.BOTH_NODES
-    dt = half * os_.BOTH_WEIGHTS
+    t, dt, _ = q.stacked()
     s = np.exp(t) / k
     growth = np.exp(k * (se[1:, None] - s))
     rivals = np.exp(-k * s)
     one = np.exp(-s) * s
     rule_dt = dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1))
-    return BidNodes(edges, se, half, t, dt, s, growth, k * s * growth, rivals, one, n * rivals * one, rule_dt)
+    return BidNodes(edges, se, 0.5 * (q.b - q.a)[:, None], t, dt, s, growth, k * s * growth, rivals, one, n * rivals * one, rule_dt)
 
 
 @dataclass(frozen=True)
 class BidTail:
-    """The inner quadrature's nodes (both Gauss rules side by side, as in
-    ``RankQuadrature.stacked``) and the panel recurrence of the bid integral."""
+    """The inner quadrature's nodes with the model's values there and the panel
+    recurrence of the bid integral."""
 
-    edges: np.ndarray  # t at the panel edges
-    se: np.ndarray  # s = -log F at the panel edges
+    nodes: BidNodes
+    values: np.ndarray  # the model's values at the nodes
     d: np.ndarray  # (2, panels + 1): per rule, the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
-    t: np.ndarray
-    dt: np.ndarray
-    values: np.ndarray
-    s: np.ndarray
     g: np.ndarray  # v (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
-    growth: np.ndarray  # e^((n-1)(se_right - s)), that shift
 
 
 @dataclass(frozen=True)
@@ -500,19 +492,19 @@ def descending_revenue(auc):
     with b' dv = -(n-1) (v - b) ds from the equilibrium equation."""
     n = auc.n
     tail, nb = auc._bid_tail(), auc.node_bids()
-    c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail, n))
+    c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail.nodes, n))
     floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
     hi, lo = (tail.d[:, c] - floor_term + nb.integrals((nb.values - nb.bids) * weight)).tolist()
     return hi, abs(hi - lo)
 
 
-def _descending_weight(tail, n):
+def _descending_weight(nodes, n):
     """The descending route's split edge c (the edge nearest F^n = e^-1) and its node
     weight, (n-1) s (1 - F^n) where t < t_c and -(n-1) s F^n elsewhere: functions of
     the nodes and n alone."""
     k = n - 1.0
-    c = int(np.argmin(np.abs(tail.edges - math.log(k / n))))
-    return c, k * tail.s * np.where(tail.t < tail.edges[c], -np.expm1(-n * tail.s), -np.exp(-n * tail.s))
+    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n))))
+    return c, k * nodes.s * np.where(nodes.t < nodes.edges[c], -np.expm1(-n * nodes.s), -np.exp(-n * nodes.s))
 
 
 def all_pay_revenue(auc):
