@@ -135,7 +135,7 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
     k = auc.n - 1.0
     out = floor.copy()
     tail = auc._bid_tail()
-    edges, se, d = tail.nodes.edges, tail.nodes.se, tail.d[0]
+    se, d = tail.nodes.se, tail.d[0]
     t_r = _t_of(s_r, k)
     inside = binds & (t_r >= q.a[0]) & (t_r < q.b[-1]) & (k * s_r <= k * se[-1] - 36.0)
     if np.any(inside):
