@@ -28,8 +28,9 @@ serve: $(VENV)/.installed-base
 test: $(VENV)/.installed-test
 	$(PY) -m pytest
 
-# Requests generated from openapi.yaml against gunicorn on a free loopback port (fuzz/run.py;
-# FUZZ_SEED, FUZZ_MAX_EXAMPLES, FUZZ_OUT override).
+# Requests generated from openapi.yaml, then hostile requests (deep nesting, extreme magnitudes,
+# reserves at the support's ends, filled caps, the GET doors), against gunicorn on a free loopback
+# port (fuzz/run.py; FUZZ_SEED, FUZZ_MAX_EXAMPLES, FUZZ_HOSTILE_EXAMPLES, FUZZ_PARTS, FUZZ_OUT override).
 fuzz: $(VENV)/.installed-fuzz
 	$(PY) fuzz/run.py
 

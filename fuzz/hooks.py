@@ -8,6 +8,10 @@
   /metrics) are scanned for nan/inf/infinity tokens in any case.
 - `no_server_error_in_batch_items`, a custom check: no item of a /v1/batch answer
   has a 5xx status (the batch itself answers 200, so not_a_server_error cannot see it).
+- `figures_consistent`, a custom check: every 200 answer (and 200 batch item) passes the
+  independent self-consistency checks of fuzz/consistency.py, or its warnings flag what fails.
+- `answered_within_budget`, a custom check: no answer takes longer than the time budget
+  (BIDSTATS_MAX_SECONDS, default 10 s; FUZZ_BUDGET_SECONDS here) plus one second.
 - An `after_call` hook that counts the requests sent, written to
   FUZZ_REQUEST_COUNT_FILE when the run ends.
 """
@@ -18,9 +22,16 @@ import json
 import math
 import os
 import re
+import sys
 import threading
+from pathlib import Path
 
 import schemathesis
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))  # schemathesis loads this file by path
+import consistency  # noqa: E402  (fuzz/consistency.py: judged without the service's code)
+
+BUDGET_S = float(os.environ.get("FUZZ_BUDGET_SECONDS", "10"))
 
 # A nan, inf or infinity token, signed or not, in any case, not part of a longer word
 # ("information", "infeasible" and "financial" do not match; "-inf", "NaN", "+Inf" do).
@@ -96,6 +107,47 @@ def no_server_error_in_batch_items(ctx, response, case):
     crashed = [i for i, item in enumerate(items) if isinstance(item, dict) and item.get("status", 0) >= 500]
     if crashed:
         raise AssertionError(f"batch items {crashed} answered with a server error: {items[crashed[0]]!r}")
+    return None
+
+
+def _figure_problems(case, response):
+    """fuzz/consistency.py's findings for a 200 answer, by route and media type."""
+    path, media = case.operation.path, _media_type(response)
+    text = response.content.decode("utf-8")
+    if path == "/v1/quote":
+        if media == "application/json":
+            data = json.loads(text)
+            return consistency.quote(case.query or {}, data.get("value"), data.get("warnings"))
+        return consistency.quote(case.query or {}, float(text.strip()))
+    if path == "/v1/sweeps.csv":
+        return consistency.sweep_csv(case.query or {}, text)
+    if path == "/v1/sweeps" and media == "text/csv":
+        return consistency.sweep(case.body, consistency.csv_table(text))
+    if media != "application/json":
+        return []
+    return consistency.problems(path, case.body, json.loads(text))
+
+
+@schemathesis.check
+def figures_consistent(ctx, response, case):
+    """A 200 answer's figures obey the laws of fuzz/consistency.py, or its warnings say which do not."""
+    if response.status_code != 200 or not (case.operation.path.startswith("/v1/")):
+        return None
+    try:
+        found = _figure_problems(case, response)
+    except (UnicodeDecodeError, ValueError):
+        return None  # not strict JSON or CSV: no_nan_or_infinity and the schema checks judge that
+    if found:
+        more = f" (and {len(found) - 5} more)" if len(found) > 5 else ""
+        raise AssertionError("Self-consistency fails without a warning: " + "; ".join(found[:5]) + more)
+    return None
+
+
+@schemathesis.check
+def answered_within_budget(ctx, response, case):
+    """No answer later than the time budget plus one second (the service's contract)."""
+    if response.elapsed > BUDGET_S + 1.0:
+        raise AssertionError(f"Answered after {response.elapsed:.1f} s, over the {BUDGET_S:g} s budget + 1 s")
     return None
 
 

@@ -13,6 +13,10 @@ failure.
                         threads, can fail on its own while describing strategies; see WORKERS below)
     FUZZ_OUT            directory for the gunicorn log and the schemathesis reports
                         (default: a new temporary directory, kept and printed)
+    FUZZ_PARTS          which parts run, comma-separated (default "spec,hostile"): "spec" is
+                        schemathesis over openapi.yaml, "hostile" the hostile requests of
+                        fuzz/hostile_cases.py judged by fuzz/hostile.py (FUZZ_HOSTILE_EXAMPLES random
+                        ones, default 150; FUZZ_BUDGET_SECONDS, default 10, the time budget they hold to)
 """
 from __future__ import annotations
 
@@ -53,7 +57,9 @@ RUN_TIMEOUT = 900
 #   (application/json, application/problem+json, text/plain for quotes and quote errors,
 #   text/csv for sweeps, application/yaml for the description);
 # - response_schema_conformance: the body matches the documented schema for that status;
-# - no_nan_or_infinity and no_server_error_in_batch_items: our own checks (fuzz/hooks.py).
+# - no_nan_or_infinity, no_server_error_in_batch_items, figures_consistent (independent
+#   self-consistency of the figures, fuzz/consistency.py) and answered_within_budget (the time
+#   budget + 1 s): our own checks (fuzz/hooks.py).
 # Left out:
 # - positive_data_acceptance: schema-valid data is often rightly refused with a 422, because
 #   the spec states its cross-field rules (high > low, weights summing to 1, a reserve for one
@@ -75,9 +81,16 @@ CHECKS = [
     "response_schema_conformance",
     "no_nan_or_infinity",
     "no_server_error_in_batch_items",
+    "figures_consistent",
+    "answered_within_budget",
 ]
-# Lines gunicorn's log holds when the service failed, whatever the client saw.
-CRASH_MARKERS = ("unhandled error", "batch item failed", "WORKER TIMEOUT", "Traceback")
+# Lines gunicorn's log holds when the service failed, whatever the client saw: the app's own
+# log of an unhandled error, gunicorn's worker timeout, a worker killed (SIGKILL: the kernel's
+# out-of-memory killer or the master) or dead of another signal or a non-zero exit. A worker
+# stopped with SIGTERM at shut-down is logged too, and is no failure.
+CRASH_MARKERS = re.compile(r"unhandled error|batch item failed|WORKER TIMEOUT|Traceback|Unhandled exception"
+                           r"|SIGKILL|was sent (?!SIGTERM)|exited with code")
+PARTS = [p.strip() for p in os.environ.get("FUZZ_PARTS", "spec,hostile").split(",") if p.strip()]
 # "examples": every example in openapi.yaml, sent as is (they must answer 200 and conform).
 # "coverage": boundary values, missing required fields, wrong types and out-of-range values
 #             derived from each schema, positive and negative, deterministic.
@@ -141,17 +154,8 @@ def _terminated(signum, frame):
     raise SystemExit(128 + signum)  # so that `finally` stops gunicorn on SIGTERM too
 
 
-def main():
-    signal.signal(signal.SIGTERM, _terminated)
-    out = Path(os.environ.get("FUZZ_OUT") or tempfile.mkdtemp(prefix="bidstats-fuzz-"))
-    out.mkdir(parents=True, exist_ok=True)
-    metrics_dir = out / "prometheus"
-    log_path = out / "gunicorn.log"
-    count_path = out / "requests-sent.txt"
-    count_path.unlink(missing_ok=True)
-    port = free_port()
-    base = f"http://{HOST}:{port}"
-
+def start_server(out, base, port):
+    """gunicorn as `make serve` starts it, with the documented defaults, logging to out/gunicorn.log."""
     # The service runs with its documented defaults: openapi.yaml states the caps at
     # their default values, so no BIDSTATS_* setting from the caller's shell applies.
     env = {k: v for k, v in os.environ.items() if not k.startswith("BIDSTATS_")}
@@ -159,69 +163,100 @@ def main():
         HOST=HOST,
         PORT=str(port),
         WORKERS="2",
-        PROMETHEUS_MULTIPROC_DIR=str(metrics_dir),
+        PROMETHEUS_MULTIPROC_DIR=str(out / "prometheus"),
         BIDSTATS_SERVER_ACCESS_LOG="0",
     )
-    print(f"fuzz: gunicorn on {base} (2 workers), log {log_path}", flush=True)
-    started = time.monotonic()
-    with open(log_path, "wb") as log:
-        server = subprocess.Popen(
+    print(f"fuzz: gunicorn on {base} (2 workers), log {out / 'gunicorn.log'}", flush=True)
+    with open(out / "gunicorn.log", "wb") as log:
+        return subprocess.Popen(
             [str(BIN / "gunicorn"), "-c", "gunicorn.conf.py", "service:create_app()"],
             cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT, start_new_session=True,
         )
+
+
+def run_spec(base, out):
+    """schemathesis over openapi.yaml against ``base``: its exit code, with a line of counts."""
+    count_path = out / "requests-sent.txt"
+    count_path.unlink(missing_ok=True)
+    before = server_request_total(base)
+    cmd = [
+        str(BIN / "schemathesis"), "--no-color", "--config-file", str(ROOT / "fuzz" / "schemathesis.toml"),
+        "run", str(ROOT / "openapi.yaml"),
+        "--url", base,
+        "--phases", PHASES,
+        "--mode", "all",
+        "--checks", ",".join(CHECKS),
+        "--max-examples", str(MAX_EXAMPLES),
+        "--seed", str(SEED),
+        "--generation-database", "none",
+        "--workers", str(WORKERS),
+        "--request-timeout", str(REQUEST_TIMEOUT),
+        "--continue-on-failure",
+        # Hypothesis's too_slow health check depends on how fast this machine is at the moment.
+        "--suppress-health-check", "too_slow",
+        "--report", "junit,ndjson",
+        "--report-dir", str(out / "report"),
+    ]
+    print("fuzz: " + " ".join(cmd[1:]), flush=True)
+    fuzz_env = dict(os.environ, SCHEMATHESIS_HOOKS=str(ROOT / "fuzz" / "hooks.py"),
+                    FUZZ_REQUEST_COUNT_FILE=str(count_path))
+    started = time.monotonic()
     try:
-        wait_ready(base, server, log_path)
-        before = server_request_total(base)
-        cmd = [
-            str(BIN / "schemathesis"), "--no-color", "--config-file", str(ROOT / "fuzz" / "schemathesis.toml"),
-            "run", str(ROOT / "openapi.yaml"),
-            "--url", base,
-            "--phases", PHASES,
-            "--mode", "all",
-            "--checks", ",".join(CHECKS),
-            "--max-examples", str(MAX_EXAMPLES),
-            "--seed", str(SEED),
-            "--generation-database", "none",
-            "--workers", str(WORKERS),
-            "--request-timeout", str(REQUEST_TIMEOUT),
-            "--continue-on-failure",
-            # Hypothesis's too_slow health check depends on how fast this machine is at the moment.
-            "--suppress-health-check", "too_slow",
-            "--report", "junit,ndjson",
-            "--report-dir", str(out / "report"),
-        ]
-        print("fuzz: " + " ".join(cmd[1:]), flush=True)
-        fuzz_env = dict(os.environ, SCHEMATHESIS_HOOKS=str(ROOT / "fuzz" / "hooks.py"),
-                        FUZZ_REQUEST_COUNT_FILE=str(count_path))
-        fuzz_started = time.monotonic()
-        try:
-            # Run from the output directory: schemathesis keeps its own files under the working directory.
-            result = subprocess.run(cmd, cwd=out, env=fuzz_env, timeout=RUN_TIMEOUT)
-            code = result.returncode
-        except subprocess.TimeoutExpired:
-            print(f"fuzz: schemathesis did not finish within {RUN_TIMEOUT} s", flush=True)
-            code = 1
-        fuzz_seconds = time.monotonic() - fuzz_started
-        # The scrape that reads the count is itself counted only after it answers.
-        received = server_request_total(base) - before - 1
-        sent = int(count_path.read_text()) if count_path.exists() else None
+        # Run from the output directory: schemathesis keeps its own files under the working directory.
+        code = subprocess.run(cmd, cwd=out, env=fuzz_env, timeout=RUN_TIMEOUT).returncode
+    except subprocess.TimeoutExpired:
+        print(f"fuzz: schemathesis did not finish within {RUN_TIMEOUT} s", flush=True)
+        code = 1
+    seconds = time.monotonic() - started
+    # The scrape that reads the count is itself counted only after it answers.
+    received = server_request_total(base) - before - 1
+    sent = int(count_path.read_text()) if count_path.exists() else "?"
+    print(f"fuzz: {sent} requests sent by schemathesis, {received} answered by gunicorn, in {seconds:.1f} s; "
+          f"seed {SEED}, {MAX_EXAMPLES} random examples per operation and mode", flush=True)
+    return code
+
+
+def judge_log(log_path):
+    """1 when gunicorn's log shows a crash line or a replaced worker, else 0."""
+    lines = log_path.read_text(errors="replace").splitlines()
+    crashes = [line for line in lines if CRASH_MARKERS.search(line)]
+    boots = sum("Booting worker" in line for line in lines)
+    code = 0
+    if crashes:
+        print(f"fuzz: gunicorn logged {len(crashes)} crash line(s), e.g. {crashes[0]!r}; see {log_path}", flush=True)
+        code = 1
+    if boots > 2:
+        print(f"fuzz: gunicorn booted {boots} workers for 2 places: a worker died and was replaced; see {log_path}", flush=True)
+        code = 1
+    return code
+
+
+def main():
+    signal.signal(signal.SIGTERM, _terminated)
+    out = Path(os.environ.get("FUZZ_OUT") or tempfile.mkdtemp(prefix="bidstats-fuzz-"))
+    out.mkdir(parents=True, exist_ok=True)
+    port = free_port()
+    base = f"http://{HOST}:{port}"
+    started = time.monotonic()
+    server = start_server(out, base, port)
+    codes = []
+    try:
+        wait_ready(base, server, out / "gunicorn.log")
+        if "spec" in PARTS:
+            codes.append(run_spec(base, out))
+        if "hostile" in PARTS:
+            import hostile  # fuzz/hostile.py, beside this file
+            codes.append(hostile.run(base, out))
         alive = server.poll() is None
     finally:
         stop(server)
-    crashes = [line for line in log_path.read_text(errors="replace").splitlines()
-               if any(marker in line for marker in CRASH_MARKERS)]
-    print(f"fuzz: {sent if sent is not None else '?'} requests sent by schemathesis, "
-          f"{received} answered by gunicorn, in {fuzz_seconds:.1f} s "
-          f"({time.monotonic() - started:.1f} s with start-up and shut-down); seed {SEED}, "
-          f"{MAX_EXAMPLES} random examples per operation and mode", flush=True)
-    if crashes:
-        print(f"fuzz: gunicorn logged {len(crashes)} crash line(s), e.g. {crashes[0]!r}; see {log_path}", flush=True)
-        code = code or 1
+    codes.append(judge_log(out / "gunicorn.log"))
     if not alive:
         print("fuzz: gunicorn was no longer running at the end", flush=True)
-        code = code or 1
-    print(f"fuzz: reports and log in {out}", flush=True)
-    return code
+        codes.append(1)
+    print(f"fuzz: {' and '.join(PARTS)} in {time.monotonic() - started:.1f} s with start-up and shut-down; "
+          f"reports and log in {out}", flush=True)
+    return next((c for c in codes if c), 0)
 
 
 if __name__ == "__main__":
