@@ -34,7 +34,8 @@ test: $(VENV)/.installed-test
 fuzz: $(VENV)/.installed-fuzz
 	$(PY) fuzz/run.py
 
-# Load and fault tests (loadtest/): throughput, a killed worker, failover behind nginx, caps.
+# Load and fault tests (loadtest/): throughput, a killed worker, failover behind nginx, caps,
+# two heavy clients beside /healthz and ordinary requests.
 # Everything runs on 127.0.0.1; wrk and nginx are installed with apt-get when missing.
 loadtest: $(VENV)/.installed-test
 	PATH="$$PATH:/usr/sbin" sh -c 'command -v wrk && command -v nginx' >/dev/null || \

@@ -18,25 +18,12 @@ import time
 import pytest
 import requests
 
-from harness import Gunicorn, report
+from harness import Gunicorn, report, stress_mixture as _mixture
 
 WORKER_TIMEOUT_S = 60          # gunicorn.conf.py's default BIDSTATS_WORKER_TIMEOUT
 CLIENT_TIMEOUT_S = WORKER_TIMEOUT_S + 30
 LOGNORMAL = {"family": "lognormal", "median": 62000, "sigma": 0.35}
 TIMES = []
-
-
-def _mixture(k):
-    """k components of six families, spread over a wide range (an invented stress shape)."""
-    shapes = [
-        lambda i: {"family": "lognormal", "median": 40000 + 1000 * i, "sigma": 0.2 + 0.02 * i},
-        lambda i: {"family": "gamma", "shape": 2 + i, "scale": 3000},
-        lambda i: {"family": "pareto", "shape": 3.5 + 0.1 * i, "minimum": 20000 + 500 * i},
-        lambda i: {"family": "weibull", "shape": 1.5 + 0.1 * i, "scale": 50000},
-        lambda i: {"family": "triangular", "low": 10000 * i, "mode": 10000 * i + 5000, "high": 10000 * i + 20000},
-        lambda i: {"family": "uniform", "low": 1000 * i, "high": 1000 * i + 30000},
-    ]
-    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": shapes[i % len(shapes)](i)} for i in range(k)]}
 
 
 def _strict_json(text):
