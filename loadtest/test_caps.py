@@ -3,7 +3,7 @@ the largest allowed requests finish within the worker timeout, or are refused,
 but never cost a worker.
 
 One gunicorn with the shipped gunicorn.conf.py (WORKERS=2, the default worker
-timeout of 60 s) on a free loopback port. For every request the test records
+timeout of 30 s) on a free loopback port. For every request the test records
 the worker pids before and after, and reads gunicorn's log for
 "WORKER TIMEOUT": a request that runs past the timeout gets its worker killed
 and restarted by the master, which is what the caps exist to prevent. Each
@@ -20,7 +20,7 @@ import requests
 
 from harness import Gunicorn, report, stress_mixture as _mixture
 
-WORKER_TIMEOUT_S = 60          # gunicorn.conf.py's default BIDSTATS_WORKER_TIMEOUT
+WORKER_TIMEOUT_S = 30          # gunicorn.conf.py's default BIDSTATS_WORKER_TIMEOUT
 CLIENT_TIMEOUT_S = WORKER_TIMEOUT_S + 30
 LOGNORMAL = {"family": "lognormal", "median": 62000, "sigma": 0.35}
 TIMES = []

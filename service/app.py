@@ -1,19 +1,31 @@
 """The app factory: wires the resources, the error handlers and the settings."""
 from __future__ import annotations
 
+import os
+
 from flask import Flask
 
 from . import settings
-from .web import access, auctions, batch, meta, ops, problems, quote, sweeps, top_values
+from .web import access, admission, auctions, batch, meta, ops, problems, quote, sweeps, top_values
+
+
+class BidStats(Flask):
+    """Flask with every view run inside one admission scope: the request's time
+    budget (its computation and its JSON encoding), answer-size tally and heavy slot."""
+
+    def dispatch_request(self):
+        with admission.request_scope(self.extensions["bidstats.slots"]):
+            return super().dispatch_request()
 
 
 def create_app(config=None):
     """Build the WSGI app; ``config`` updates Flask's config (tests use it)."""
-    app = Flask(__name__)
+    app = BidStats(__name__)
     app.config["MAX_CONTENT_LENGTH"] = settings.CAPS.body_bytes
     app.json.sort_keys = False
     if config:
         app.config.update(config)
+    app.extensions["bidstats.slots"] = admission.Slots(settings.CAPS.heavy_slots, os.environ.get("BIDSTATS_SLOT_DIR"))
     problems.register(app)
     for module in (meta, top_values, auctions, batch, quote, sweeps):
         app.register_blueprint(module.bp)

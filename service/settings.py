@@ -18,6 +18,19 @@ def _int_env(name, default):
     return value
 
 
+def _seconds_env(name, default):
+    raw = os.environ.get(name)
+    if raw is None or raw == "":
+        return default
+    try:
+        value = float(raw)
+    except ValueError:
+        raise SystemExit(f"{name} must be a number of seconds, not {raw!r}") from None
+    if not 0 < value < 86400:
+        raise SystemExit(f"{name} must be more than 0 and less than a day")
+    return value
+
+
 @dataclass(frozen=True)
 class Caps:
     """Per-request caps, enforced while a request loads, before any work."""
@@ -34,7 +47,10 @@ class Caps:
     batch_items: int = _int_env("BIDSTATS_MAX_BATCH_ITEMS", 1000)
     sweep_rows: int = _int_env("BIDSTATS_MAX_SWEEP_ROWS", 200_000)
     sweep_axis: int = _int_env("BIDSTATS_MAX_SWEEP_AXIS", 2000)
-    seconds: int = _int_env("BIDSTATS_MAX_SECONDS", 30)
+    seconds: float = _seconds_env("BIDSTATS_MAX_SECONDS", 10.0)
+    response_bytes: int = _int_env("BIDSTATS_MAX_RESPONSE_BYTES", 32_000_000)
+    heavy_slots: int = _int_env("BIDSTATS_HEAVY_SLOTS", 1)
+    heavy_after: float = _seconds_env("BIDSTATS_HEAVY_AFTER", 0.5)
 
 
 CAPS = Caps()

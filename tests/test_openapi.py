@@ -273,14 +273,14 @@ def test_caps_in_the_spec_are_the_service_caps():
         "sample.maxItems": (s["EmpiricalValues"]["properties"]["sample"]["maxItems"], caps.sample),
         "components.maxItems": (s["MixtureValues"]["properties"]["components"]["maxItems"], caps.components),
         "inner components.maxItems": (s["InnerMixtureValues"]["properties"]["components"]["maxItems"], caps.components),
-        "quantile_table points.maxItems": (s["QuantileTableValues"]["properties"]["points"]["maxItems"], qt["points"].validators[0].max),
-        "quantile_table points.minItems": (s["QuantileTableValues"]["properties"]["points"]["minItems"], qt["points"].validators[0].min),
+        "quantile_table points.maxItems": (s["QuantileTableValues"]["properties"]["points"]["maxItems"], qt["points"].maximum),
+        "quantile_table points.minItems": (s["QuantileTableValues"]["properties"]["points"]["minItems"], qt["points"].minimum),
         "auction bidders.maximum": (s["Bidders"]["maximum"], rev["bidders"].maximum),
-        "revenue quantiles.maxItems": (s["QuantileLevels"]["maxItems"], rev["quantiles"].validators[0].max),
-        "revenue rules.maxItems": (s["RevenueRequest"]["properties"]["rules"]["maxItems"], rev["rules"].validators[0].max),
+        "revenue quantiles.maxItems": (s["QuantileLevels"]["maxItems"], rev["quantiles"].maximum),
+        "revenue rules.maxItems": (s["RevenueRequest"]["properties"]["rules"]["maxItems"], rev["rules"].maximum),
         "bid-strategy points.minimum": (s["BidStrategyRequest"]["properties"]["points"]["minimum"], bid["points"].minimum),
         "bid-strategy points (code)": (s["BidStrategyRequest"]["properties"]["points"]["maximum"], bid["points"].maximum),
-        "bid-strategy at (code)": (s["BidStrategyRequest"]["properties"]["at"]["maxItems"], bid["at"].validators[0].max),
+        "bid-strategy at (code)": (s["BidStrategyRequest"]["properties"]["at"]["maxItems"], bid["at"].maximum),
     }
     assert {k: a for k, (a, b) in pairs.items() if a != b} == {}
 

@@ -309,13 +309,15 @@ def test_multiprocess_mode_needs_its_directory(tmp_path):
 
 # ---------------------------------------------------------------- gunicorn.conf.py
 GUNICORN_ENV = ("HOST", "PORT", "WORKERS", "BIDSTATS_WORKER_TIMEOUT", "BIDSTATS_GRACEFUL_TIMEOUT",
-                "BIDSTATS_KEEPALIVE", "BIDSTATS_SERVER_ACCESS_LOG", "PROMETHEUS_MULTIPROC_DIR")
+                "BIDSTATS_KEEPALIVE", "BIDSTATS_SERVER_ACCESS_LOG", "PROMETHEUS_MULTIPROC_DIR",
+                "BIDSTATS_HEAVY_SLOTS", "BIDSTATS_READ_TIMEOUT")
 
 
 @pytest.fixture()
 def gunicorn_conf(monkeypatch):
     for name in GUNICORN_ENV:
-        monkeypatch.delenv(name, raising=False)
+        monkeypatch.setenv(name, "")  # recorded, so that whatever the file sets is undone afterwards
+        monkeypatch.delenv(name)
 
     def load(**env):
         for name, value in env.items():
@@ -330,7 +332,11 @@ def test_gunicorn_defaults(gunicorn_conf):
     assert conf["bind"] == ["127.0.0.1:8000"]
     cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     assert conf["workers"] == min(2 * cpus + 1, conf["MAX_DEFAULT_WORKERS"])
-    assert conf["timeout"] == 60
+    assert conf["timeout"] == 30
+    # The worker timeout sits well above the app's own time budget, which answers first.
+    assert conf["timeout"] >= 3 * settings.Caps.seconds
+    assert os.environ["BIDSTATS_HEAVY_SLOTS"] == str(max(1, conf["workers"] // 2))
+    assert conf["read_timeout"] == 10 and conf["worker_class"].__name__ == "BoundedReadWorker"
     assert 0 < conf["graceful_timeout"] <= conf["timeout"]
     assert conf["keepalive"] > 0
     handlers = conf["logconfig_dict"]["handlers"]

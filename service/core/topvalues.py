@@ -6,8 +6,12 @@ import math
 
 import numpy as np
 
-from .errors import ParameterError
+from . import budget
 from . import orderstats as os_
+from .errors import ParameterError
+
+#: Points of the joint density evaluated at once.
+_CHUNK = 512
 
 
 def finite(x):
@@ -92,7 +96,11 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     if points is not None:
         hx = np.array([p[0] for p in points], float)
         ly = np.array([p[1] for p in points], float)
-        d = np.exp(os_.joint_logdensity(model, bidders, i, j, hx, ly))
+        d = np.empty(len(hx))
+        for start in range(0, len(hx), _CHUNK):  # a bounded working set, and a budget check per chunk
+            budget.check()
+            part = slice(start, start + _CHUNK)
+            d[part] = np.exp(os_.joint_logdensity(model, bidders, i, j, hx[part], ly[part]))
         return {
             "bidders": bidders,
             "ranks": [i, j],
@@ -102,6 +110,7 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     lo = max(float(os_.rank_quantiles(model, bidders, j, [5e-4])[0]), model.lower)
     hi = min(float(os_.rank_quantiles(model, bidders, i, [1 - 5e-4])[0]), model.upper)
     axis = np.linspace(lo, hi, grid_points)
+    budget.check()
     dens = np.exp(os_.joint_logdensity(model, bidders, i, j, axis[:, None], axis[None, :]))
     mass = _triangle_mass(dens, axis)
     warnings = []

@@ -40,7 +40,11 @@ def _key_ok(given, keys):
 
 def register(app: Flask):
     """Read the settings once, at app creation, and install the checks."""
-    keys = _split(app.config.get("API_KEYS", os.environ.get("BIDSTATS_API_KEYS")))
+    raw_keys = app.config.get("API_KEYS", os.environ.get("BIDSTATS_API_KEYS"))
+    keys = _split(raw_keys)
+    if raw_keys and not keys:
+        # A list of blanks would turn authentication off without a word.
+        raise SystemExit(f"BIDSTATS_API_KEYS is set but holds no key ({raw_keys!r}); unset it, or give at least one key")
     origins = frozenset(_split(app.config.get("CORS_ORIGINS", os.environ.get("BIDSTATS_CORS_ORIGINS"))))
     limit = app.config["MAX_CONTENT_LENGTH"]
 

@@ -10,7 +10,8 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 
 from .. import settings
 from ..core import auctions
-from .fields import StrictFloat, StrictInteger, ValueModelField
+from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
+from . import admission
 from .io import load, register_posts
 from .top_values import core_call
 
@@ -40,6 +41,10 @@ class _AuctionRequest(Schema):
             raise ValidationError({"seller_value": ["Only for a forward auction (bidder_values); a reverse auction takes buyer_value."]})
 
 
+def _model_work(body):
+    return admission.model_work(body.get("bidder_values") or body.get("bidder_costs"))
+
+
 def _case(req):
     """(model, direction, own value) from a loaded auction request."""
     if req["bidder_values"] is not None:
@@ -49,10 +54,9 @@ def _case(req):
 
 class RevenueRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
-    rules = fields.List(fields.String(validate=RULE), load_default=lambda: list(auctions.RULES),
-                        validate=validate.Length(min=1, max=len(auctions.RULES)))
-    quantiles = fields.List(StrictFloat(bound="open_probability"), load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95],
-                            validate=validate.Length(max=CAPS.quantiles))
+    rules = CappedList(fields.String(validate=RULE), 1, len(auctions.RULES), load_default=lambda: list(auctions.RULES))
+    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, CAPS.quantiles, "BIDSTATS_MAX_QUANTILES",
+                           load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
 
     @validates_schema
     def _unique_rules(self, data, **kw):
@@ -65,7 +69,7 @@ class BidStrategyRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
     rule = fields.String(load_default="first_price", validate=RULE)
     points = StrictInteger(minimum=2, maximum=CAPS.curve_points, load_default=None)
-    at = fields.List(StrictFloat(), load_default=None, validate=validate.Length(min=1, max=CAPS.points))
+    at = CappedList(StrictFloat(), 1, CAPS.points, "BIDSTATS_MAX_POINTS", load_default=None)
 
     @validates_schema
     def _grid(self, data, **kw):
@@ -82,6 +86,8 @@ class ReservePriceRequest(_AuctionRequest):
 
 def revenue_handler(body):
     req = load(RevenueRequest, body)
+    admission.admit(work=_model_work(body) * len(req["rules"]), numbers=len(req["rules"]) * (24 + 2 * len(req["quantiles"])),
+                    field="quantiles")
     model, direction, own = _case(req)
     return core_call(
         auctions.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
@@ -92,6 +98,9 @@ def revenue_handler(body):
 
 def bid_strategy_handler(body):
     req = load(BidStrategyRequest, body)
+    count = len(req["at"]) if req["at"] is not None else req["points"] or 51
+    admission.admit(work=_model_work(body) * (1 + count / 100), numbers=2 * count,
+                    field="at" if req["at"] is not None else "points")
     model, direction, _ = _case(req)
     return core_call(
         auctions.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
@@ -102,6 +111,7 @@ def bid_strategy_handler(body):
 
 def reserve_price_handler(body):
     req = load(ReservePriceRequest, body)
+    admission.admit(work=_model_work(body) * 20, numbers=16, field="bidders")
     model, direction, own = _case(req)
     return core_call(
         auctions.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",

@@ -9,9 +9,11 @@ from marshmallow import Schema, ValidationError, fields, validate
 
 from .. import settings
 from ..core import budget
+from ..core.budget import BudgetSpent
 from . import auctions, sweeps, top_values
+from .fields import CappedList
 from .io import json_body, json_response, load
-from .problems import problem_body, validation_body
+from .problems import problem_body, spent_error, validation_body
 
 bp = Blueprint("batch", __name__)
 log = logging.getLogger("bidstats")
@@ -32,17 +34,23 @@ class BatchItem(Schema):
 class BatchRequest(Schema):
     """The envelope; each item is checked on its own so one bad item cannot sink the rest."""
 
-    requests = fields.List(fields.Raw(), required=True, validate=validate.Length(min=1, max=settings.CAPS.batch_items))
+    requests = CappedList(fields.Raw(allow_none=True), 1, settings.CAPS.batch_items, "BIDSTATS_MAX_BATCH_ITEMS", required=True)
 
 
 def _answer(raw):
+    """(status, body) of one item. Once the request's budget is spent the rest answer
+    422 at once; a heavy-slot refusal (Busy) is the whole batch's, so it propagates."""
     try:
+        if budget.remaining() is not None and budget.remaining() < 0:
+            raise spent_error()
         if not isinstance(raw, dict):
             raise ValidationError({"(item)": ["Must be an object with id, path and body."]})
         item = load(BatchItem, raw)
         return 200, HANDLERS[item["path"]](item["body"])
     except ValidationError as err:
         return 422, validation_body(err)
+    except BudgetSpent:  # the backstop fired outside the item's core call
+        return 422, validation_body(spent_error())
     except Exception:  # one item's failure must not sink the others
         log.exception("batch item failed")
         return 500, problem_body(500, "Internal Server Error", "The service failed to compute this item; the error has been logged.")
@@ -52,9 +60,8 @@ def _answer(raw):
 def post_batch():
     req = load(BatchRequest, json_body())
     out = []
-    with budget.within(settings.CAPS.seconds):  # one budget for the whole batch
-        answers = [_answer(raw) for raw in req["requests"]]
-    for raw, (status, body) in zip(req["requests"], answers):
+    for raw in req["requests"]:
+        status, body = _answer(raw)
         ident = raw.get("id") if isinstance(raw, dict) else None
         out.append({"id": ident if isinstance(ident, (str, int)) and not isinstance(ident, bool) else None,
                     "status": status, "body": body})

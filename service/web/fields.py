@@ -68,6 +68,26 @@ class StrictInteger(fields.Field):
         return n
 
 
+class CappedList(fields.List):
+    """A list whose length is checked on the raw JSON, before any element is loaded,
+    so that an over-long list costs nothing to refuse."""
+
+    def __init__(self, inner, minimum=None, maximum=None, cap=None, **kw):
+        super().__init__(inner, **kw)
+        self.minimum, self.maximum, self.cap = minimum, maximum, cap
+
+    def _deserialize(self, value, attr, data, **kw):
+        if isinstance(value, list):
+            n = len(value)
+            if self.maximum is not None and n > self.maximum:
+                cap = f" (the service's cap, {self.cap})" if self.cap else ""
+                raise ValidationError(f"Holds {n} items; at most {self.maximum}{cap}.")
+            if self.minimum is not None and n < self.minimum:
+                raise ValidationError(f"Must hold at least {self.minimum} item(s)." if self.minimum != self.maximum
+                                      else f"Must hold exactly {self.minimum} items.")
+        return super()._deserialize(value, attr, data, **kw)
+
+
 def _param_field(p: M.Param):
     if p.required:
         return StrictFloat(bound=p.bound, required=True)
@@ -93,14 +113,14 @@ class PointSchema(Schema):
 
 class QuantileTableSchema(Schema):
     family = fields.String(required=True)
-    points = fields.List(fields.Nested(PointSchema), required=True, validate=validate.Length(min=2, max=1000))
+    points = CappedList(fields.Nested(PointSchema), 2, 1000, required=True)
     low = StrictFloat(load_default=None)
     high = StrictFloat(load_default=None)
 
 
 class EmpiricalSchema(Schema):
     family = fields.String(required=True)
-    sample = fields.List(StrictFloat(), required=True)
+    sample = CappedList(StrictFloat(), maximum=settings.CAPS.sample, cap="BIDSTATS_MAX_SAMPLE", required=True)
     smoothing = fields.String(load_default="kernel", validate=validate.OneOf(["kernel", "none"]))
     low = StrictFloat(load_default=None)
     high = StrictFloat(load_default=None)
@@ -113,7 +133,7 @@ class ComponentSchema(Schema):
 
 class MixtureSchema(Schema):
     family = fields.String(required=True)
-    components = fields.List(fields.Nested(ComponentSchema), required=True, validate=validate.Length(min=1))
+    components = CappedList(fields.Nested(ComponentSchema), 1, settings.CAPS.components, "BIDSTATS_MAX_COMPONENTS", required=True)
 
 
 _SCHEMAS = {name: _parametric_schema(cls)() for name, cls in M.PARAMETRIC.items()}
@@ -160,12 +180,8 @@ def build_value_model(data, depth=0):
             n = len(d["sample"])
             if n < 5:
                 raise ParameterError("sample", "needs at least 5 past values")
-            if n > settings.CAPS.sample:
-                raise ParameterError("sample", f"holds {n} values; the cap is {settings.CAPS.sample}")
             return M.empirical(d["sample"], d["smoothing"], d["low"], d["high"])
         d = _MIXTURE.load(data)
-        if len(d["components"]) > settings.CAPS.components:
-            raise ParameterError("components", f"the cap is {settings.CAPS.components} components")
         if depth >= 2:
             raise ParameterError("components", "mixtures nest at most two deep")
         comps, errors = [], {}

@@ -3,8 +3,11 @@ from __future__ import annotations
 
 import json
 
-from flask import Response, request
-from werkzeug.exceptions import BadRequest, UnsupportedMediaType
+from flask import Response, current_app, request
+from marshmallow import ValidationError
+from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMediaType
+
+from .. import settings
 
 
 def _no_constants(name):
@@ -20,15 +23,30 @@ def json_body():
     mt = request.mimetype or ""
     if not (mt == "application/json" or mt.endswith("+json")):
         raise UnsupportedMediaType("Send the request body as application/json.")
-    raw = request.get_data(cache=True)
+    raw = body_bytes()
     try:
         # As json.loads does with bytes: UTF-8, -16 or -32, told apart by the first bytes.
         data = _DECODER.decode(raw.decode(json.detect_encoding(raw), "surrogatepass"))
     except (ValueError, UnicodeDecodeError) as e:
         raise BadRequest(f"The body is not valid JSON: {e}") from None
+    except RecursionError:
+        raise BadRequest("The body is not valid JSON here: it nests arrays or objects too deeply.") from None
     if not isinstance(data, dict):
         raise BadRequest("The body must be a JSON object.")
     return data
+
+
+def body_bytes():
+    """The request body. A body of declared length is capped before it is read
+    (access.py); a chunked one is read up to one byte past the cap, so that an
+    over-long body is a 413 and never cut short silently."""
+    limit = current_app.config["MAX_CONTENT_LENGTH"]
+    if request.content_length is None and request.environ.get("wsgi.input_terminated"):
+        raw = request.environ["wsgi.input"].read(limit + 1)
+        if len(raw) > limit:
+            raise RequestEntityTooLarge(f"The body is over the {limit}-byte cap (BIDSTATS_MAX_BODY_BYTES).")
+        return raw
+    return request.get_data(cache=True)
 
 
 _SCHEMA_CACHE = {}
@@ -44,8 +62,13 @@ def load(schema_cls, data):
 
 
 def json_response(payload, status=200):
-    """Strict JSON: a NaN or infinity here is a bug and fails loudly."""
-    return Response(json.dumps(payload, allow_nan=False, separators=(",", ":")), status=status, mimetype="application/json")
+    """Strict JSON: a NaN or infinity here is a bug and fails loudly. An answer over
+    BIDSTATS_MAX_RESPONSE_BYTES (the admission estimate missed it) is refused."""
+    text = json.dumps(payload, allow_nan=False, separators=(",", ":"))
+    if len(text) > settings.CAPS.response_bytes:
+        raise ValidationError({"(request)": [f"The answer holds {len(text):,} bytes; the cap is {settings.CAPS.response_bytes:,} "
+                                             "(BIDSTATS_MAX_RESPONSE_BYTES). Ask for fewer points, rows or items."]})
+    return Response(text, status=status, mimetype="application/json")
 
 
 def register_posts(bp, handlers):

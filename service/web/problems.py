@@ -8,8 +8,14 @@ from flask import Response
 from marshmallow import ValidationError
 from werkzeug.exceptions import HTTPException
 
+from ..core.budget import BudgetSpent
+from .admission import RETRY_AFTER, Busy
+
 PROBLEM = "application/problem+json"
 VALIDATION_TYPE = "urn:bidstats:problem:invalid-input"
+BUSY_TYPE = "urn:bidstats:problem:busy"
+#: The most field errors one problem body lists; the count says how many there were.
+MAX_LISTED_ERRORS = 50
 log = logging.getLogger("bidstats")
 
 
@@ -40,7 +46,26 @@ def problem(status, title, detail, type_="about:blank", **extra):
 def validation_body(err: ValidationError):
     errors = flatten(err.messages)
     names = ", ".join(e["field"] for e in errors[:5]) + (" ..." if len(errors) > 5 else "")
-    return problem_body(422, "Invalid request", f"{len(errors)} field(s) invalid: {names}", VALIDATION_TYPE, errors=errors)
+    extra = {"errors_not_listed": len(errors) - MAX_LISTED_ERRORS} if len(errors) > MAX_LISTED_ERRORS else {}
+    return problem_body(422, "Invalid request", f"{len(errors)} field(s) invalid: {names}", VALIDATION_TYPE,
+                        errors=errors[:MAX_LISTED_ERRORS], **extra)
+
+
+def spent_error():
+    """The time budget as a validation error at the field `(request)`."""
+    spent = BudgetSpent()
+    return ValidationError({spent.field: [spent.message]})
+
+
+def busy_body():
+    return problem_body(503, "Service Unavailable", "Every slot for heavy requests on this instance is taken; "
+                        f"retry after {RETRY_AFTER} s, or ask for less work.", BUSY_TYPE)
+
+
+def busy_problem():
+    resp = Response(json.dumps(busy_body()), status=503, mimetype=PROBLEM)
+    resp.headers["Retry-After"] = str(RETRY_AFTER)
+    return resp
 
 
 def validation_problem(err: ValidationError):
@@ -54,6 +79,14 @@ def register(app):
     @app.errorhandler(ValidationError)
     def _invalid(err):
         return validation_problem(err)
+
+    @app.errorhandler(BudgetSpent)
+    def _spent(err):
+        return validation_problem(spent_error())
+
+    @app.errorhandler(Busy)
+    def _busy(err):
+        return busy_problem()
 
     @app.errorhandler(HTTPException)
     def _http(err):

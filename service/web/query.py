@@ -63,9 +63,12 @@ def case_body(args, errors, keys):
 
 
 def unknown(args, known, errors):
+    """Unknown names, and names given more than once (which value was meant is unknowable)."""
     for key in args:
         if key not in known:
             errors[key] = ["Unknown parameter (mixtures, tables and samples need POST)."]
+        elif len(args.getlist(key)) > 1:
+            errors[key] = [f"Given {len(args.getlist(key))} times; give each parameter once."]
 
 
 def flat_errors(err):

@@ -11,8 +11,9 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 from .. import settings
 from ..core import auctions, sweeps
 from . import query
-from .auctions import _AuctionRequest, _case
-from .fields import StrictFloat, StrictInteger
+from . import admission
+from .auctions import _AuctionRequest, _case, _model_work
+from .fields import CappedList, StrictFloat, StrictInteger
 from .io import json_body, json_response, load
 from .problems import validation_problem
 from .top_values import core_call
@@ -79,9 +80,9 @@ def _float_range(r):
 class SweepRequest(_AuctionRequest):
     bidders = _ListOrRange(StrictInteger(minimum=1, maximum=CAPS.bidders), IntRange, _int_range, required=True)
     reserves = _ListOrRange(StrictFloat(), FloatRange, _float_range, required=True)
-    rules = fields.List(fields.String(validate=validate.OneOf(auctions.RULES)), load_default=lambda: ["first_price", "second_price"],
-                        validate=validate.Length(min=1, max=len(auctions.RULES)))
-    metrics = fields.List(fields.String(), load_default=None, validate=validate.Length(min=1, max=len(sweeps.METRICS["forward"])))
+    rules = CappedList(fields.String(validate=validate.OneOf(auctions.RULES)), 1, len(auctions.RULES),
+                       load_default=lambda: ["first_price", "second_price"])
+    metrics = CappedList(fields.String(), 1, len(sweeps.METRICS["forward"]), load_default=None)
 
     @validates_schema
     def _size(self, data, **kw):
@@ -97,6 +98,9 @@ def sweeps_handler(body):
     req = load(SweepRequest, body)
     model, direction, own = _case(req)
     metrics = req["metrics"] or list(sweeps.METRICS[direction][:3])
+    rows = len(req["bidders"]) * len(req["reserves"]) * len(req["rules"])
+    admission.admit(work=_model_work(body) * len(req["bidders"]) * (1 + len(req["reserves"]) / 50),
+                    numbers=rows * (3 + len(metrics)), field="bidders")
     return core_call(
         sweeps.sweep, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserves=req["reserves"],
@@ -140,9 +144,12 @@ def get_sweeps_csv():
     query.unknown(args, {"direction", "family", "seller_value", "buyer_value", *query.MODEL_KEYS, *_LIST_KEYS, *_RANGE_KEYS}, errors)
     body = query.case_body(args, errors, ("seller_value", "buyer_value"))
     for axis, keys in (("bidders", ("from", "to", "step")), ("reserves", ("from", "to", "steps"))):
-        if axis in args:
+        ranged = [f"{axis}_{k}" for k in keys if f"{axis}_{k}" in args]
+        if axis in args and ranged:
+            errors[axis] = [f"Give either the list {axis} or the range {', '.join(ranged)}, not both."]
+        elif axis in args:
             body[axis] = query.number_list(axis, args[axis], errors)
-        elif any(f"{axis}_{k}" in args for k in keys):
+        elif ranged:
             body[axis] = {k: query.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors) for k in keys if f"{axis}_{k}" in args}
     for key in ("rules", "metrics"):
         if key in args:

@@ -5,9 +5,10 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from .. import settings
-from ..core import budget, topvalues
+from ..core import topvalues
 from ..core.errors import ParameterError
-from .fields import StrictFloat, StrictInteger, ValueModelField
+from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
+from . import admission
 from .io import load, register_posts
 
 bp = Blueprint("top_values", __name__)
@@ -21,8 +22,7 @@ _MODEL_FIELDS = {"smoothing", "sample", "components", "truncate"}
 def core_call(fn, field_prefix="bidder_values", **kw):
     """One call into the core; its parameter errors become 422s at their field."""
     try:
-        with budget.within(settings.CAPS.seconds):
-            return fn(**kw)
+        return fn(**kw)
     except ParameterError as e:
         field = f"{field_prefix}.{e.field}" if e.field.split(".")[0] in _MODEL_FIELDS else e.field
         raise ValidationError({field: [e.message]}) from None
@@ -31,12 +31,9 @@ def core_call(fn, field_prefix="bidder_values", **kw):
 class TopValuesRequest(Schema):
     bidder_values = ValueModelField(required=True)
     bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
-    ranks = fields.List(StrictInteger(minimum=1), load_default=None, validate=validate.Length(min=1, max=CAPS.ranks))
-    quantiles = fields.List(
-        StrictFloat(bound="open_probability"),
-        load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95],
-        validate=validate.Length(max=CAPS.quantiles),
-    )
+    ranks = CappedList(StrictInteger(minimum=1), 1, CAPS.ranks, "BIDSTATS_MAX_RANKS", load_default=None)
+    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, CAPS.quantiles, "BIDSTATS_MAX_QUANTILES",
+                           load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
     curve_points = StrictInteger(minimum=0, maximum=CAPS.curve_points, load_default=0)
 
     @validates_schema
@@ -57,9 +54,9 @@ class JointPoint(Schema):
 class JointDensityRequest(Schema):
     bidder_values = ValueModelField(required=True)
     bidders = StrictInteger(minimum=2, maximum=CAPS.bidders, required=True)
-    ranks = fields.List(StrictInteger(minimum=1), load_default=lambda: [1, 2], validate=validate.Length(equal=2))
+    ranks = CappedList(StrictInteger(minimum=1), 2, 2, load_default=lambda: [1, 2])
     grid_points = StrictInteger(minimum=2, maximum=CAPS.grid_points, load_default=None)
-    points = fields.List(fields.Nested(JointPoint), load_default=None, validate=validate.Length(min=1, max=CAPS.points))
+    points = CappedList(fields.Nested(JointPoint), 1, CAPS.points, "BIDSTATS_MAX_POINTS", load_default=None)
 
     @validates_schema
     def _one_of(self, data, **kw):
@@ -75,6 +72,10 @@ class JointDensityRequest(Schema):
 
 def top_values_handler(body):
     req = load(TopValuesRequest, body)
+    ranks, curve = len(req["ranks"] or [1, 2]), req["curve_points"]
+    admission.admit(work=admission.model_work(body.get("bidder_values")) * ranks * (1 + curve / 200),
+                    numbers=ranks * (4 + 2 * len(req["quantiles"]) + 3 * curve),
+                    field="curve_points" if curve else "ranks")
     return core_call(
         topvalues.top_values,
         model=req["bidder_values"], bidders=req["bidders"], ranks=req["ranks"],
@@ -84,11 +85,15 @@ def top_values_handler(body):
 
 def joint_density_handler(body):
     req = load(JointDensityRequest, body)
+    grid, npts = req["grid_points"] or 61, len(req["points"] or [])
+    admission.admit(work=admission.model_work(body.get("bidder_values")) * (npts / 50 if npts else grid / 20),
+                    numbers=3 * npts if npts else grid * grid + 2 * grid,
+                    field="points" if npts else "grid_points")
     pts = None if req["points"] is None else [(p["higher"], p["lower"]) for p in req["points"]]
     return core_call(
         topvalues.joint_density,
         model=req["bidder_values"], bidders=req["bidders"], ranks=tuple(req["ranks"]),
-        grid_points=req["grid_points"] or 61, points=pts,
+        grid_points=grid, points=pts,
     )
 
 
