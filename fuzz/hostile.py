@@ -43,9 +43,10 @@ RANDOM_EXAMPLES = int(os.environ.get("FUZZ_HOSTILE_EXAMPLES", "150"))
 # cases left unsent fail the run.
 PHASE_SECONDS = float(os.environ.get("FUZZ_HOSTILE_SECONDS", "480"))
 THREADS = 2
-# Above the worker timeout (gunicorn.conf.py, 60 s): a stuck request shows as gunicorn's own failure.
+# Above the worker timeout (gunicorn.conf.py, 30 s by default): a stuck request shows as gunicorn's own failure.
 CLIENT_TIMEOUT_S = 75
 RETRIES = 3
+HOLD_HEAD_START_S = 1.0   # the contention holder runs this long before the contenders arrive
 BUSY_TYPE = "urn:bidstats:problem:busy"
 GET_DOORS = ("/v1/quote", "/v1/sweeps.csv")
 
@@ -222,6 +223,21 @@ def _drive(base, cases):
     return results, time.monotonic() - started
 
 
+def _contend(base):
+    """The contention cases: the holder from one thread, the contenders one by one from
+    another once it has run for HOLD_HEAD_START_S; each sent once (a 503 is what is tested)."""
+    holder, contenders = hostile_cases.contention_cases()
+    held = {}
+    thread = threading.Thread(target=lambda: held.setdefault("out", send_once(base, holder)), daemon=True)
+    thread.start()
+    time.sleep(HOLD_HEAD_START_S)
+    outs = [send_once(base, c) for c in contenders]
+    thread.join(CLIENT_TIMEOUT_S + 5)
+    cases = [holder] + contenders
+    results = [(out, judge(c, out)) for c, out in zip(cases, [held.get("out", Outcome(error="the holder never returned"))] + outs)]
+    return cases, results
+
+
 def _curl(case, path):
     url = "http://127.0.0.1:8000" + case.path + (("?" + urlencode(case.query, safe=",")) if case.query else "")
     heads = " ".join(f"-H '{k}: {v}'" for k, v in case.headers.items())
@@ -263,8 +279,13 @@ def run(base, out_dir):
     for c in cases:
         groups[c.group] = groups.get(c.group, 0) + 1
     print(f"fuzz: hostile part, {len(cases)} cases ({', '.join(f'{g} {n}' for g, n in groups.items())}; seed {SEED}), "
-          f"{THREADS} clients, budget {BUDGET_S:g} s + 1 s", flush=True)
+          f"{THREADS} clients, budget {BUDGET_S:g} s + 1 s; then {len(hostile_cases.contention_cases()[1]) + 1} "
+          "contention cases", flush=True)
     results, seconds = _drive(base, cases)
+    started = time.monotonic()
+    more_cases, more_results = _contend(base)
+    seconds += time.monotonic() - started
+    cases, results = cases + more_cases, results + more_results
     lines, tally = _record(out_dir, cases, results)
     done = [(r[0], c) for r, c in zip(results, cases) if r]
     slowest = max(done, key=lambda oc: oc[0].seconds, default=None)

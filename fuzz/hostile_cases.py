@@ -11,7 +11,9 @@ draws from a seeded random.Random, so the same seed sends the same requests:
 - caps:       the documented caps filled (2,000,000-byte bodies, 10,000 points and sample values,
               200 quantiles, 1,000 batch items, 401 grid points) and caps given two ways at once;
 - doors:      the GET doors with repeated, conflicting and extreme query parameters;
-- random:     seeded combinations of the above drawn afresh (FUZZ_HOSTILE_EXAMPLES of them).
+- random:     seeded combinations of the above drawn afresh (FUZZ_HOSTILE_EXAMPLES of them);
+- contention: heavy requests, batches and /healthz sent while one heavy request runs, so that
+              the busy path (503 with Retry-After) is taken for certain (sent last, on its own).
 
 Every value model and figure here is invented for the purpose; none is a check value.
 """
@@ -580,6 +582,28 @@ def random_door(rng, i, path):
     pairs = [(k, v) for k, v in pairs if k != "bidders"] + [("bidders", "1,2,6"), ("reserves", ",".join(
         _query_number(float(x)) for x in [0.0] + ([reserve] if reserve is not None else [])))]
     return get("random", f"random {i}: sweeps.csv", path, pairs)
+
+
+def contention_cases():
+    """(holder, contenders): while the holder runs (a heavy request that takes seconds), the
+    contenders arrive one by one; each heavy one must get an answer or a busy 503, never a 500."""
+    holder = post("contention", "holder: 2,001 bids, nested mixture of 2 x 25", "/v1/bid-strategy",
+                  {"bidder_values": nested_mixture(25), "bidders": 10, "points": MAX_CURVE}, heavy=True)
+    light = [{"id": i, "path": "/v1/revenue", "body": {"bidder_values": LOGNORMAL, "bidders": 2 + i % 50}} for i in range(MAX_BATCH)]
+    mixed = [{"id": i, "path": "/v1/revenue", "body": {"bidder_values": mixture(20), "bidders": 10}} for i in range(20)]
+    lg = [("family", "lognormal"), ("median", 62000), ("sigma", 0.35)]
+    contenders = [
+        get("contention", "while a heavy request runs: /healthz", "/healthz", []),
+        post("contention", "while a heavy request runs: batch of 1,000 light items", "/v1/batch", {"requests": light}),
+        post("contention", "while a heavy request runs: batch of 20 20-component mixtures", "/v1/batch", {"requests": mixed}),
+        post("contention", "while a heavy request runs: 50-component mixture revenue", "/v1/revenue",
+             {"bidder_values": mixture(MAX_COMPONENTS), "bidders": 10}),
+        get("contention", "while a heavy request runs: sweeps.csv of 200,000 rows", "/v1/sweeps.csv",
+            lg + [("bidders_from", 2), ("bidders_to", 2001), ("reserves_from", 30000), ("reserves_to", 80000),
+                  ("reserves_steps", 100), ("rules", "first_price")]),
+        get("contention", "while a heavy request runs: /healthz again", "/healthz", []),
+    ]
+    return holder, contenders
 
 
 def all_cases(seed, random_count):

@@ -43,7 +43,7 @@ MAX_EXAMPLES = int(os.environ.get("FUZZ_MAX_EXAMPLES", "300"))
 # the tool, not the service, and one that a reproducible run cannot afford.
 WORKERS = int(os.environ.get("FUZZ_WORKERS", "1"))
 READY_TIMEOUT = 90.0
-# Above the worker timeout (gunicorn.conf.py, 60 s), so that a stuck request shows as
+# Above the worker timeout (gunicorn.conf.py, 30 s by default), so that a stuck request shows as
 # gunicorn's own failure (the worker is killed, the connection drops) and not as ours.
 REQUEST_TIMEOUT = 75
 # The whole schemathesis run may not take longer than this; past it the run is stopped
