@@ -118,12 +118,15 @@ def heavy_client(url, body, deadline, out):
             time.sleep(BUSY_SLEEP_S)
 
 
-def third_client(url, deadline, probes, ordinary):
+def third_client(url, deadline, probes, ordinary, span):
     """A /healthz probe every PROBE_EVERY_S, ordinary requests in between (at least one
-    between two probes, so that slow probes still leave a throughput to report)."""
-    next_probe, probed = time.monotonic(), False
+    between two probes, so that slow probes still leave a throughput to report).
+    ``span["seconds"]`` becomes the time the client ran."""
+    started = next_probe = time.monotonic()
+    probed = False
     for _ in range(MAX_REQUESTS_PER_LOOP):
         now = time.monotonic()
+        span["seconds"] = now - started
         if now >= deadline:
             return
         probed = now >= next_probe and not probed
@@ -141,18 +144,18 @@ def third_client(url, deadline, probes, ordinary):
 
 
 def under_load(g, path, body):
-    """Two heavy clients and the third client for LOAD_S seconds: (heavy outcomes, probes, ordinary, seconds)."""
-    heavy, probes, ordinary = [[], []], [], Counter()
-    started = time.monotonic()
-    deadline = started + LOAD_S
+    """Two heavy clients and the third client for LOAD_S seconds:
+    (heavy outcomes, probes, ordinary outcomes, seconds the third client ran)."""
+    heavy, probes, ordinary, span = [[], []], [], Counter(), {"seconds": 0.0}
+    deadline = time.monotonic() + LOAD_S
     threads = [threading.Thread(target=heavy_client, args=(g.url + path, body, deadline, heavy[i]), daemon=True) for i in range(2)]
-    threads.append(threading.Thread(target=third_client, args=(g.url, deadline, probes, ordinary), daemon=True))
+    threads.append(threading.Thread(target=third_client, args=(g.url, deadline, probes, ordinary, span), daemon=True))
     for t in threads:
         t.start()
     for t in threads:
         t.join(timeout=LOAD_S + HEAVY_TIMEOUT_S + 10)
     assert not any(t.is_alive() for t in threads), "a client outlived its deadline and its request timeout"
-    return heavy[0] + heavy[1], probes, ordinary, time.monotonic() - started
+    return heavy[0] + heavy[1], probes, ordinary, span["seconds"]
 
 
 def _summary(heavy, probes, ordinary, idle, loaded_s):
