@@ -13,7 +13,9 @@ check is a law that any correct answer obeys whatever the numerics:
 - no revenue above the mean of the highest value: the bidders' and the winner's
   expected surplus are not negative (individual rationality), and for non-negative
   values E[revenue] <= E[highest of n] <= mean + sd (n - 1) / sqrt(2n - 1), the bound of
-  Hartley and David (1954, Ann. Math. Statist. 25, 85-99) and Gumbel (1954, same issue);
+  Hartley and David (1954, Ann. Math. Statist. 25) and Gumbel (1954, the same volume;
+  both citations from memory), and <= n mean (the highest of non-negative values is at
+  most their sum);
 - revenue equivalence (Myerson 1981; Riley and Samuelson 1981): under the service's
   stated assumptions the five rules' expected revenues agree, given the same reserve;
 - an equilibrium bid is increasing in the value and no higher than it (an ask: no lower
@@ -138,7 +140,8 @@ def _moments(model):
     if fam == "beta":
         a, b = float(m["alpha"]), float(m["beta"])
         lo, w = _param(m, "low", 0.0), _param(m, "high", 1.0) - _param(m, "low", 0.0)
-        return lo + w * a / (a + b), w * math.sqrt(a * b / ((a + b) ** 2 * (a + b + 1)))
+        p, q = a / (a + b), b / (a + b)  # a b alone underflows for subnormal shapes
+        return lo + w * p, w * math.sqrt(p * q / (a + b + 1))
     if fam == "triangular":
         a, c, b = float(m["low"]), float(m["mode"]), float(m["high"])
         return (a + b + c) / 3, math.sqrt(max(a * a + b * b + c * c - a * b - a * c - b * c, 0.0) / 18)
@@ -198,12 +201,14 @@ def model_scale(model):
 
 
 def top_bound(model, n):
-    """Upper bound on E[highest of n] (Hartley and David 1954), or inf."""
+    """Upper bound on E[highest of n] for values >= 0, or inf: the smaller of
+    mean + sd (n - 1) / sqrt(2n - 1) (Hartley and David 1954) and n mean (the highest of
+    non-negative values is at most their sum)."""
     got = moments(model)
     if got is None:
         return INF
     mean, sd = got
-    bound = mean + sd * (n - 1) / math.sqrt(2 * n - 1)
+    bound = min(mean + sd * (n - 1) / math.sqrt(2 * n - 1), n * mean)
     return bound if math.isfinite(bound) else INF
 
 
@@ -291,7 +296,7 @@ def top_values(req, ans):
         if r["rank"] == 1 and mean is not None and lo >= 0:
             bound = top_bound(model, n)
             f.need(mean <= bound + _tol(bound, mean), ("mean", "rank 1"),
-                   f"rank 1 mean {mean!r} exceeds the Hartley-David bound {bound!r} on E[highest of {n}]")
+                   f"rank 1 mean {mean!r} exceeds {bound!r}, the bound on E[highest of {n}] from the model's mean and sd")
     _nonincreasing_means(f, results, means, tol)
     _quantiles_by_rank(f, results, tol)
     gap = _num(ans.get("expected_gap"))
@@ -403,8 +408,8 @@ def auction_figures(f, auc, fig, rule, err=0.0):
             f.need(mean <= auc.high_end * p + tol, names, f"{rule}: {k['mean']} {mean!r} above the highest price {auc.high_end!r} times {k['p']} {p!r}")
     if mean is not None and auc.direction == "forward" and auc.lo >= 0:
         bound = top_bound(auc.model, auc.n)
-        f.need(mean <= bound + _tol(bound, mean), names, f"{rule}: {k['mean']} {mean!r} above the Hartley-David bound "
-                                                          f"{bound!r} on the mean of the highest of {auc.n} values")
+        f.need(mean <= bound + _tol(bound, mean), names, f"{rule}: {k['mean']} {mean!r} above {bound!r}, the bound on "
+                                                          f"the mean of the highest of {auc.n} values from the model's mean and sd")
     for key in ("expected_winner_surplus", "expected_bidder_surplus"):
         s = _num(fig.get(key))
         f.need(s is None or s >= -tol, (key, rule), f"{rule}: {key} = {s!r} is negative: the {word} exceeds the mean of the "
