@@ -2,9 +2,10 @@
 
 fuzz/run.py calls `run(base, out)` after schemathesis, against the same server. Two
 client threads (one per worker) send the cases: the first sends the heavy ones one at a
-time, then helps the second with the light ones. A 503 with Retry-After is honoured (at
-most RETRIES resends, each after min(Retry-After, 2) s), so that a case the service finds
-heavy still gets computed once a slot frees. Each answer is judged against the contract:
+time, then helps the second with the light ones. A case that gets a busy 503 (the service
+found it heavy while the slots were taken) is sent again at the end, alone (resent at most
+RETRIES times after min(Retry-After, 2) s), so that every case is computed once; a busy 503
+then, with nothing else in flight, is a failure. Each answer is judged against the contract:
 
 - no 5xx, except a 503 that carries Retry-After and the problem type urn:bidstats:problem:busy;
 - no dropped connection, and no answer later than the time budget + 1 s (BIDSTATS_MAX_SECONDS,
@@ -78,11 +79,16 @@ def send_once(base, case):
         return Outcome(seconds=time.perf_counter() - started, error=f"{type(err).__name__}: {str(err)[:200]}")
 
 
-def send(base, case):
-    """One case, resent after a busy 503 with Retry-After (at most RETRIES times)."""
+def busy(out):
+    """A 503 that asks to come back (Retry-After)."""
+    return out.status == 503 and out.headers.get("Retry-After", "").strip().isdigit()
+
+
+def send(base, case, retries=RETRIES):
+    """One case, resent after a busy 503 (at most ``retries`` times, after min(Retry-After, 2) s)."""
     out = send_once(base, case)
     attempts = 1
-    while out.status == 503 and attempts <= RETRIES and out.headers.get("Retry-After", "").strip().isdigit():
+    while busy(out) and attempts <= retries:
         time.sleep(min(float(out.headers["Retry-After"]), 2.0))
         out = send_once(base, case)
         attempts += 1
@@ -200,8 +206,11 @@ def kind(message):
 def _drive(base, cases):
     """Send every case until done or PHASE_SECONDS run out; (results by index, seconds).
     The heavy cases go one at a time through the first client, as the service runs heavy
-    requests in a bounded number of slots anyway; the light ones go through both clients."""
-    results = [None] * len(cases)
+    requests in a bounded number of slots anyway; the light ones go through both clients.
+    A case that finds the heavy slots taken (a busy 503) is put off, and the put-off cases
+    are sent again at the end one at a time, when no other request is in flight: then a
+    busy 503 is a failure, since every slot is free."""
+    results, deferred = [None] * len(cases), []
     lock = threading.Lock()
     heavy = iter([i for i, c in enumerate(cases) if c.heavy])
     light = iter([i for i, c in enumerate(cases) if not c.heavy])
@@ -214,12 +223,25 @@ def _drive(base, cases):
                     i = next(lane, None)
                 if i is None or time.monotonic() - started > PHASE_SECONDS:
                     break
-                out = send(base, cases[i])
-                results[i] = (out, judge(cases[i], out))
+                out = send(base, cases[i], retries=0)
+                if busy(out):
+                    with lock:
+                        deferred.append(i)
+                else:
+                    results[i] = (out, judge(cases[i], out))
 
     with ThreadPoolExecutor(THREADS) as pool:
         for f in [pool.submit(worker, (heavy, light)), pool.submit(worker, (light,))]:
             f.result()
+    for i in deferred:
+        if time.monotonic() - started > PHASE_SECONDS:
+            break
+        out = send(base, cases[i])
+        fails = judge(cases[i], out)
+        if busy(out):
+            fails.append(f"{out.attempts} busy 503s in a row although no other request was in flight")
+        results[i] = (out, fails)
+    print(f"fuzz: hostile part: {len(deferred)} case(s) found the heavy slots taken and were sent again alone", flush=True)
     return results, time.monotonic() - started
 
 
