@@ -50,7 +50,7 @@ class Caps:
     seconds: float = _seconds_env("BIDSTATS_MAX_SECONDS", 10.0)
     response_bytes: int = _int_env("BIDSTATS_MAX_RESPONSE_BYTES", 32_000_000)
     heavy_slots: int = _int_env("BIDSTATS_HEAVY_SLOTS", 1)
-    heavy_after: float = _seconds_env("BIDSTATS_HEAVY_AFTER", 0.5)
+    heavy_after: float = _seconds_env("BIDSTATS_HEAVY_AFTER", 0.25)
 
 
 CAPS = Caps()

@@ -207,3 +207,16 @@ def test_an_answer_over_the_size_cap_is_refused_even_when_the_estimate_missed(cl
     resp = client.post("/v1/revenue", json={"bidder_values": UNIFORM, "bidders": 3, "rules": ["second_price"], "quantiles": []})
     assert resp.status_code == 422
     assert json.loads(resp.get_data())["errors"][0]["field"] == "(request)"
+
+
+def test_a_batch_that_turns_heavy_with_every_slot_taken_is_a_503_not_item_500s(client):
+    mine = client.application.extensions["bidstats.slots"]
+    slots = admission.Slots(mine.count, mine.directory)
+    held = slots.acquire()
+    try:
+        item = {"path": "/v1/revenue", "body": {"bidder_values": UNIFORM, "bidders": 4}}  # 5 units each
+        resp = client.post("/v1/batch", json={"requests": [{"id": i, **item} for i in range(40)]})
+        assert resp.status_code == 503 and resp.headers["Retry-After"]
+        assert resp.get_json()["type"] == "urn:bidstats:problem:busy"
+    finally:
+        slots.release(held)

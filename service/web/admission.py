@@ -31,8 +31,9 @@ from ..core import budget
 
 #: Bytes one number takes in a JSON answer: 17 significant digits, an exponent and a separator.
 BYTES_PER_NUMBER = 24
-#: Estimated work (in units of one parametric model's revenue report) above which a request is heavy.
-HEAVY_WORK = 400.0
+#: Estimated work above which a request is heavy. A unit is roughly one parametric model's
+#: revenue under one rule (1 to 3 ms here); 100 units are a few tenths of a second.
+HEAVY_WORK = 100.0
 #: Seconds a client is asked to wait when every heavy slot is taken.
 RETRY_AFTER = 2
 

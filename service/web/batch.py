@@ -11,6 +11,7 @@ from .. import settings
 from ..core import budget
 from ..core.budget import BudgetSpent
 from . import auctions, sweeps, top_values
+from .admission import Busy
 from .fields import CappedList
 from .io import json_body, json_response, load
 from .problems import problem_body, spent_error, validation_body
@@ -51,6 +52,8 @@ def _answer(raw):
         return 422, validation_body(err)
     except BudgetSpent:  # the backstop fired outside the item's core call
         return 422, validation_body(spent_error())
+    except Busy:
+        raise
     except Exception:  # one item's failure must not sink the others
         log.exception("batch item failed")
         return 500, problem_body(500, "Internal Server Error", "The service failed to compute this item; the error has been logged.")
