@@ -30,6 +30,7 @@ from scipy import integrate, optimize, stats
 from service.core import auctions as A
 from service.core import models as M
 from service.core import orderstats as O
+from service.core.errors import ParameterError
 
 RULES = A.RULES
 WINNER_PAYS = ("first_price", "second_price", "ascending", "descending")
@@ -865,3 +866,229 @@ def test_clustered_first_price_bids_against_quad(name, n, vs):
     got = A.bid_strategy(build(), "forward", n, rule="first_price", at=vs)["bids"]
     for v, b in zip(vs, got):
         assert b == pytest.approx(want(v), abs=1e-11 * scale), v
+
+
+# =====================================================================================
+# 10. Heavy tails: each figure exists by the tail index of what it integrates
+# =====================================================================================
+# Pareto values, P(X > x) = (xm/x)^a. Rank k from the top has tail index k a, so E[X_(k)^p]
+# exists iff k a > p (David and Nagaraja 2003, section 2.1, from the Beta representation):
+# the second-price price X_(2) has a mean iff 2a > 1 and a variance iff 2a > 2. The
+# first-price price is b(X_(1)), b(v) = E[Y | Y < v], Y the highest of the other n - 1
+# (Krishna 2009, ch. 2). Derived here: for a < 1, E[Y; Y < v] grows as v^(1 - a), so b(v) ~ c v^(1-a)
+# and P(b(X_(1)) > y) ~ y^(-a/(1-a)): E[b^p] exists iff a/(1 - a) > p, that is a > p/(1 + p)
+# (a mean iff a > 1/2, as for X_(2); a variance iff a > 2/3); for a >= 1, b is bounded by
+# E[Y] (or grows as log v at a = 1) and every moment exists. The all-pay bid F^(n-1) b has
+# the same tail. The winner's and the bidders' surplus and the efficiency need E[X_(1)]: a > 1.
+
+def pareto_bid_moments(a, n, xm):
+    """(E[b(X_(1))], sd of b(X_(1)), sd of the all-pay revenue) for Pareto values and no
+    reserve, by mpmath quadrature at 30 digits. With u = F(v) = 1 - e^-y (y >= 0, so both
+    u and 1 - u keep their digits) and G = u^(n-1): E[Y; Y < v] = xm (n-1) int_0^u
+    w^(n-2) (1-w)^(-1/a) dw, an incomplete beta integral taken from whichever end is
+    nearer; b(v) = E[Y; Y < v] / u^(n-1); the all-pay bid a(v) = G(v) b(v) = E[Y; Y < v];
+    X_(1) has density n u^(n-1) in u, one bidder's value density 1."""
+    with mp.workdps(30):
+        am, k = mp.mpf(a), n - 1
+        c = 1 - 1 / am
+
+        def rival_part(y):
+            u, v = -mp.expm1(-y), mp.exp(-y)
+            return xm * k * (mp.betainc(k, c, 0, u) if v > 0.5 else mp.betainc(c, k, v, 1))
+
+        def expect(f):  # int_0^1 f du with u = 1 - e^-y
+            return mp.quad(lambda y: f(y) * mp.exp(-y), [0, 0.1, 1, 5, 20, 60, 200, 800, 3000, mp.inf])
+
+        def top(y):
+            return n * (-mp.expm1(-y)) ** (n - 1)
+
+        def bid(y):
+            return rival_part(y) / (-mp.expm1(-y)) ** k
+
+        m1, m2 = expect(lambda y: top(y) * bid(y)), expect(lambda y: top(y) * bid(y) ** 2)
+        e1, e2 = expect(rival_part), expect(lambda y: rival_part(y) ** 2)
+        return float(m1), float(mp.sqrt(m2 - m1**2)), float(mp.sqrt(n * (e2 - e1**2)))
+
+
+def pareto_rank_moment(a, xm, n, r, p):
+    """E[X_(r)^p], rank r from the top, or None where it does not exist:
+    xm^p G(n+1) G(r - p/a) / (G(r) G(n+1-p/a)) (David and Nagaraja 2003, section 2.1)."""
+    with mp.workdps(30):
+        c = mp.mpf(p) / mp.mpf(a)
+        if r <= c:
+            return None
+        return mp.mpf(xm) ** p * mp.exp(mp.loggamma(n + 1) - mp.loggamma(n + 1 - c) + mp.loggamma(r - c) - mp.loggamma(r))
+
+
+def _second_price_sd(a, xm, n):
+    m1, m2 = pareto_rank_moment(a, xm, n, 2, 1), pareto_rank_moment(a, xm, n, 2, 2)
+    return None if m2 is None else float(mp.sqrt(m2 - m1**2))
+
+
+def _errors_within_estimate(rep, got_want):
+    """Each reported figure's error is within the report's abs_error (numerics)."""
+    bound = rep["numerics"]["abs_error"]
+    for got, want in got_want:
+        assert abs(got - want) <= bound, (got, want, bound)
+
+
+@pytest.mark.parametrize("a", [1.2, 1.5, 2.5])
+def test_pareto_first_price_sd_exists_where_second_price_sd_does(a):
+    # With a > 1 the first-price price is bounded, so its sd exists even where the
+    # second-price one does not (2a <= 2 at a = 1.2, 1.5 needs 2a > 2: it exists); both against
+    # mpmath (pareto_bid_moments) and the Pareto rank moments above, rel 1e-10; the report's
+    # abs_error bounds every error. 5 bidders, minimum 100, no reserve.
+    rep = A.revenue_report(M.Pareto(a, 100.0), "forward", 5)
+    res = by_rule(rep)
+    fp_mean, fp_sd, ap_sd = pareto_bid_moments(a, 5, 100.0)
+    sp_sd = _second_price_sd(a, 100.0, 5)
+    for rule in ("first_price", "descending"):
+        assert res[rule]["revenue_sd"] == pytest.approx(fp_sd, rel=1e-10), rule
+    assert res["all_pay"]["revenue_sd"] == pytest.approx(ap_sd, rel=1e-10)
+    for rule in ("second_price", "ascending"):
+        assert res[rule]["revenue_sd"] == pytest.approx(sp_sd, rel=1e-10), rule
+    for rule in RULES:
+        assert res[rule]["expected_revenue"] == pytest.approx(fp_mean, rel=1e-10), rule
+    assert not any("sd is null" in w for w in rep["warnings"])
+    _errors_within_estimate(rep, [(res["first_price"]["revenue_sd"], fp_sd), (res["all_pay"]["revenue_sd"], ap_sd),
+                                  (res["second_price"]["revenue_sd"], sp_sd), (res["first_price"]["expected_revenue"], fp_mean)])
+
+
+@pytest.mark.parametrize("a", [0.6, 0.7, 0.8, 0.9])
+def test_pareto_price_exists_though_the_top_value_has_no_mean(a):
+    # a < 1: E[X_(1)] diverges but E[X_(2)] (2a > 1) does not, so every rule's expected
+    # revenue exists and equals E[X_(2)] (revenue equivalence: Myerson 1981; Riley and
+    # Samuelson 1981), rel 1e-10. The second-price sd needs 2a > 2: null. The first-price
+    # and all-pay sds exist iff a > 2/3 (derived above): against mpmath, rel 1e-10, else
+    # null. Surplus and efficiency need E[X_(1)]: null. Every null comes with a warning.
+    rep = A.revenue_report(M.Pareto(a, 100.0), "forward", 5)
+    res = by_rule(rep)
+    mean2 = float(pareto_rank_moment(a, 100.0, 5, 2, 1))
+    for rule in RULES:
+        assert res[rule]["expected_revenue"] == pytest.approx(mean2, rel=1e-10), rule
+        assert res[rule]["expected_winner_surplus"] is None and res[rule]["expected_bidder_surplus"] is None
+        assert res[rule]["efficiency"] is None
+    assert any("surplus" in w and "efficiency" in w for w in rep["warnings"])
+    for rule in ("second_price", "ascending"):
+        assert res[rule]["revenue_sd"] is None
+        assert any(w.startswith(f"{rule}: the sd is null") for w in rep["warnings"])
+    if a > 2 / 3:
+        _, fp_sd, ap_sd = pareto_bid_moments(a, 5, 100.0)
+        for rule in ("first_price", "descending"):
+            assert res[rule]["revenue_sd"] == pytest.approx(fp_sd, rel=1e-10), rule
+        assert res["all_pay"]["revenue_sd"] == pytest.approx(ap_sd, rel=1e-10)
+        _errors_within_estimate(rep, [(res["first_price"]["revenue_sd"], fp_sd), (res["all_pay"]["revenue_sd"], ap_sd)])
+    else:
+        for rule in ("first_price", "descending", "all_pay"):
+            assert res[rule]["revenue_sd"] is None
+            assert any(w.startswith(f"{rule}: the sd is null") for w in rep["warnings"])
+    _errors_within_estimate(rep, [(res[rule]["expected_revenue"], mean2) for rule in RULES])
+
+
+@pytest.mark.parametrize("a,n", [(0.6, 2), (0.8, 2), (0.6, 3), (0.8, 3)])
+def test_pareto_costs_with_a_maximum_price(a, n):
+    # Reverse: costs C Pareto, lowest wins. A maximum price R caps every payment, so the
+    # expected payment exists whatever the tail: all five rules equal E[min(C_(2), R); C_(1) <= R]
+    # (revenue equivalence), by mpmath quadrature (mp_second_price_reverse), rel 1e-8, with R the
+    # cost median. Without it the payment is the second-lowest cost, rank n - 1 from the top of n,
+    # whose mean needs (n - 1) a > 1 (section 10): for n = 2 the request is refused, for n = 3
+    # every rule pays G(n+1) G(k - 1/a) / (G(k) G(n+1 - 1/a)), k = n - 1 (minimum 1).
+    m, Q = M.Pareto(a, 1.0), mp_quantile("pareto", (a, 1.0))
+    R = float(Q(mp.mpf("0.5")))
+    want = mp_second_price_reverse(Q, n, 0.5, R)
+    for res in A.revenue_report(m, "reverse", n, R, None)["results"]:
+        assert res["expected_payment"] == pytest.approx(want, rel=1e-8), res["rule"]
+    if (n - 1) * a <= 1:
+        with pytest.raises(ParameterError):
+            A.revenue_report(m, "reverse", n, None, None)
+        return
+    k = n - 1
+    want = float(mp.gamma(n + 1) * mp.gamma(k - 1 / mp.mpf(a)) / (mp.gamma(k) * mp.gamma(n + 1 - 1 / mp.mpf(a))))
+    for res in A.revenue_report(m, "reverse", n, None, None)["results"]:
+        assert res["expected_payment"] == pytest.approx(want, rel=1e-8), res["rule"]
+
+
+@pytest.mark.parametrize("a", [0.3, 0.5])
+def test_pareto_expected_price_missing_only_below_one_half(a):
+    # 2a <= 1: E[X_(2)] diverges, and with it every rule's expected revenue (a 422 naming bidders).
+    with pytest.raises(ParameterError) as e:
+        A.revenue_report(M.Pareto(a, 100.0), "forward", 5)
+    assert e.value.field == "bidders"
+
+
+@pytest.mark.parametrize("a", [0.3, 0.6, 1.0])
+def test_pareto_bids_exist_whatever_the_tail(a):
+    # b(v) = E[Y | Y < v] averages values below v only, so it is finite for every v however heavy
+    # the tail (Krishna 2009, ch. 2): against the incomplete beta integral of pareto_bid_moments,
+    # b(v) = xm (n-1) int_0^u w^(n-2) (1-w)^(-1/a) dw / u^(n-1), u = F(v), mpmath at 30 digits.
+    n, xm = 5, 100.0
+    vs = [100.5, 150.0, 1e3, 1e5, 1e9, 1e15]
+    got = A.bid_strategy(M.Pareto(a, xm), "forward", n, rule="first_price", at=vs)["bids"]
+    with mp.workdps(30):
+        c = 1 - 1 / mp.mpf(a)
+        for v, b in zip(vs, got):
+            s = (mp.mpf(xm) / v) ** mp.mpf(a)  # 1 - F(v)
+            u = 1 - s
+            want = xm * (n - 1) * (mp.betainc(n - 1, c, 0, u) if s > 0.5 else mp.betainc(c, n - 1, s, 1)) / u ** (n - 1)
+            assert b == pytest.approx(float(want), rel=1e-12), v
+
+
+# =====================================================================================
+# 11. Narrow values: differences of near-equal figures integrated as one quantity
+# =====================================================================================
+# The winner's surplus under second price is E[X_(1) - max(X_(2), r); X_(1) >= r]
+# = int_r^high n F^(n-1) (1 - F) dx (integrating X_(1) - max(X_(2), r) = int 1{X_(2) < x <= X_(1)} dx
+# over x >= r; derived here), the same for every winner-pays rule and for the bidders as
+# a whole (revenue equivalence: Myerson 1981). With seller value 0 and values > 0 the
+# efficiency is E[X_(1); X_(1) >= r] / E[X_(1)] = 1 - lost / E[X_(1)], lost =
+# E[X_(1); X_(1) < r] = low F(r)^n + w (y_r I(y_r)^n - int_0^y_r I^n dy), E[X_(1)] =
+# low + w (1 - int_0^1 I^n dy) for X = low + w Y, Y ~ Beta(a, b), I its cdf (by parts).
+
+def mp_beta_gains(a, b, lo, hi, n, r):
+    """(winner's surplus, efficiency) for Beta(a, b) values on [lo, hi], n bidders,
+    reserve r, seller value 0: mpmath at 30 digits (formulas above), the pieces split where
+    n (1 - I(y)) passes 50 ... 0.003, around the top value's bulk (scipy.stats.beta places them)."""
+    with mp.workdps(30):
+        a, b, lo, hi, r = (mp.mpf(t) for t in (a, b, lo, hi, r))
+        w = hi - lo
+        cdf = lambda y: mp.betainc(a, b, 0, y, regularized=True)  # noqa: E731
+        sf = lambda y: mp.betainc(b, a, 0, 1 - y, regularized=True)  # noqa: E731
+        yr = (r - lo) / w
+        marks = [mp.mpf(stats.beta.isf(t / n, float(a), float(b))) for t in (50, 10, 3, 1, 0.3, 0.05, 0.003)]
+
+        def over(f, x0, x1):
+            return mp.quad(f, [x0] + sorted(p for p in marks if x0 < p < x1) + [x1])
+
+        surplus = w * over(lambda y: n * cdf(y) ** (n - 1) * sf(y), yr, 1)
+        ir = cdf(yr)
+        lost = lo * ir**n + w * (yr * ir**n - over(lambda y: cdf(y) ** n, 0, yr))
+        top = lo + w * (1 - over(lambda y: cdf(y) ** n, 0, 1))
+        return float(surplus), float(1 - lost / top)
+
+
+@pytest.mark.parametrize("a,b,lo,width,v_reserve", [
+    (2.0, 2.0, 1e4, 1e-8, 2.5e-4),  # the surplus is 8e-12 beside values of 1e4
+    (2.0, 2.0, 100.0, 1e-5, 4e-4),  # the efficiency is within 1e-17 of 1
+    (3.0, 3.0, 1e6, 1.0, 1e-3),
+    (2.0, 5.0, 0.0, 1e-6, 1e-5),
+])
+def test_narrow_beta_surplus_and_efficiency(a, b, lo, width, v_reserve):
+    # 100,000 bidders, the reserve where one value's survival is v_reserve (near the top),
+    # seller value 0. Against mpmath (mp_beta_gains), rel 1e-10 for the surplus (every rule's
+    # bidders and every winner-pays rule's winner), abs 1e-12 for the efficiency, which must
+    # never exceed 1 (it is a ratio of gains with the lost ones subtracted); the report's
+    # abs_error bounds every error.
+    n = 100_000
+    m = M.BetaValues(a, b, lo, lo + width)
+    r = float(m.isf(v_reserve))
+    surplus, eff = mp_beta_gains(a, b, lo, m.upper, n, r)
+    rep = A.revenue_report(m, "forward", n, r, None)
+    checks = []
+    for res in rep["results"]:
+        assert res["expected_bidder_surplus"] == pytest.approx(surplus, rel=1e-10), res["rule"]
+        if res["rule"] in WINNER_PAYS:
+            assert res["expected_winner_surplus"] == pytest.approx(surplus, rel=1e-10), res["rule"]
+        assert res["efficiency"] == pytest.approx(eff, abs=1e-12), res["rule"]
+        assert res["efficiency"] <= 1.0
+        checks += [(res["expected_bidder_surplus"], surplus), (res["efficiency"], eff)]
+    _errors_within_estimate(rep, checks)

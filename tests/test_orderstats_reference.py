@@ -930,3 +930,129 @@ def test_joint_density_marginals_match_rank_logpdf(family):
         f2 = integrate.quad(lambda u: jd(u, x), x, hi_b, epsabs=0, epsrel=1e-12, limit=200)[0]
         assert rel_err(f1, np.exp(O.rank_logpdf(model, n, 1, x))) < 1e-8
         assert rel_err(f2, np.exp(O.rank_logpdf(model, n, 2, x))) < 1e-8
+
+
+# ---------------------------------------------------------------------------
+# 11. A spread far smaller than where the values sit, and the top spacing.
+#     The sd of a rank is taken about a reference next to it and the gap
+#     E[X_(1) - X_(2)] is integrated as one quantity, so neither may depend on
+#     where the model sits. References: mpmath at 30 digits (section 2's
+#     textbook density; 30 digits leave 20 beside a location 1e8 times the
+#     spread) and the uniform spacing (Beta means, below). Every error is
+#     within the report's own abs_error.
+# ---------------------------------------------------------------------------
+NARROW = {
+    "normal_150000_sd_0.001": (lambda: M.Normal(150000.0, 0.001), lambda: mp_normal(150000.0, 0.001),
+                               st.norm(150000.0, 0.001).isf, -INF, INF),
+    "lognormal_1e6_sigma_1e-8": (lambda: M.LogNormal(median=1e6, sigma=1e-8), lambda: mp_lognormal(1e6, 1e-8),
+                                 st.lognorm(1e-8, scale=1e6).isf, 0.0, INF),
+    "beta_2_3_at_1e6_width_1e-3": (lambda: M.BetaValues(2.0, 3.0, 1e6, 1e6 + 1e-3), None, None, None, None),
+    "triangular_at_-1e8": (lambda: M.Triangular(-1e8, -1e8 + 0.25, -1e8 + 1.0), None, None, None, None),
+}
+
+
+def _narrow_reference(name):
+    """The model, and its mpmath F, S, f built at 30 digits (normalisers included)."""
+    build, make_funcs, isf, lower, upper = NARROW[name]
+    model = build()
+    with mp.workdps(30):
+        if make_funcs is not None:
+            return model, make_funcs(), isf, lower, upper
+        # the parameters as the model holds them, so that the reference is the same model
+        if isinstance(model, M.BetaValues):
+            funcs, isf = mp_beta(2.0, 3.0, model.lower, model.upper), st.beta(2.0, 3.0, model.lower, model.width).isf
+        else:
+            funcs, isf = mp_triangular(model.lower, model.c, model.upper), st.triang(model.fc, model.lower, model.w).isf
+    return model, funcs, isf, model.lower, model.upper
+
+
+@pytest.mark.parametrize("name,n,rank", [
+    ("normal_150000_sd_0.001", 1000, 2),
+    ("lognormal_1e6_sigma_1e-8", 10**6, 1),
+    ("lognormal_1e6_sigma_1e-8", 10**6, 2),
+    ("beta_2_3_at_1e6_width_1e-3", 1000, 1),
+    ("beta_2_3_at_1e6_width_1e-3", 10, 2),
+    ("triangular_at_-1e8", 100, 2),
+])
+def test_narrow_model_rank_sd_against_mpmath(name, n, rank):
+    # rel 1e-10 on the sd (the service's target for parametric families), whatever the
+    # location; the mean as well.
+    model, funcs, isf, lower, upper = _narrow_reference(name)
+    kinks = (model.c,) if isinstance(model, M.Triangular) else ()
+    want_mean, want_sd = mp_rank_moments(*funcs, n, rank, quantile_breaks(isf, n, rank, lower, upper, kinks))
+    rep = T.top_values(model, n, ranks=[rank])
+    got = rep["results"][0]
+    assert rel_err(got["sd"], want_sd) < PARAMETRIC_RTOL
+    assert rel_err(got["mean"], want_mean) < PARAMETRIC_RTOL
+    bound = rep["numerics"]["abs_error"]
+    assert abs(got["sd"] - float(want_sd)) <= bound and abs(got["mean"] - float(want_mean)) <= bound
+
+
+@pytest.mark.parametrize("low,width,n", [
+    (0.0, 1.0, 2), (1e6, 1e-3, 1000), (1e6, 1e-3, 10**6), (-1e9, 1e-3, 7), (5.0, 2e-12, 100),
+])
+def test_uniform_gap_is_the_beta_spacing(low, width, n):
+    # U_(k:n) ~ Beta(k, n - k + 1) has mean k/(n + 1) (David and Nagaraja 2003, section 2.1),
+    # so E[X_(1) - X_(2)] = (high - low)/(n + 1) for uniform values, high - low as the model
+    # holds them (an exact subtraction). Rel 1e-12, within the report's abs_error.
+    model = M.Uniform(low, low + width)
+    want = (model.high - model.low) / (n + 1)
+    rep = T.top_values(model, n)
+    assert rep["expected_gap"] == pytest.approx(want, rel=1e-12)
+    assert abs(rep["expected_gap"] - want) <= rep["numerics"]["abs_error"]
+
+
+GAP_FAMILIES = {
+    "normal": (lambda: M.Normal(100.0, 15.0), lambda: mp_normal(100.0, 15.0), st.norm(100.0, 15.0).isf, -INF, INF, ()),
+    "lognormal": (lambda: M.LogNormal(median=1.0, sigma=0.5), lambda: mp_lognormal(1.0, 0.5), st.lognorm(0.5).isf, 0.0, INF, ()),
+    "gamma": (lambda: M.Gamma(2.5, 3.0), lambda: mp_gamma(2.5, 3.0), st.gamma(2.5, scale=3.0).isf, 0.0, INF, ()),
+    "weibull": (lambda: M.Weibull(1.7, 2.0), lambda: mp_weibull(1.7, 2.0), st.weibull_min(1.7, scale=2.0).isf, 0.0, INF, ()),
+    "beta": (lambda: M.BetaValues(2.0, 5.0, 10.0, 30.0), lambda: mp_beta(2.0, 5.0, 10.0, 30.0),
+             st.beta(2.0, 5.0, 10.0, 20.0).isf, 10.0, 30.0, ()),
+    "triangular": (lambda: M.Triangular(1.0, 2.0, 5.0), lambda: mp_triangular(1.0, 2.0, 5.0),
+                   st.triang(0.25, 1.0, 4.0).isf, 1.0, 5.0, (2.0,)),
+    "truncated_normal": (lambda: M.Truncated(M.Normal(50.0, 10.0), 45.0, 80.0),
+                         lambda: mp_truncated(mp_normal(50.0, 10.0), 45.0, 80.0), st.truncnorm(-0.5, 3.0, 50.0, 10.0).isf,
+                         45.0, 80.0, ()),
+    "mixture": (lambda: M.Mixture([(0.75, M.Normal(mean=10.0, sd=2.0)), (0.25, M.Uniform(low=12.0, high=20.0))]),
+                lambda: mp_mixture([(0.75, mp_normal(10.0, 2.0)), (0.25, mp_uniform(12.0, 20.0))]), None, -INF, INF, (12.0, 20.0)),
+}
+
+
+@pytest.mark.parametrize("family", sorted(GAP_FAMILIES))
+@pytest.mark.parametrize("n", [2, 50])
+def test_gap_against_mpmath(family, n):
+    # E[X_(1)] - E[X_(2)] from the two ranks' mpmath means (section 2), rel 1e-10; the
+    # mixture has no precise Q' and takes the difference of its means, rel 1e-8.
+    build, make_funcs, isf, lower, upper, kinks = GAP_FAMILIES[family]
+    if isf is None:
+        isf = _mixture_isf()
+    with mp.workdps(30):  # the reference's normalisers at 30 digits too
+        funcs = make_funcs()
+    means = [mp_rank_moments(*funcs, n, r, quantile_breaks(isf, n, r, lower, upper, kinks))[0] for r in (1, 2)]
+    want = means[0] - means[1]
+    got = T.top_values(build(), n, ranks=[1])["expected_gap"]
+    assert rel_err(got, want) < (NONPARAMETRIC_RTOL if family == "mixture" else PARAMETRIC_RTOL)
+
+
+@pytest.mark.parametrize("shape,has_gap", [(0.8, False), (1.0, False), (1.2, True), (3.0, True)])
+def test_pareto_gap_exists_with_the_top_mean(shape, has_gap):
+    # E[X_(1) - X_(2)] needs E[X_(1)], shape > 1 (section 6); where it exists it is the
+    # difference of the two closed-form means, rel 1e-10.
+    rep = T.top_values(M.Pareto(shape, 2.0), 10)
+    if not has_gap:
+        assert rep["expected_gap"] is None
+        assert any("mean does not exist" in w or "expected_gap is null" in w for w in rep["warnings"])
+        return
+    want = _pareto_moments(shape, 2.0, 10, 1)[0] - _pareto_moments(shape, 2.0, 10, 2)[0]
+    assert rel_err(rep["expected_gap"], want) < PARAMETRIC_RTOL
+
+
+@pytest.mark.parametrize("n", [2, 3])
+def test_step_empirical_gap_equals_direct_enumeration(n):
+    # The step model's gap by its atoms' spacings, against the mean of X_(1) - X_(2) over every
+    # equally likely n-tuple of the sample (as in section 8's enumeration).
+    draws = np.sort(np.array(list(itertools.product(STEP_SAMPLE, repeat=n))), axis=1)
+    want = float(np.mean(draws[:, -1] - draws[:, -2]))
+    got = T.top_values(M.empirical(STEP_SAMPLE, "none"), n)["expected_gap"]
+    assert rel_err(got, want) < 1e-13

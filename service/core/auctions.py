@@ -63,6 +63,22 @@ def _discounted_tails(panel, w, end):
     return np.array(d)
 
 
+#: Where the highest value has no mean, the bid nodes stop at this value (see ``share_beyond_reach``).
+_TOP_VALUE = 1e300
+#: A bid route's figure whose integrand has more than this share beyond the nodes is null.
+_UNREACHED = 1e-12
+
+
+def _heavy_tail_edges(a, k, s_top):
+    """Panel edges (as s = -log F) every 2a in t = log((n-1) s) from the peak up to s_top,
+    for a tail of index a <= 1, whose far panels carry the price's moments. There values grow
+    as e^(-t/a), so a panel spans a factor e^2 of them and the partial-panel rules behind the
+    bids at the nodes (polynomial interpolation, far less exact than a whole panel's Gauss
+    sum) keep their digits."""
+    t_end = math.log(k * max(s_top, 1e-300))
+    return tuple(np.exp(np.arange(-2.0 * a, t_end, -2.0 * a)) / k)
+
+
 def _neg_log_cdf(model, x):
     return float(model.neg_log_cdf(np.array(x, float)))
 
@@ -87,6 +103,8 @@ class ForwardAuction:
         self._bid_tails = None
         self._sp_quad = None
         self._node_bid_cache = None
+        self._shade = None
+        self._bidders_surplus = None
         self._closed = {}
 
     # ---- shared pieces -----------------------------------------------------
@@ -95,18 +113,48 @@ class ForwardAuction:
         p = 2 if os_.moment_exists(self.model, n, r, 2) else 1
         return os_.tail_growth(self.model, p)
 
-    def has_variance(self, n, r):
-        return os_.moment_exists(self.model, n, r, 2)
+    def _bid_growth(self):
+        """Tail reach for the bid nodes' integrands: that of the highest value where its
+        mean exists; otherwise that of the price b^p, b growing as v^(1 - a) (see
+        ``price_moment_exists``)."""
+        up, low = self._growth(self.n - 1, 1)
+        a = self.model.upper_tail_index
+        if a <= 1.0:
+            up = (2.0 if price_moment_exists(self.model, self.n, "first_price", 2, self.floor) else 1.0) * (1.0 - a) / a
+        return up, low
 
     # ---- first-price bids ----------------------------------------------------
     def _inner_quadrature(self):
         """Panels for the highest of the other n-1 values, cut at the reserve."""
         if self._bid_nodes is None:
-            up, low = self._growth(self.n - 1, 1)
-            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
-                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model, conditional=True)
+            up, low = self._bid_growth()
+            # where the highest value has no mean, the panels reach no further than values of 1e300
+            a, k = self.model.upper_tail_index, self.n - 1.0
+            s_top, splits = 0.0, ()
+            if a <= 1.0:  # the bids' own tail matters: see ``_heavy_tail_edges``
+                s_top = _neg_log_cdf(self.model, _TOP_VALUE)
+                splits = _heavy_tail_edges(a, k, s_top)
+            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r, upper_growth=up,
+                                    lower_growth=low, fine=True, s_top=s_top, splits_s=splits)
+            q.fill(self.model, conditional=True, floor=0.0 if a <= 1.0 else 1e-12)
             self._bid_nodes = q
         return self._bid_nodes
+
+    def share_beyond_reach(self, p):
+        """An estimate of the share of E[|b(X1)|^p] from values above the bid nodes' top edge
+        x_T: 0 where the highest value has a mean (the panels reach as far as its integrand
+        needs); else, with b(v) ~ c v^(1 - a) there (see ``price_moment_exists``) and
+        P(X1 > x) ~ n S(x), |b(x_T)|^p P(X1 > x_T) a / (a - p (1 - a)), over the nodes'
+        integral. Near a moment's threshold the tail beyond 1e300 carries a real share."""
+        a = self.model.upper_tail_index
+        if a > 1.0 or self.node_bids().bids.size == 0:
+            return 0.0
+        nb = self.node_bids()
+        if p * (1.0 - a) >= a:
+            return math.inf
+        top_mass = -math.expm1(-self.n * self._bid_tail().nodes.se[0])
+        tail = abs(nb.bids[0, 0]) ** p * top_mass * a / (a - p * (1.0 - a))
+        return tail / float(nb.integrals(nb.top * np.abs(nb.bids) ** p)[0])
 
     def _bid_tail(self):
         """The inner quadrature's nodes with the pieces of the bid integral, as
@@ -114,16 +162,22 @@ class ForwardAuction:
         if self._bid_tails is not None:
             return self._bid_tails
         q = self._inner_quadrature()
-        k = self.n - 1.0
         nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
-        vals = q.values
-        g = vals * nodes.k_s_growth
-        end_mass = self.floor * math.exp(-k * (self.s_r - nodes.se[-1])) if math.isfinite(self.s_r) else 0.0
-        end_mass = end_mass if self.floor != -math.inf else 0.0
-        panels = (nodes.dt * g) @ os_.RULE_COLUMNS
-        d = np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)])
-        self._bid_tails = BidTail(nodes, vals, d, g)
+        d, g = self._conditional_tails(nodes, q.values, self.floor)
+        self._bid_tails = BidTail(nodes, q.values, d, g)
         return self._bid_tails
+
+    def _conditional_tails(self, nodes, h, end_value):
+        """For node values h of a function of s: per rule, d[k] = the integral of
+        h (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve, plus end_value times
+        e^(-(n-1)(s_r - s_k)) (the bids: h the values, end_value the floor), by the panel
+        recurrence; and the integrand g, shifted to each panel's right edge."""
+        k = self.n - 1.0
+        g = h * nodes.k_s_growth
+        end_mass = end_value * math.exp(-k * (self.s_r - nodes.se[-1])) if math.isfinite(self.s_r) else 0.0
+        end_mass = end_mass if math.isfinite(end_value) else 0.0
+        panels = (nodes.dt * g) @ os_.RULE_COLUMNS
+        return np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)]), g
 
     def _partial(self, s_q, s_end):
         """Integral of v (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
@@ -199,9 +253,7 @@ class ForwardAuction:
             return self._node_bid_cache
         tail = self._bid_tail()
         nodes = tail.nodes
-        # g integrated spectrally from every node to its panel's right end (no new value
-        # evaluations), plus each rule's tail beyond, shifted back to the node.
-        bids = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
+        bids = _at_nodes(nodes, tail.d, tail.g)
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
         vals = tail.values
@@ -209,6 +261,54 @@ class ForwardAuction:
         self._node_bid_cache = NodeBids(nodes.t, nodes.dt, vals, nodes.s, bids, nodes.rivals, nodes.one, nodes.top,
                                         nodes.rule_dt)
         return self._node_bid_cache
+
+    def node_shade(self):
+        """v - b(v) at the bid nodes, laid out as ``node_bids`` (see ``_shading``)."""
+        return self._shading()[0]
+
+    def node_bid_offsets(self):
+        """(ref, b(v) - ref) at the bid nodes, ref the inner quadrature's reference anchor
+        (``RankQuadrature.offsets``): (v - ref) - (v - b(v)) where the shading is small beside
+        v, so that a bid's spread keeps its digits wherever the values sit; b(v) - ref itself
+        where it is not (see ``_shading``)."""
+        return self._shading()[1]
+
+    def _shading(self):
+        """(v - b(v), (ref, b(v) - ref)) at the bid nodes. By parts, b(v) = v - int_r^v G(y) /
+        G(v) dy, G = F^(n-1) (Krishna 2009, ch. 2), and in s = -log F the shading is
+        int u Q'(u) e^(-(n-1)(s - s_v)) ds from s_v to s_r: the bids' own recurrence with
+        u Q'(u) / (n-1) for the values and 0 at the floor. Integrated so, it keeps its digits
+        where it is tiny beside v. Where it is not (above 1e-3 of |v| + |b|, where the
+        difference keeps all but a few digits), where it is not small on the whole (its
+        mean above 1e-3 of the values', so that no figure hangs on its digits), and for a
+        model without a precise S / f (``ValueModel.inverse_hazard``), v - b(v) node by node: in a heavy upper tail u Q'(u)
+        climbs too steeply across the wide far panels for their polynomial rules."""
+        if self._shade is None:
+            q, nb = self._inner_quadrature(), self.node_bids()
+            ref = q.offsets()[0] if np.ndim(q.anchor) == 0 else None
+            ref, o = (ref, None) if ref is not None else q.offsets()
+            shade, bid_off = nb.values - nb.bids, nb.bids - ref
+            small = shade < 1e-3 * (np.abs(nb.values) + np.abs(nb.bids))
+            # only where the shading is small beside the values on the whole do its digits matter
+            near = nb.integrals(nb.top * shade)[0] < 1e-3 * nb.integrals(nb.top * np.abs(nb.values))[0]
+            ih = self.model.inverse_hazard(q.u, q.v, q.anchor, q.delta) if near else None
+            if ih is not None:
+                nodes = self._bid_tail().nodes
+                with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+                    d, g = self._conditional_tails(nodes, q.u / q.v * ih / (self.n - 1.0), 0.0)
+                    direct = np.maximum(_at_nodes(nodes, d, g), 0.0)
+                small &= np.isfinite(direct)
+                o = q.offsets()[1] if o is None else o
+                shade, bid_off = np.where(small, direct, shade), np.where(small, o - direct, bid_off)
+            self._shade = shade, (ref, bid_off)
+        return self._shade
+
+
+def _at_nodes(nodes, d, g):
+    """The recurrence's integrals at the nodes: g integrated spectrally from every node to
+    its panel's right end (no new value evaluations), plus each rule's tail beyond,
+    shifted back to the node."""
+    return (nodes.half * (g @ _TAIL_BOTH) + d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
 
 
 @dataclass(frozen=True)
@@ -310,16 +410,37 @@ def _second_price_quadrature(auc):
     return auc._sp_quad
 
 
-def _price_stats_second(auc, mean):
+def _revenue_variance(p_sale, price_mean, price_var):
+    """Var of revenue = the price on a sale (chance p_sale), 0 otherwise, from the price's
+    mean and variance given a sale: p Var + p (1 - p) mean^2 (law of total variance)."""
+    return p_sale * price_var + p_sale * (1.0 - p_sale) * price_mean**2
+
+
+def _sd_error(var, var_err):
+    """The error of sqrt(var) from the error of var."""
+    return var_err / (2.0 * math.sqrt(var)) if var > 0 else math.sqrt(var_err)
+
+
+def _price_stats_second(auc):
+    """(variance, error of the sd) of the revenue under second price: max(X2, r) on a
+    sale, 0 otherwise. The price's spread is taken from its offsets from the quadrature's
+    reference anchor (``RankQuadrature.offsets``), so it keeps its digits wherever the
+    values sit."""
     closed = _closed_moments(auc, 2)
     if closed is not None and closed[1] is not None:
-        return closed[1] + (closed[0] - mean) ** 2
-    p0, pr = _second_price_atoms(auc)
+        return closed[1], os_.closed_form_error(auc.model, auc.n, closed[0], math.sqrt(max(closed[1], 0.0)))
+    _, pr = _second_price_atoms(auc)
     q = _second_price_quadrature(auc)
-    var = p0 * mean**2 + (pr * (auc.floor - mean) ** 2 if pr else 0.0)
-    if q.panels:
-        var += q.integrate(lambda x: (x - mean) ** 2)[0]
-    return var
+    ref, o = q.offsets() if q.panels else (auc.floor, None)
+    at_floor = auc.floor - ref if pr else 0.0
+    mass = pr + (q.total() if q.panels else 0.0)
+    if not mass > 0:
+        return 0.0, 0.0
+    with np.errstate(over="ignore", invalid="ignore"):
+        shift = (pr * at_floor + (q.integrate_nodes(o)[0] if q.panels else 0.0)) / mass
+        spread, err = q.integrate_nodes((o - shift) ** 2) if q.panels else (0.0, 0.0)
+    var = _revenue_variance(auc.p_sale, ref + shift, (spread + pr * (at_floor - shift) ** 2) / mass)
+    return var, _sd_error(var, auc.p_sale * err / mass + os_.ROUNDING * abs(var))
 
 
 def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
@@ -366,7 +487,7 @@ def second_price_revenue(auc):
     reserve binds, else in quantile space over the second-highest."""
     closed = _closed_moments(auc, 2)
     if closed is not None:
-        return closed[0], 4e-16 * abs(closed[0])
+        return closed[0], os_.closed_form_error(auc.model, auc.n, closed[0])
     _, pr = _second_price_atoms(auc)
     q = _second_price_quadrature(auc)
     above, err = q.integrate(lambda x: x) if q.panels else (0.0, 0.0)
@@ -387,7 +508,9 @@ def ascending_revenue(auc):
     edges = np.unique(edges[np.isfinite(edges)])
     split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
     if split is not None:
-        edges = np.unique(np.append(edges, split))
+        edges = np.unique(np.concatenate((edges, [split], _tail_edges(edges[0], (n - 1.0) * m.lower_tail_index))))
+    if not math.isfinite(m.upper):
+        edges = np.append(edges, _tail_edges(edges[-1], 2.0 * m.upper_tail_index))
 
     def sf2(x):
         return os_.rank_sf(m, n, 2, x)
@@ -427,15 +550,35 @@ def ascending_revenue(auc):
 
     base = lo_end * auc.p_sale if split is None else split
     totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
-    # Power-law tails beyond the last edge, integrated in closed form.
+    tail = _power_tails(m, n, edges, sf2, cdf2, split is not None)
+    return totals[0] + tail, abs(totals[0] - totals[1]) + os_.ROUNDING * (abs(base) + abs(totals[0] - base) + abs(tail))
+
+
+def _power_tails(m, n, edges, sf2, cdf2, lower):
+    """The clock price's power-law tails beyond the last edges (and, with ``lower``, below
+    the first), integrated in closed form: int_T^inf P(X2 > x) dx = T P(X2 > T) / (2a - 1)
+    for P(X2 > x) ~ x^-2a, and alike below with index (n - 1) a_low."""
     tail = 0.0
     if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
         top = edges[-1]
         tail += top * float(sf2(np.array(top))) / (2.0 * m.upper_tail_index - 1.0)
-    if split is not None and math.isfinite(m.lower_tail_index):
+    if lower and math.isfinite(m.lower_tail_index):
         bot = edges[0]
         tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
-    return totals[0] + tail, abs(totals[0] - totals[1])
+    return tail
+
+
+def _tail_edges(end, index):
+    """Edges beyond ``end``, the last edge before a power-law tail in which the clock price's
+    tail probability falls as |x|^-index: every factor e^3 in |x|, out to where that
+    probability has fallen by another 1e-30 (within the double range). The closed-form tail
+    beyond them assumes an exact power law; what it leaves out is of the order of one value's
+    own tail probability there, so it has to start far out where the slow tails (an index
+    near 1) still carry much of the price."""
+    if not math.isfinite(index) or end == 0.0:
+        return np.empty(0)
+    x = end * np.exp(3.0 * np.arange(1, min(math.ceil(69.0 / (3.0 * index)), 400) + 1))
+    return x[np.abs(x) < 1e300]
 
 
 def _value_panel_sums(la, lb, logp, sgn, integrand):
@@ -475,10 +618,12 @@ def _refined_value_integral(la, lb, logp, sgn, integrand, offset_scale, rtol=2e-
 
 
 def _bid_outer(auc, integrand):
-    """E[integrand(nodes)] over the bid nodes, and the two rules' difference."""
+    """E[integrand(nodes)] over the bid nodes, and its error: the two rules' difference plus
+    ``ROUNDING`` of E|integrand|."""
     nb = auc.node_bids()
-    hi, lo = nb.integrals(integrand(nb)).tolist()
-    return hi, abs(hi - lo)
+    h = integrand(nb).reshape(-1)
+    (hi, lo), (size, _) = (np.stack((h, np.abs(h))) @ nb.rule_dt).tolist()
+    return hi, abs(hi - lo) + os_.ROUNDING * size
 
 
 def first_price_revenue(auc):
@@ -495,7 +640,9 @@ def descending_revenue(auc):
     c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail.nodes, n))
     floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
     hi, lo = (tail.d[:, c] - floor_term + nb.integrals((nb.values - nb.bids) * weight)).tolist()
-    return hi, abs(hi - lo)
+    # v - b(v) at a node is as precise as v itself
+    rounding = abs(tail.d[0, c]) + abs(floor_term) + float(nb.integrals(np.abs(nb.values * weight))[0])
+    return hi, abs(hi - lo) + os_.ROUNDING * rounding
 
 
 def _descending_weight(nodes, n):
@@ -513,10 +660,20 @@ def all_pay_revenue(auc):
     return _bid_outer(auc, lambda nb: n * nb.one * nb.rivals * nb.bids)
 
 
-def _bid_price_stats(auc, mean):
-    """Variance of the price b(X1) 1{sale}, shared by first-price and descending."""
-    var, _ = _bid_outer(auc, lambda nb: nb.top * (nb.bids - mean) ** 2)
-    return var + (1.0 - auc.p_sale) * mean**2
+def _bid_price_stats(auc):
+    """(variance, error of the sd) of the revenue b(X1) 1{sale}, shared by first-price and
+    descending. The price's spread comes from the bids' offsets from a reference anchor
+    (``ForwardAuction.node_bid_offsets``), so it keeps its digits wherever the values sit."""
+    ref, bid_off = auc.node_bid_offsets()
+    nb = auc.node_bids()
+    with np.errstate(over="ignore", invalid="ignore"):
+        mass, first = (np.stack((nb.top.reshape(-1), (nb.top * bid_off).reshape(-1))) @ nb.rule_dt[:, 0]).tolist()
+        if not mass > 0:
+            return 0.0, 0.0
+        shift = first / mass
+        spread, err = _bid_outer(auc, lambda nb: nb.top * (bid_off - shift) ** 2)
+    var = _revenue_variance(auc.p_sale, ref + shift, spread / mass)
+    return var, _sd_error(var, auc.p_sale * err / mass + os_.ROUNDING * abs(var))
 
 
 def _bid_price_quantiles(auc, ps):
@@ -538,10 +695,16 @@ def _bid_price_quantiles(auc, ps):
 
 
 def _all_pay_stats(auc):
-    ea, _ = _bid_outer(auc, lambda nb: nb.one * nb.rivals * nb.bids)
-    ea2, _ = _bid_outer(auc, lambda nb: nb.one * (nb.rivals * nb.bids) ** 2)
-    winner_pays, _ = _bid_outer(auc, lambda nb: nb.top * nb.rivals * nb.bids)
-    return auc.n * max(ea2 - ea * ea, 0.0), winner_pays
+    """(variance, error of the sd) of the all-pay revenue, the sum of n independent bids
+    a(X) = F(X)^(n-1) b(X) 1{X >= r}, each bid's variance taken about its mean. Below the
+    nodes (below the floor, or where F^(n-1) is negligible) a bidder bids 0."""
+    nb = auc.node_bids()
+    mass, ea = (np.stack((nb.one.reshape(-1), (nb.one * nb.rivals * nb.bids).reshape(-1))) @ nb.rule_dt[:, 0]).tolist()
+    below = 1.0 - mass
+    with np.errstate(over="ignore", invalid="ignore"):
+        spread, err = _bid_outer(auc, lambda nb: nb.one * (nb.rivals * nb.bids - ea) ** 2)
+    var = auc.n * (spread + below * ea**2)
+    return var, _sd_error(var, auc.n * err + os_.ROUNDING * abs(var))
 
 
 ROUTES = {
@@ -554,89 +717,167 @@ ROUTES = {
 
 
 def forward_figures(auc, rules, quantiles):
-    """Each rule's forward figures, expected revenue by the rule's own route."""
-    n = auc.n
+    """Each rule's forward figures: the expected revenue by the rule's own route; the sd,
+    the surpluses and the efficiency each integrated as one quantity, never as a
+    difference of two large figures; a figure that does not exist is None, with a warning."""
+    if auc.n == 1 and auc.p_sale > 0.0 and not math.isfinite(auc.floor):
+        raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
     warnings = []
-    bid_rules = {"first_price", "descending", "all_pay"} & set(rules)
-    closed_top = _closed_moments(auc, 1)
-    if auc.p_sale == 0.0:
-        e_win_value = 0.0
-    elif closed_top is not None:
-        e_win_value = closed_top[0]
-    elif n == 1 or not bid_rules:  # no bids needed: the highest value's own quadrature
-        e_win_value = _quad_cut(auc, 1).integrate(lambda x: x)[0]
-    else:
-        e_win_value = _bid_outer(auc, lambda nb: nb.top * nb.values)[0]
-    eff = _efficiency(auc, e_win_value, warnings)
+    sp_surplus, eff = _top_gains(auc, warnings)
     out, shared = {}, {}
     for rule in rules:
-        if auc.p_sale == 0.0:
-            mean, err, var, qs, winner_pay = 0.0, 0.0, 0.0, np.zeros(len(quantiles)), 0.0
-        elif n == 1:
-            # A lone bidder pays the floor under every rule (no rival to beat).
-            if not math.isfinite(auc.floor):
-                raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
-            mean, err = auc.floor * auc.p_sale, 0.0
-            var = auc.p_sale * (1 - auc.p_sale) * auc.floor**2
-            qs = np.where(np.asarray(quantiles) <= 1 - auc.p_sale, 0.0, auc.floor)
-            winner_pay = mean
-        else:
-            mean, err = ROUTES[rule](auc)
-            winner_pay = mean
-            # The sd and quantiles depend only on the price distribution, which the two
-            # rules of each pair share; they are computed once per pair (the sd about the
-            # first rule's mean: the pair's means agree to their error estimates, whose
-            # square is far below rounding of the variance).
-            if rule in ("second_price", "ascending"):
-                if "second" not in shared:
-                    shared["second"] = _price_stats_second(auc, mean), _price_quantiles_second(auc, quantiles)
-                var, qs = shared["second"]
-            elif rule in ("first_price", "descending"):
-                if "bid" not in shared:
-                    shared["bid"] = _bid_price_stats(auc, mean), _bid_price_quantiles(auc, quantiles)
-                var, qs = shared["bid"]
-            else:
-                var, winner_pay = _all_pay_stats(auc)
-                qs = None
-        price_rank = 2 if rule in ("second_price", "ascending") and n > 1 else 1
-        if not auc.has_variance(n, price_rank):
-            var = None
-            note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
-            if note not in warnings:
-                warnings.append(note)
+        mean, err, var, sd_err, qs = _price_figures(auc, rule, quantiles, shared, warnings)
+        winner, bidder = (None, None) if sp_surplus is None else _winner_gains(auc, rule, sp_surplus)
         out[rule] = {
             "rule": rule,
             "expected_revenue": mean,
             "revenue_sd": None if var is None else math.sqrt(max(var, 0.0)),
             "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),  # at ``quantiles``
             "probability_of_sale": auc.p_sale,
-            "expected_winner_surplus": e_win_value - winner_pay,
-            "expected_bidder_surplus": e_win_value - mean,
-            "efficiency": eff,
-            "_err": err,
+            "expected_winner_surplus": None if winner is None else winner[0],
+            "expected_bidder_surplus": None if bidder is None else bidder[0],
+            "efficiency": None if eff is None else eff[0],
+            "_err": max([err, sd_err] + [g[1] for g in (winner, bidder, eff) if g is not None]),
         }
-    if "all_pay" in rules and n > 1 and auc.p_sale > 0:
+    if "all_pay" in rules and auc.n > 1 and auc.p_sale > 0:
         warnings.append("all_pay: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
     return out, warnings
 
 
-def _efficiency(auc, e_win_value, warnings):
-    """Expected realised gains from trade over the largest possible."""
-    v0 = auc.v0
-    if v0 is None:
+def _price_figures(auc, rule, quantiles, shared, warnings):
+    """(mean, its error, variance or None, the sd's error, quantiles or None) of the revenue.
+    The sd and quantiles depend only on the price distribution, which the two rules of each
+    pair share, so they are computed once per pair."""
+    has_var = auc.p_sale == 0.0 or price_moment_exists(auc.model, auc.n, rule, 2, auc.floor)
+    if not has_var:
+        note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
+        if note not in warnings:
+            warnings.append(note)
+    if auc.p_sale == 0.0:
+        return 0.0, 0.0, 0.0, 0.0, np.zeros(len(quantiles))
+    if auc.n == 1:  # a lone bidder pays the floor under every rule (no rival to beat)
+        mean = auc.floor * auc.p_sale
+        qs = np.where(np.asarray(quantiles) <= 1 - auc.p_sale, 0.0, auc.floor)
+        return mean, os_.ROUNDING * abs(mean), auc.p_sale * (1 - auc.p_sale) * auc.floor**2, os_.ROUNDING * abs(auc.floor), qs
+    if rule not in ("second_price", "ascending"):
+        if _out_of_reach(auc, rule, 1, warnings):
+            return None, 0.0, None, 0.0, (None if rule == "all_pay" else _bid_price_quantiles(auc, quantiles))
+        has_var = has_var and not _out_of_reach(auc, rule, 2, warnings)
+    mean, err = ROUTES[rule](auc)
+    if rule == "all_pay":
+        var, sd_err = _all_pay_stats(auc) if has_var else (None, 0.0)
+        return mean, err, var, sd_err, None
+    pair = "second" if rule in ("second_price", "ascending") else "bid"
+    if pair not in shared:
+        stats, price_quantiles = (_price_stats_second, _price_quantiles_second) if pair == "second" else (_bid_price_stats, _bid_price_quantiles)
+        shared[pair] = (stats(auc) if has_var else (None, 0.0)), price_quantiles(auc, quantiles)
+    (var, sd_err), qs = shared[pair]
+    return mean, err, var, sd_err, qs
+
+
+def _out_of_reach(auc, rule, p, warnings):
+    """Whether the bid route's p-th moment, which exists, has more than ``_UNREACHED`` of
+    it beyond the bid nodes (``ForwardAuction.share_beyond_reach``); if so it is null, and
+    a warning says why."""
+    if not auc.share_beyond_reach(p) > _UNREACHED:
+        return False
+    what = "expected revenue and sd are" if p == 1 else "sd is"
+    warnings.append(f"{rule}: the {what} null: the moment exists, but more than {_UNREACHED:g} of it comes from values "
+                    f"beyond {_TOP_VALUE:g}, out of the double range (a tail index just above the moment's threshold)")
+    return True
+
+
+def _top_gains(auc, warnings):
+    """(the second-price winner's surplus, the efficiency), each (value, error) or None: both
+    integrals over the highest value's quadrature (``_top_quadrature``). Neither exists
+    where the highest value's mean does not."""
+    if not auc.model.upper_tail_index > 1.0:
+        warnings.append("expected_winner_surplus, expected_bidder_surplus and efficiency are null: the highest "
+                        "value's mean does not exist (the value model's tail is too heavy)")
+        return None, None
+    q, s0 = _top_quadrature(auc)
+    return _second_price_surplus(auc, q), _efficiency(auc, q, s0, warnings)
+
+
+def _top_quadrature(auc):
+    """(quadrature, s0): the highest value's quadrature over the values at or above the lower
+    of the floor and the seller's own value v0 (s = -log F up to the larger of s_r and s0),
+    split at the higher of the two, where the reserve's gains and losses begin."""
+    m = auc.model
+    s0 = None if auc.v0 is None else (math.inf if auc.v0 <= m.lower else _neg_log_cdf(m, auc.v0))
+    s_cut = auc.s_r if s0 is None else max(auc.s_r, s0)
+    split = () if s0 is None or s0 == auc.s_r else (min(auc.s_r, s0),)
+    up, low = os_.tail_growth(m, 1)
+    q = os_.rank_quadrature(auc.n, 1, kinks_u=m.kinks_u(), s_cut=s_cut, splits_s=split,
+                            upper_growth=up, lower_growth=low).fill(m)
+    return q, s0
+
+
+def _panels_above(q, s):
+    """The panels of a rank-1 quadrature above the value with -log F = s (an edge or the cut)."""
+    if s <= 0.0:
+        return np.zeros(q.panels, bool)
+    return np.ones(q.panels, bool) if s == math.inf else q.left_of(math.log(q.m * s))
+
+
+def _second_price_surplus(auc, q):
+    """(E[(X1 - max(X2, r)) 1{X1 >= r}], its error): by parts, as for the expected gap
+    (``orderstats.expected_gap``), int from F(r) to 1 of n u^(n-1) (1 - u) Q'(u) du; with one
+    bidder, E[X - floor; X >= floor] alike. Without a precise S / f, E[X1; sale] less the revenue."""
+    above = _panels_above(q, auc.s_r)
+    ih = auc.model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
+    with np.errstate(invalid="ignore", over="ignore"):
+        if ih is not None:
+            return q.integrate_nodes(ih, above)
+        ref, o = q.offsets()
+        if auc.n == 1:
+            return q.integrate_nodes(o - (auc.floor - ref), above)
+        shift, err = q.integrate_nodes(o, above)
+        revenue, rev_err = second_price_revenue(auc)
+        return ref * float(q.w_hi[above].sum()) + shift - revenue, err + rev_err
+
+
+def _winner_gains(auc, rule, sp_surplus):
+    """(winner's surplus, bidders' surplus) under ``rule``, each (value, error). Second price
+    (and a lone bidder): ``_second_price_surplus``. First price: E[X1 - b(X1)], the shading
+    integrated directly (``ForwardAuction.node_shade``). All-pay: every bidder pays its bid,
+    so all of them keep E[F(X1)^(n-1) (X1 - b(X1))] summed, that is E[X1 - b(X1)] again, and
+    the winner keeps X1 - a(X1) = (X1 - b(X1)) + (1 - F(X1)^(n-1)) b(X1)."""
+    if auc.p_sale == 0.0:
+        return (0.0, 0.0), (0.0, 0.0)
+    if auc.n == 1 or rule in ("second_price", "ascending"):
+        return sp_surplus, sp_surplus
+    shade = auc.node_shade()
+    if auc._bidders_surplus is None:  # kept on the auction: every bid rule asks for it
+        auc._bidders_surplus = _bid_outer(auc, lambda nb: nb.top * shade)
+    bidders = auc._bidders_surplus
+    if rule != "all_pay":
+        return bidders, bidders
+    k = auc.n - 1.0
+    return _bid_outer(auc, lambda nb: nb.top * (shade - np.expm1(-k * nb.s) * nb.bids)), bidders
+
+
+def _efficiency(auc, q, s0, warnings):
+    """(1 - lost / best, its error): best = E[(X1 - v0)^+], the largest expected gain from
+    trade; lost = the gains a reserve above v0 gives up, E[(X1 - v0) 1{v0 <= X1 < r}], or the
+    losses of selling below v0, E[(v0 - X1) 1{r <= X1 < v0}]. Each is one integral of X1 - v0
+    (from the value offsets) over its own panels of ``_top_quadrature``, so 0 <= lost <= best
+    and the efficiency never exceeds 1."""
+    if auc.v0 is None:
         warnings.append("efficiency is null: give buyer_value to measure gains from trade")
         return None
-    realised = e_win_value - v0 * auc.p_sale
-    s0 = math.inf if v0 <= auc.model.lower else _neg_log_cdf(auc.model, v0)
-    if s0 == auc.s_r and realised > 0:  # the same cut as the reserve's: the best gain is the realised one
-        return 1.0
-    up, low = os_.tail_growth(auc.model, 1)
-    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), s_cut=s0, upper_growth=up, lower_growth=low).fill(auc.model)
-    best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
+    ref, o = q.offsets()
+    gain = o - (auc.v0 - ref)
+    above = _panels_above(q, min(auc.s_r, s0))
+    with np.errstate(invalid="ignore", over="ignore"):
+        if auc.s_r <= s0:  # the reserve at or above v0
+            (best, e_best), (lost, e_lost) = q.integrate_nodes(gain), q.integrate_nodes(gain, ~above)
+        else:
+            (best, e_best), (lost, e_lost) = q.integrate_nodes(gain, above), q.integrate_nodes(-gain, ~above)
     if not best > 0:
         warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")
         return None
-    return realised / best
+    return 1.0 - lost / best, (e_lost + abs(lost) / best * e_best) / best
 
 
 # ---- reports in the caller's direction -------------------------------------------
@@ -661,7 +902,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     if direction == "forward" and v0 is None:
         v0 = 0.0
     auc = ForwardAuction(fmodel, bidders, freserve, v0)
-    _check_price_exists(fmodel, bidders)
+    _check_price_exists(fmodel, bidders, auc.floor)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)
@@ -674,7 +915,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         qs = f["revenue_quantiles"]
         results.append({
             "rule": rule,
-            mean_k: finite(sign * f["expected_revenue"]),
+            mean_k: finite(None if f["expected_revenue"] is None else sign * f["expected_revenue"]),
             sd_k: finite(f["revenue_sd"]),
             q_k: None if qs is None else [{"p": float(p), "value": finite(sign * x)} for p, x in zip(quantiles, qs)],
             p_k: finite(f["probability_of_sale"]),
@@ -696,10 +937,36 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     }
 
 
-def _check_price_exists(fmodel, bidders):
-    """The expected price needs the highest value's mean and, with rivals, the
-    second-highest's (whose lower tail is the thinner of the two)."""
-    if not os_.moment_exists(fmodel, bidders, 1, 1) or (bidders > 1 and not os_.moment_exists(fmodel, bidders, 2, 1)):
+def price_moment_exists(model, n, rule, p, floor=-math.inf):
+    """Whether E|price|^p is finite under ``rule`` with n bidders and the given floor (the
+    reserve or the bottom of the support), from the tail index of the price itself.
+
+    Upper tail, P(X > x) ~ x^-a: the second-price price max(X2, r) has index 2a (David and
+    Nagaraja 2003, section 2.1: rank k from the top has index k a). The first-price price
+    b(X1), b(v) = E[max(Y, r) | Y < v] with Y the highest of n - 1 rival values (Krishna 2009,
+    ch. 2): for a > 1 b is bounded by E[max(Y, r)]; for a < 1 the part of E[Y] below v grows
+    as v^(1 - a), so b(v) ~ c v^(1 - a) and P(b(X1) > y) ~ P(X1 > (y/c)^(1/(1 - a))) ~
+    y^(-a/(1 - a)): index a/(1 - a) (derived here); at a = 1, b grows as log v and every
+    moment exists. An all-pay bid F(v)^(n-1) b(v) has the same tail. Lower tail, index
+    a_low, none where the floor is finite: rank k has (n - k + 1) a_low, b(X1) follows X1,
+    and an all-pay bid vanishes there once the bids exist ((n - 1) a_low > 1).
+    """
+    if n == 1:
+        return math.isfinite(floor)
+    a, a_low = model.upper_tail_index, model.lower_tail_index
+    if rule in ("second_price", "ascending"):
+        upper, lower = 2.0 * a > p, (n - 1) * a_low > p
+    else:
+        upper, lower = a >= 1.0 or a / (1.0 - a) > p, rule == "all_pay" or n * a_low > p
+    return upper and (lower or math.isfinite(floor))
+
+
+def _check_price_exists(fmodel, bidders, floor=-math.inf):
+    """The expected price, under every rule alike (revenue equivalence), is the expected
+    max(X2, r): with rivals it needs the second-highest value's mean, upper tail 2a > 1, and,
+    unless the floor is finite, lower tail (n - 1) a_low > 1 (see ``price_moment_exists``)."""
+    if bidders > 1 and not (2.0 * fmodel.upper_tail_index > 1.0
+                            and ((bidders - 1) * fmodel.lower_tail_index > 1.0 or math.isfinite(floor))):
         raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")
 
 
@@ -714,7 +981,7 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     fmodel, freserve, _ = _forward_case(model, direction, reserve, None)
     auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
     if rule not in ("second_price", "ascending") and bidders > 1 and not auc.reserve_binds \
-            and not os_.moment_exists(fmodel, bidders - 1, 1, 1):
+            and not (bidders - 1) * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
         raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
                                         "(the value model's tail is too heavy); give a reserve")
     grid = np.asarray(at, float) if at is not None else _grid(model, points)

@@ -109,6 +109,23 @@ class ValueModel:
             out[~upper] = self.ppf(u[~upper])
         return out
 
+    def value_parts(self, u, v):
+        """(anchor, delta) with Q(u) = anchor + delta: the anchor one of the model's own
+        parameters near the value (an end of the support, a location), the delta computed
+        from u and v without forming Q. Differences of nearby values (a spread, a shading)
+        then keep their digits however far the model sits from zero. The generic anchor is 0."""
+        return 0.0, self.value_at(u, v)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """S(x) / f(x) = (1 - u) Q'(u), the reciprocal of the hazard rate, at the nodes
+        (u, v = 1 - u) whose value parts are (anchor, delta), to full relative precision:
+        integrals of spacings (a gap, a surplus, a bid's shading) are integrals of it. Taken
+        as one quantity, since S and f both vanish in an upper tail where their ratio does
+        not. None where the family does not know it so (a mixture or a kernel density, whose
+        density can underflow between clusters): callers then fall back to differences of
+        values."""
+        return None
+
     def kinks_u(self):
         """Cumulative probabilities of the kinks, strictly inside (0, 1)."""
         ks = [k for k in self.kink_values() if self.lower < k < self.upper]
@@ -172,6 +189,14 @@ def log_gamma_ratio(x, c):
 def _positive_pdf(logpdf):
     with np.errstate(over="ignore"):
         return np.exp(logpdf)
+
+
+def _neg_log_sf(u, v):
+    """-log v = -log(1 - u), from whichever of u and v holds its digits."""
+    u, v = np.asarray(u, float), np.asarray(v, float)
+    top = v < 0.5
+    with np.errstate(divide="ignore"):
+        return np.where(top, -np.log(np.where(top, v, 1.0)), -np.log1p(-np.where(top, 0.0, u)))
 
 
 _DIP_PROBS = np.array([1e-12, 1e-9, 1e-6, 1e-4, 1e-3, 0.01, 0.05, 0.15, 0.3, 0.5, 0.7, 0.85, 0.95, 0.99,
@@ -241,6 +266,14 @@ class Uniform(ValueModel):
     def isf(self, v):
         return self.high - self.width * np.asarray(v, float)
 
+    def value_parts(self, u, v):
+        """Measured from the nearer end: high - width v in the upper half, low + width u below."""
+        top = np.asarray(v, float) < 0.5
+        return np.where(top, self.high, self.low), np.where(top, -self.width * np.asarray(v, float), self.width * np.asarray(u, float))
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        return self.width * np.asarray(v, float)
+
     def closed_rank_moments(self, n, r):
         """Rank r from the top is low + width * Beta(n-r+1, r)."""
         a, b = n - r + 1.0, float(r)
@@ -277,6 +310,9 @@ class _StandardNormalScale(ValueModel):
     def value_at(self, u, v):
         return self.from_standard(standard_normal_at(np.asarray(u, dtype=float), np.asarray(v, dtype=float)))
 
+    def value_parts(self, u, v):
+        return self.parts_from_standard(standard_normal_at(np.asarray(u, dtype=float), np.asarray(v, dtype=float)))
+
     def ppf(self, u):
         return self.from_standard(sp.ndtri(u))
 
@@ -300,6 +336,16 @@ class Normal(_StandardNormalScale):
 
     def from_standard(self, z):
         return self.mu + self.sd * z
+
+    def parts_from_standard(self, z):
+        """Measured from the mean: sd z, whatever the mean."""
+        return self.mu, self.sd * z
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """sd v / phi(z), z = delta / sd (sd times Mills' ratio)."""
+        z = delta / self.sd
+        with np.errstate(over="ignore", divide="ignore"):
+            return self.sd * math.sqrt(2 * math.pi) * np.exp(np.log(v) + 0.5 * z * z)
 
 
 class LogNormal(_StandardNormalScale):
@@ -349,6 +395,26 @@ class LogNormal(_StandardNormalScale):
     def from_standard(self, z):
         return np.exp(self.mu + self.sigma * z)
 
+    #: Up to this sigma the values are measured from the median e^mu: even 8 sds out they
+    #: lie within a factor e^0.8 of it, so a narrow lognormal keeps its spread. Wider
+    #: lognormals are measured from 0, which keeps the relative digits of small values.
+    _NARROW = 0.1
+
+    def parts_from_standard(self, z):
+        e = self.sigma * np.asarray(z, float)
+        if self.sigma > self._NARROW:
+            with np.errstate(over="ignore"):  # beyond the double range: the callers say so
+                return 0.0, np.exp(self.mu + e)
+        median = math.exp(self.mu)
+        return median, median * np.expm1(e)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """sigma x v / phi(z), with sigma z recovered from the parts to full precision."""
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            e = np.log(delta) - self.mu if self.sigma > self._NARROW else np.log1p(delta / anchor)
+            z = e / self.sigma
+            return self.sigma * math.sqrt(2 * math.pi) * np.exp(np.log(v) + self.mu + e + 0.5 * z * z)
+
 
 class Exponential(ValueModel):
     family = "exponential"
@@ -380,6 +446,12 @@ class Exponential(ValueModel):
     def isf(self, v):
         with np.errstate(divide="ignore"):
             return self.shift - self.scale * np.log(np.asarray(v, float))
+
+    def value_parts(self, u, v):
+        return self.shift, self.scale * _neg_log_sf(u, v)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        return np.full(np.shape(delta), self.scale)
 
     def closed_rank_moments(self, n, r):
         """Renyi's representation: rank r from the top is a sum of Exp(mean/j), j = r..n."""
@@ -422,6 +494,12 @@ class Gamma(ValueModel):
     def isf(self, v):
         return self.theta * sp.gammainccinv(self.k, v)
 
+    def inverse_hazard(self, u, v, anchor, delta):
+        """v / f, from the log density (both vanish in the upper tail)."""
+        x = np.maximum(anchor + delta, 1e-300)
+        with np.errstate(divide="ignore", over="ignore"):
+            return np.exp(np.log(v) - sp.xlogy(self.k - 1.0, x) + x / self.theta + self._lognorm)
+
 
 class Weibull(ValueModel):
     family = "weibull"
@@ -456,6 +534,20 @@ class Weibull(ValueModel):
     def isf(self, v):
         with np.errstate(divide="ignore"):
             return self.lam * (-np.log(np.asarray(v, float))) ** (1.0 / self.k)
+
+    def value_parts(self, u, v):
+        """lam E^(1/k), E = -log v: measured from lam where the value is above lam e^-0.5
+        (a large shape makes the model narrow around lam), else from 0."""
+        with np.errstate(divide="ignore"):
+            e = np.log(_neg_log_sf(u, v)) / self.k
+        near = e > -0.5
+        with np.errstate(over="ignore"):
+            return np.where(near, self.lam, 0.0), self.lam * np.where(near, np.expm1(e), np.exp(e))
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """x / (k E), E = -log v."""
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return (anchor + delta) / (self.k * _neg_log_sf(u, v))
 
 
 class BetaValues(ValueModel):
@@ -509,6 +601,27 @@ class BetaValues(ValueModel):
         # The upper end as high - width * y, with y from the mirrored Beta(b, a).
         return self.upper - self.width * self._inv(v, self.b, self.a)
 
+    def value_parts(self, u, v):
+        """Measured from the nearer end: high - width y' in the upper half (y' from the
+        mirrored Beta(b, a)), low + width y below."""
+        u, v = np.asarray(u, float), np.asarray(v, float)
+        top = v < 0.5
+        delta = np.empty(np.broadcast(u, v).shape)
+        if top.any():
+            delta[top] = -self.width * self._inv(v[top], self.b, self.a)
+        if not top.all():
+            delta[~top] = self.width * self._inv(u[~top], self.a, self.b)
+        return np.where(top, self.upper, self.lower), delta
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """v width / the Beta(a, b) density at y, with y and 1 - y each taken from the part
+        that holds its digits."""
+        top = anchor == self.upper
+        y_part = np.abs(delta) / self.width  # y below the middle, 1 - y above it
+        y, y1 = np.where(top, 1.0 - y_part, y_part), np.where(top, y_part, 1.0 - y_part)
+        with np.errstate(divide="ignore", over="ignore"):
+            return np.exp(np.log(v) + self._lognorm - sp.xlogy(self.a - 1, y) - sp.xlogy(self.b - 1, y1))
+
 
 class Triangular(ValueModel):
     family = "triangular"
@@ -557,10 +670,26 @@ class Triangular(ValueModel):
         right = self.upper - np.sqrt(np.maximum(v, 0) * self.w * (self.upper - self.c))
         return np.where(v >= 1 - self.fc, left, right)
 
+    def value_parts(self, u, v):
+        """Measured from low left of the mode and from high right of it."""
+        u, v = np.asarray(u, float), np.asarray(v, float)
+        left = np.where(v < 0.5, v >= 1 - self.fc, u <= self.fc)
+        rise = np.sqrt(np.maximum(u, 0) * self.w * (self.c - self.lower))
+        fall = np.sqrt(np.maximum(v, 0) * self.w * (self.upper - self.c))
+        return np.where(left, self.lower, self.upper), np.where(left, rise, -fall)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """v times dx/du: w (c - low) / (2 (x - low)) left of the mode, w (high - c) / (2 (high - x))
+        right of it (there v w (high - c) = (high - x)^2, so the product is (high - x) / 2)."""
+        left = anchor == self.lower
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(left, v * self.w * (self.c - self.lower) / (2.0 * np.abs(delta)), 0.5 * np.abs(delta))
+
 
 class Pareto(ValueModel):
     family = "pareto"
     parameters = {"shape": Param(bound="positive"), "minimum": Param(bound="positive")}
+    closed_form_logs = True  # closed_rank_moments goes through log-gamma ratios
 
     def __init__(self, shape, minimum):
         self.alpha, self.xm = float(shape), float(minimum)
@@ -591,6 +720,16 @@ class Pareto(ValueModel):
         with np.errstate(divide="ignore"):
             return self.xm * np.exp(-np.log(np.asarray(v, float)) / self.alpha)
 
+    def value_parts(self, u, v):
+        """xm e^(E / shape), E = -log v, measured from xm."""
+        with np.errstate(over="ignore"):
+            return self.xm, self.xm * np.expm1(_neg_log_sf(u, v) / self.alpha)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """x / shape."""
+        with np.errstate(over="ignore", invalid="ignore"):  # values beyond the double range: the callers say so
+            return (anchor + delta) / self.alpha
+
     def closed_rank_moments(self, n, r):
         """E[X^p] for rank r from the top: xm^p G(n+1) G(r-p/a) / (G(r) G(n+1-p/a)).
 
@@ -617,6 +756,7 @@ class Pareto(ValueModel):
 
 class Power(ValueModel):
     family = "power"
+    closed_form_logs = True  # closed_rank_moments goes through log-gamma ratios
     parameters = {
         "exponent": Param(bound="positive"),
         "high": Param(),
@@ -651,6 +791,19 @@ class Power(ValueModel):
 
     def isf(self, v):
         return self.lower + self.w * np.exp(np.log1p(-np.asarray(v, float)) / self.a)
+
+    def value_parts(self, u, v):
+        """Measured from the nearer end: high + w (u^(1/a) - 1) in the upper half, low + w u^(1/a) below."""
+        u, v = np.asarray(u, float), np.asarray(v, float)
+        top = v < 0.5
+        return np.where(top, self.upper, self.lower), self.w * np.where(top, np.expm1(np.log1p(-np.where(top, v, 0.0)) / self.a),
+                                                                        u ** (1.0 / self.a))
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """v dx/du = v (x - low) / (a u)."""
+        above_low = np.where(anchor == self.upper, self.w + delta, delta)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.asarray(v, float) * above_low / (self.a * np.asarray(u, float))
 
     def closed_rank_moments(self, n, r):
         """U^(1/a) with U ~ Beta(n-r+1, r): E[U^c] = B(n-r+1+c, r) / B(n-r+1, r)."""
@@ -711,6 +864,19 @@ class Truncated(ValueModel):
     def _clip(self, x):
         return np.clip(x, self.lower, self.upper)
 
+    def _parent_nodes(self, u, v):
+        return self.fa + np.asarray(u, float) * self.mass, self.sb + np.asarray(v, float) * self.mass
+
+    def value_parts(self, u, v):
+        anchor, delta = self.parent.value_parts(*self._parent_nodes(u, v))
+        return anchor, np.clip(delta, self.lower - anchor, self.upper - anchor)
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """(S - S(high)) / f of the parent: its own S / f times v mass / S."""
+        pu, pv = self._parent_nodes(u, v)
+        h = self.parent.inverse_hazard(pu, pv, anchor, delta)
+        return None if h is None else h * (np.asarray(v, float) * self.mass / pv)
+
 
 class Reflected(ValueModel):
     """The distribution of -X: turns procurement costs into forward values."""
@@ -722,6 +888,7 @@ class Reflected(ValueModel):
         self.upper_tail_index = parent.lower_tail_index
         self.lower_tail_index = parent.upper_tail_index
         self.discrete = parent.discrete
+        self.closed_form_logs = getattr(parent, "closed_form_logs", False)
 
     def kink_values(self):
         return [-k for k in self.parent.kink_values()]
@@ -746,6 +913,16 @@ class Reflected(ValueModel):
 
     def isf(self, v):
         return -self.parent.ppf(v)
+
+    def value_parts(self, u, v):
+        anchor, delta = self.parent.value_parts(v, u)
+        return -anchor, -delta
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """F / f of the parent at the mirrored node: its S / f times F / S there."""
+        h = self.parent.inverse_hazard(v, u, -anchor, -delta)
+        with np.errstate(divide="ignore", over="ignore"):
+            return None if h is None else h * (np.asarray(v, float) / np.asarray(u, float))
 
     @property
     def atoms(self):
@@ -810,6 +987,13 @@ class QuantileTable(ValueModel):
     def isf(self, v):
         q = 1.0 - self.p[::-1]
         return np.interp(np.asarray(v, float), q, self.x[::-1])
+
+    def inverse_hazard(self, u, v, anchor, delta):
+        """v over the density of the node's piece, the piece found in u (or in v near the top)."""
+        u, v = np.asarray(u, float), np.asarray(v, float)
+        from_top = len(self.dens) - np.searchsorted((1.0 - self.p)[::-1], v, side="left")
+        i = np.where(v < 0.5, from_top, np.searchsorted(self.p, u, side="right") - 1)
+        return v / self.dens[np.clip(i, 0, len(self.dens) - 1)]
 
 
 class Mixture(ValueModel):

@@ -55,6 +55,19 @@ def partial_panel_weights(x, rule=0):
     return sp.eval_legendre(np.arange(len(anti)), x[:, None]) @ anti
 
 
+#: Relative rounding allowed for in every error estimate: a node value's few ulps and the
+#: sum over a few thousand nodes (numpy sums pairwise), per unit of the integral of |h|.
+ROUNDING = 4.0 * np.finfo(float).eps
+
+
+def closed_form_error(model, n, mean, sd=0.0):
+    """An error bound for a family's moments in closed form: a few ulps, and where they are
+    exps of log-gamma differences (``closed_form_logs``), a few per unit of the logs,
+    which grow as log n."""
+    logs = math.log1p(n) if getattr(model, "closed_form_logs", False) else 0.0
+    return 2.0 * ROUNDING * (1.0 + logs) * (abs(mean) + sd)
+
+
 _EDGES_Z = np.array([1.0, 2.5, 4.5, 7.0, 10.0, 14.0, 20.0, 28.0, 40.0, 56.0, 80.0, 112.0, 160.0, 230.0, 330.0, 480.0, 700.0])
 _DECADES = 48.0  # integrand cut where it falls below e^-48 (about 1e-21) of its peak
 _TINY = 1e-300
@@ -84,6 +97,8 @@ class RankQuadrature:
     ``*_lo`` are views of each). ``fill`` evaluates the model's values at the nodes
     and splits any panel whose two rules disagree, so rough quantile functions (a
     kernel density through a few scattered bids) still integrate to full precision.
+    Beside the values it keeps their parts (``anchor`` + ``delta``, see
+    ``ValueModel.value_parts``), from which ``offsets`` forms differences of values.
     """
 
     def __init__(self, m, r, lognorm, edges):
@@ -119,13 +134,22 @@ class RankQuadrature:
                     a.flags.writeable = False
         return hit
 
-    def _node_values(self, model):
-        """The model's values at the nodes. A family with a standard quantile maps the
-        standard values kept with the nodes, so only the map is paid."""
+    def _node_parts(self, model):
+        """The parts (anchor, delta) of the model's values at the nodes. A family with a
+        standard quantile maps the standard values kept with the nodes, so only the map is paid."""
         std = model.standard_quantile
         if std is None:
-            return model.value_at(self.u, self.v)
-        return model.from_standard(self.kept(("standard", std), lambda: std(self.u, self.v)))
+            return model.value_parts(self.u, self.v)
+        return model.parts_from_standard(self.kept(("standard", std), lambda: std(self.u, self.v)))
+
+    def offsets(self):
+        """(ref, values - ref) at the nodes, ref the anchor of the node where the 24-node
+        weights peak. The differences come from the value parts, so a spread far smaller
+        than where the model sits keeps its digits."""
+        if np.ndim(self.anchor) == 0:
+            return float(self.anchor), self.delta
+        ref = float(self.anchor[np.unravel_index(np.argmax(self.w_hi), self.w_hi.shape)]) if self.panels else 0.0
+        return ref, (self.anchor - ref) + self.delta
 
     def _nodes(self, a, b):
         half, mid = 0.5 * (b - a), 0.5 * (b + a)
@@ -152,36 +176,43 @@ class RankQuadrature:
         t = mid[:, None] + half[:, None] * BOTH_NODES
         return t, half[:, None] * BOTH_WEIGHTS, self.values
 
-    def fill(self, model, rtol=2e-14, max_rounds=60, conditional=False):
+    def fill(self, model, rtol=2e-14, max_rounds=60, conditional=False, floor=1e-12):
         """Evaluate model values at the nodes, refining rough panels: those whose two
         rules differ by more than rtol of the whole integral or, with ``conditional``,
-        of the part at and below the panel's values (floored at 1e-12 of the whole).
+        of the part at and below the panel's values (floored at ``floor`` of the whole).
         Integrals conditioned on Y < v (the equilibrium bids) divide by that part, so
-        an error negligible for the whole can still dominate them."""
+        an error negligible for the whole can still dominate them. Where the values have
+        no mean, the whole is only the panels' reach, and ``floor`` is 0."""
         if self.panels == 0:
-            self.values = np.empty((0, len(BOTH_NODES)))
+            self.values = self.delta = np.empty((0, len(BOTH_NODES)))
+            self.anchor = 0.0
             return self
-        vals = self._node_values(model)
+        anchor, delta = self._node_parts(model)
+        vals = _joined(anchor, delta)
         for _ in range(max_rounds):
             budget.check()
-            parts = self.w * vals
-            hi = parts[:, :RULE_SPLIT]
-            err = np.abs(hi.sum(axis=1) - parts[:, RULE_SPLIT:].sum(axis=1))
+            with np.errstate(invalid="ignore"):  # values beyond the double range: the callers say so
+                parts = self.w * vals
+                hi = parts[:, :RULE_SPLIT]
+                err = np.abs(hi.sum(axis=1) - parts[:, RULE_SPLIT:].sum(axis=1))
             mass = np.abs(hi).sum(axis=1)
             scale = mass.sum() + 1e-300
             if conditional:  # panels run up in t, i.e. down in value: the part below is a reversed cumsum
-                scale = np.maximum(np.cumsum(mass[::-1])[::-1], 1e-12 * scale)
+                scale = np.maximum(np.cumsum(mass[::-1])[::-1], floor * scale)
             bad = err > rtol * scale
             if model.discrete or not bad.any() or self.panels > 4000:
                 break
             a, b = self.a[bad], self.b[bad]
             mid = 0.5 * (a + b)
             na, nb = np.concatenate((a, mid)), np.concatenate((mid, b))
-            keep = vals[~bad]
             u_new, v_new, _ = self._nodes(na, nb)
+            a_new, d_new = model.value_parts(u_new, v_new)
             order = self._set_panels(np.concatenate((self.a[~bad], na)), np.concatenate((self.b[~bad], nb)))
-            vals = np.concatenate((keep, model.value_at(u_new, v_new)))[order]
-        self.values = vals
+            if np.ndim(anchor) or np.ndim(a_new) or anchor != a_new:
+                anchor = np.concatenate((np.broadcast_to(anchor, vals.shape)[~bad], np.broadcast_to(a_new, d_new.shape)))[order]
+            delta = np.concatenate((delta[~bad], d_new))[order]
+            vals = np.concatenate((vals[~bad], _joined(a_new, d_new)))[order]
+        self.values, self.anchor, self.delta = vals, anchor, delta
         return self
 
     def cut_weights(self, t_cut):
@@ -204,10 +235,27 @@ class RankQuadrature:
         return float(self.w_hi.sum())
 
     def integrate(self, fn):
-        """Integral of fn(values), and the two-rule error estimate."""
-        parts = self.w * fn(self.values)
-        hi, lo = float(parts[:, :RULE_SPLIT].sum()), float(parts[:, RULE_SPLIT:].sum())
-        return hi, abs(hi - lo)
+        """Integral of fn(values), and its error estimate (see ``integrate_nodes``)."""
+        return self.integrate_nodes(fn(self.values))
+
+    def integrate_nodes(self, h, panels=None):
+        """Integral of the node array h (over the panels selected by the boolean array
+        ``panels``, or all), and its error estimate: the two rules' difference plus
+        ``ROUNDING`` of the integral of |h|."""
+        parts = self.w * h
+        if panels is not None:
+            parts = parts[panels]
+        hi, lo = (parts.sum(axis=0) @ RULE_COLUMNS).tolist()
+        return hi, abs(hi - lo) + ROUNDING * float(np.abs(parts[:, :RULE_SPLIT]).sum())
+
+    def left_of(self, t):
+        """Panels wholly below t (t an edge of the panels, as a split puts it)."""
+        return 0.5 * (self.a + self.b) < t
+
+
+def _joined(anchor, delta):
+    """anchor + delta; the delta itself where the anchor is 0 (the generic parts)."""
+    return delta if np.ndim(anchor) == 0 and anchor == 0.0 else anchor + delta
 
 
 # Per worker. A rule takes about 1 KB a panel (at most about 80 KB); what ``kept`` adds
@@ -217,29 +265,34 @@ _RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds
 
 
 def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
-                    fine=False):
-    """Quadrature for rank r of n (see ``_build_rank_quadrature``).
+                    fine=False, splits_s=(), s_top=0.0):
+    """Quadrature for rank r of n (see ``_build_rank_quadrature``); ``splits_s`` are extra
+    panel edges, given as s = -log u so that they keep their digits near the top, and no
+    panel reaches above s = ``s_top`` (values beyond the double range, say).
 
     Without a model to probe, the rule depends only on its arguments, so it is built
     once per worker for each (n, r, kinks, cut, reach) and handed out as a fresh copy
     (``fill`` replaces arrays, never writes into them; the cached ones are read-only).
     """
     kinks = tuple(float(k) for k in np.atleast_1d(np.asarray(kinks_u, float)))
+    splits = tuple(float(x) for x in splits_s)
+    if model is not None and not (model.upper_tail_index == model.lower_tail_index == math.inf):
+        model = None  # a power-law tail's growth is known in closed form; its far values overflow
     if (model is not None and power and getattr(model, "cheap_quantiles", False)) or len(kinks) > _RULE_CACHE_KINKS:
-        return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine)
+        return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine, splits, s_top)
     return copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
-                                  float(upper_growth), float(lower_growth), bool(fine)))
+                                  float(upper_growth), float(lower_growth), bool(fine), splits, float(s_top)))
 
 
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
-def _cached_rule(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, fine):
-    q = _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, None, 0, fine)
+def _cached_rule(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, fine, splits_s=(), s_top=0.0):
+    q = _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, None, 0, fine, splits_s, s_top)
     for name in ("a", "b", "u", "v", "w"):
         getattr(q, name).flags.writeable = False
     return q
 
 
-def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, model, power, fine):
+def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, model, power, fine, splits_s=(), s_top=0.0):
     """Quadrature for rank r of n, restricted to cumulative probability >= u_cut
     (or to s = -log u <= s_cut, which keeps its digits when u_cut rounds to 1).
 
@@ -261,7 +314,7 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
     vs = float(sp.polygamma(1, m) - sp.polygamma(1, n + 1.0)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0) ** 2))
     t0 = math.log(m * es)
     sig = min(1.0, math.sqrt(vs) / es)
-    t_left = max(t0 - max(14.0 * sig, 60.0 / max(r - upper_growth, 1e-3)), math.log(m * _TINY))
+    t_left = max(t0 - max(14.0 * sig, 60.0 / max(r - upper_growth, 1e-3)), math.log(m * max(_TINY, s_top)))
     w_right = m * (es + 14.0 * math.sqrt(vs)) + 70.0
     if lower_growth:
         w_right /= max(1.0 - lower_growth / m, 1e-3)
@@ -309,9 +362,8 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
         ta, tb = scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
 
     edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
-    for uk in kinks_u:
-        if 0.0 < uk < 1.0:
-            edges = np.append(edges, math.log(m * -math.log(uk)))
+    splits = [-math.log(uk) for uk in kinks_u if 0.0 < uk < 1.0] + [x for x in splits_s if 0.0 < x < math.inf]
+    edges = np.append(edges, [math.log(m * x) for x in splits])
     if fine:
         w_end = min(math.exp(tb), 4.0 * 400)
         edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
@@ -352,10 +404,12 @@ class RankSummary:
     abs_error: float
     method: str
     warnings: list
+    gap: tuple | None = None  # (E[X_1 - X_2], its error) when asked of rank 1's quadrature
 
 
-def rank_summary(model, n, r):
-    """Mean and variance of rank r of n, by the best route the model allows."""
+def rank_summary(model, n, r, with_gap=False):
+    """Mean and variance of rank r of n, by the best route the model allows; with
+    ``with_gap``, rank 1's quadrature also gives the expected gap (see ``expected_gap``)."""
     warnings = []
     has_mean = moment_exists(model, n, r, 1)
     has_var = moment_exists(model, n, r, 2)
@@ -375,26 +429,90 @@ def rank_summary(model, n, r):
         got = closed(n, r)
         if got is not None:
             mean, var = got
-            return RankSummary(r, mean, var if has_var else None, 4e-16 * abs(mean), "closed_form", warnings)
+            err = closed_form_error(model, n, mean, math.sqrt(var) if has_var and var > 0 else 0.0)
+            return RankSummary(r, mean, var if has_var else None, err, "closed_form", warnings)
     up, low = tail_growth(model, 2 if has_var else 1)
     q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
                         model=model, power=2 if has_var else 1).fill(model)
     total = q.total()
     with np.errstate(over="ignore", invalid="ignore"):
-        mean, err = q.integrate(lambda x: x)
-        mean /= total
-        var = None
-        if has_var and math.isfinite(mean):
-            var, err2 = q.integrate(lambda x: (x - mean) ** 2)
-            var /= total
-            err = max(err, err2 / max(2.0 * math.sqrt(max(var, 0.0)), 1e-300) if var > 0 else err2)
+        mean, var, err = quadrature_moments(q, total, has_var)
+        gap = _spacing(model, q, total) if with_gap and r == 1 else None
     if not math.isfinite(mean):
         warnings.append(f"rank {r}: the mean is beyond double precision (about 1e308); mean and sd are null")
         return RankSummary(r, None, None, 0.0, "quantile_gauss_legendre", warnings)
     if var is not None and not math.isfinite(var):
         warnings.append(f"rank {r}: the variance is beyond double precision (about 1e308); sd is null")
         var = None
-    return RankSummary(r, mean, var, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings)
+    return RankSummary(r, mean, var, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings, gap)
+
+
+def quadrature_moments(q, total, has_var):
+    """Mean and variance (None without ``has_var``) of a filled quadrature's values, its
+    weights divided by ``total``, with one bound for the error of both the mean and the sd.
+    The variance is taken about the mean of the offsets (``RankQuadrature.offsets``), so
+    its relative precision does not depend on where the values sit."""
+    ref, o = q.offsets()
+    shift, err = q.integrate_nodes(o)
+    shift /= total
+    mean = ref + shift
+    err = err / total + ROUNDING * abs(mean)
+    if not (has_var and math.isfinite(shift)):
+        return mean, None, err
+    dev = o - shift
+    var, err2 = q.integrate_nodes(dev * dev)
+    var /= total
+    # each offset's own rounding moves the variance by up to 2 |dev| ROUNDING |o|
+    err2 = (err2 + 2.0 * ROUNDING * float(np.abs((q.w * dev * o)[:, :RULE_SPLIT]).sum())) / total
+    return mean, var, max(err, err2 / (2.0 * math.sqrt(var)) if var > 0 else math.sqrt(err2))
+
+
+def _spacing(model, q, total):
+    """(E[X_1 - X_2], its error) on a filled quadrature of the highest value, or None where
+    the model has no precise S / f (see ``expected_gap``)."""
+    ih = model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
+    if ih is None:
+        return None
+    with np.errstate(invalid="ignore", over="ignore"):
+        gap, err = q.integrate_nodes(ih)
+    return gap / total, err / total
+
+
+def expected_gap(model, n, summaries=()):
+    """(E[X_1 - X_2], its error) for n >= 2, or (None, 0) where a mean does not exist.
+
+    Integrated as one quantity, never as a difference of the two means: by parts, with
+    P(X_2 <= x) - P(X_1 <= x) = n F^(n-1) (1 - F) (David and Nagaraja 2003, section 2.1),
+    E[X_1 - X_2] = int n u^(n-1) (1 - u) Q'(u) du = E[(1 - U) Q'(U)], U ~ Beta(n, 1), on the
+    highest value's own nodes; (1 - u) Q'(u) = S / f, the reciprocal of the hazard rate
+    (``ValueModel.inverse_hazard``). A step model sums its atoms' gaps x_(i+1) - x_i times
+    P(X_2 <= x_i < X_1) = n F_i^(n-1) (1 - F_i). Only a model without a precise S / f (a
+    mixture, a kernel density) falls back to the difference of the means.
+    """
+    if not (moment_exists(model, n, 1, 1) and moment_exists(model, n, 2, 1)):
+        return None, 0.0
+    if model.discrete:
+        f = np.arange(1, model.N) / model.N
+        gap = float(np.dot(np.diff(model.atoms), n * (1.0 - f) * np.exp((n - 1.0) * np.log(f))))
+        return gap, ROUNDING * gap
+    by_rank = {s.rank: s for s in summaries}
+    top = by_rank.get(1)
+    if top is not None and top.gap is not None:
+        return top.gap
+    if top is None or top.method != "quantile_gauss_legendre":
+        up, low = tail_growth(model, 1)
+        q = rank_quadrature(n, 1, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low, model=model, power=1).fill(model)
+        total = q.total()
+        got = _spacing(model, q, total)
+        if got is not None:
+            return got
+        with np.errstate(over="ignore", invalid="ignore"):
+            mean, _, err = quadrature_moments(q, total, False)
+        top = RankSummary(1, mean, None, err, "quantile_gauss_legendre", [])
+    second = by_rank.get(2) or rank_summary(model, n, 2)
+    if top.mean is None or second.mean is None:
+        return None, 0.0
+    return top.mean - second.mean, (top.abs_error or 0.0) + (second.abs_error or 0.0)
 
 
 def rank_quantiles(model, n, r, ps):

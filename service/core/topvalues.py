@@ -26,9 +26,10 @@ def finite_list(xs):
     return [finite(x) for x in np.asarray(xs, float).tolist()]
 
 
-def _numerics(summaries):
+def _numerics(summaries, gap_error=0.0):
     methods = sorted({s.method for s in summaries if s.method != "none"}) or ["none"]
-    return {"method": "+".join(methods), "abs_error": finite(max((s.abs_error for s in summaries), default=0.0))}
+    errors = [s.abs_error for s in summaries] + [gap_error]
+    return {"method": "+".join(methods), "abs_error": finite(None if None in errors else max(errors))}
 
 
 def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
@@ -40,7 +41,7 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
             raise ParameterError(f"ranks.{i}", f"rank {r} exceeds the number of bidders ({bidders})")
     if curve_points and model.discrete:
         raise ParameterError("curve_points", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
-    summaries = [os_.rank_summary(model, bidders, r) for r in ranks]
+    summaries = [os_.rank_summary(model, bidders, r, with_gap=True) for r in ranks]
     results, warnings = [], []
     for s in summaries:
         warnings += s.warnings
@@ -56,15 +57,13 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
             item["curve"] = {"x": finite_list(x), "pdf": finite_list(pdf), "cdf": finite_list(cdf)}
         results.append(item)
     out = {"bidders": bidders, "results": results}
+    gap_error = 0.0
     if bidders >= 2:
-        by_rank = {s.rank: s for s in summaries}
-        s1 = by_rank.get(1) or os_.rank_summary(model, bidders, 1)
-        s2 = by_rank.get(2) or os_.rank_summary(model, bidders, 2)
-        gap = None if s1.mean is None or s2.mean is None else s1.mean - s2.mean
+        gap, gap_error = os_.expected_gap(model, bidders, summaries)
         if gap is None and not any("mean does not exist" in w for w in warnings):
             warnings.append("expected_gap is null: the mean of the highest or second-highest does not exist")
         out["expected_gap"] = finite(gap)
-    out["numerics"] = _numerics(summaries)
+    out["numerics"] = _numerics(summaries, gap_error)
     out["warnings"] = warnings
     return out
 
