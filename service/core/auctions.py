@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from . import budget
+from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
 from .models import Reflected
@@ -40,6 +40,10 @@ ASSUMPTIONS = [
     "a single indivisible item or contract, no entry costs, no collusion",
 ]
 _GL = os_.GAUSS_RULES
+#: Below this chance that one value beats the reserve, the rank quadratures' windows
+#: (which stop at s = 1e-300) cannot hold the weight below the cut; the price is then the
+#: reserve under every rule, to double precision (the next term is smaller by that chance).
+FAR_RESERVE = 1e-250
 
 
 # M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial,
@@ -78,22 +82,54 @@ class ForwardAuction:
         self.v0 = seller_value
         # The effective floor: the reserve, or the bottom of the support.
         self.floor = model.lower if reserve is None else max(self.reserve, model.lower)
+        # A lone bidder has no rival to beat and pays the reserve itself, even one below
+        # the support; without a reserve, the bottom of the support.
+        self.lone_price = model.lower if reserve is None else self.reserve
+        self.origin = self._origin()
         self.reserve_binds = reserve is not None and self.reserve > model.lower
         self.s_r = _neg_log_cdf(model, self.floor) if self.reserve_binds else math.inf
         self.u_cut = math.exp(-self.s_r) if self.reserve_binds else 0.0
         self.f_r = self.u_cut  # F(floor)
         self.p_sale = -math.expm1(-self.n * self.s_r) if math.isfinite(self.s_r) else 1.0
+        # The price under every rule when at most one bidder can be above the floor: a lone
+        # bidder, or a reserve so near the top that each value beats it with chance below
+        # FAR_RESERVE (two beat it with chance below its square, far below rounding); None otherwise.
+        self.single_price = self.lone_price if self.n == 1 else self.floor if 0.0 < self.s_r < FAR_RESERVE else None
         self._bid_nodes = None
         self._bid_tails = None
         self._sp_quad = None
         self._node_bid_cache = None
         self._closed = {}
 
+    def _origin(self):
+        """Bids are integrated as b(v) - origin, b(v) - o = E[max(Y, r) - o | Y < v]. The origin is
+        whichever of the floor, the top of the support and 0 lies nearest the highest rival's
+        median, so that bids keep their digits where the rivals' values are: a bid barely above
+        a reserve far from zero, or bids just below a top of 0 (the forward twin of costs massed
+        near 0)."""
+        ends = [x for x in (self.floor, self.model.upper, 0.0) if math.isfinite(x)]
+        if self.n == 1:
+            return ends[0]
+        s = math.log(2.0) / (self.n - 1.0)  # F(y)^(n-1) = 1/2
+        mid = float(self.model.value_at(np.array([math.exp(-s)]), np.array([-math.expm1(-s)]))[0])
+        if math.isfinite(self.floor):
+            mid = max(mid, self.floor)  # only bids above the floor are asked for
+        return min(ends, key=lambda x: abs(x - mid)) if math.isfinite(mid) else ends[0]
+
+    def _reserve_mass(self, s_from):
+        """(floor - origin) e^(-(n-1)(s_r - s)): the reserve's part of the bid at s, from the origin."""
+        if not (math.isfinite(self.s_r) and math.isfinite(self.floor)) or self.floor == self.origin:
+            return 0.0
+        return (self.floor - self.origin) * math.exp(-(self.n - 1.0) * (self.s_r - s_from))
+
     # ---- shared pieces -----------------------------------------------------
+    def _power(self, n, r):
+        """The power of the values a rank-r-of-n integrand reaches: 2 where the variance exists, else 1."""
+        return 2 if os_.moment_exists(self.model, n, r, 2) else 1
+
     def _growth(self, n, r):
         """Tail reach for a rank-r-of-n integrand: x^2 where the variance exists, else x."""
-        p = 2 if os_.moment_exists(self.model, n, r, 2) else 1
-        return os_.tail_growth(self.model, p)
+        return os_.tail_growth(self.model, self._power(n, r))
 
     def has_variance(self, n, r):
         return os_.moment_exists(self.model, n, r, 2)
@@ -103,8 +139,9 @@ class ForwardAuction:
         """Panels for the highest of the other n-1 values, cut at the reserve."""
         if self._bid_nodes is None:
             up, low = self._growth(self.n - 1, 1)
-            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r,
-                                    upper_growth=up, lower_growth=low, fine=True).fill(self.model, conditional=True)
+            q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r, upper_growth=up,
+                                    lower_growth=low, fine=True, model=self.model, power=self._power(self.n - 1, 1),
+                                    checked=True).fill(self.model, conditional=True)
             self._bid_nodes = q
         return self._bid_nodes
 
@@ -117,16 +154,15 @@ class ForwardAuction:
         k = self.n - 1.0
         nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
         vals = q.values
-        g = vals * nodes.k_s_growth
-        end_mass = self.floor * math.exp(-k * (self.s_r - nodes.se[-1])) if math.isfinite(self.s_r) else 0.0
-        end_mass = end_mass if self.floor != -math.inf else 0.0
+        g = (vals - self.origin) * nodes.k_s_growth
         panels = (nodes.dt * g) @ os_.RULE_COLUMNS
+        end_mass = self._reserve_mass(nodes.se[-1]) if q.panels else 0.0  # the reserve's mass, shifted back to the last edge
         d = np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)])
         self._bid_tails = BidTail(nodes, vals, d, g)
         return self._bid_tails
 
     def _partial(self, s_q, s_end):
-        """Integral of v (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
+        """Integral of (v - origin) (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
         k = self.n - 1.0
         w_end = min(k * (s_end - s_q), 80.0)
         if not w_end > 0:
@@ -145,43 +181,53 @@ class ForwardAuction:
         ww = (half[:, None] * w).ravel() * np.exp(-wp)
         s = s_q + wp / k
         vals = m.value_at(np.exp(-s), -np.expm1(-s))
-        return float(np.dot(ww, vals))
+        return float(np.dot(ww, vals - self.origin))
 
     def bids_at_s(self, s_q):
-        """First-price equilibrium bids at values with -log F(v) = s_q (array)."""
+        """First-price equilibrium bids at values with -log F(v) = s_q (array): the floor
+        at and below it (b(r) = r), where the value model has no mass above the floor too."""
         s_q = np.asarray(s_q, float)
         if self.n == 1:
-            return np.full(s_q.shape, self.floor)
+            return np.full(s_q.shape, self.lone_price)
+        flat = s_q.ravel()
+        res = np.full(flat.shape, math.nan)
+        res[flat >= self.s_r] = self.floor  # comparisons with NaN are False and do not warn
+        above = flat < self.s_r
+        if above.any():
+            res[above] = self._bids_above_floor(flat[above])
+        return res.reshape(s_q.shape)
+
+    def _bids_above_floor(self, flat):
+        """Bids at values above the floor, s = -log F(v) < s_r (a flat array)."""
         k = self.n - 1.0
         q = self._inner_quadrature()
         tail = self._bid_tail()
         edges, se, d = tail.nodes.edges, tail.nodes.se, tail.d[0]
-        # The panel recurrence is exact out to the cut when the panels reach it; where they
-        # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
-        ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
-        reach = math.inf if ends_at_cut else k * se[-1] - 36.0
-        flat = s_q.ravel()
         res = np.full(flat.shape, math.nan)
-        live = flat <= self.s_r  # comparisons with NaN are False and do not warn
-        on_panels = live & (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach) if q.panels else np.zeros(flat.shape, bool)
+        on_panels = np.zeros(flat.shape, bool)
+        if q.panels:
+            # The panel recurrence is exact out to the cut when the panels reach it; where they
+            # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
+            ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
+            reach = math.inf if ends_at_cut else k * se[-1] - 36.0
+            on_panels = (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach)
         if on_panels.any():
             # Within the panels: the node's partial panel, then the recurrence from its right edge.
             sq = flat[on_panels]
             j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
             part = self._sub_integral(np.log(k * sq), edges[j + 1])
-            res[on_panels] = part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
-        for i in (np.nonzero(live & ~on_panels)[0] if not on_panels.all() else ()):
+            res[on_panels] = self.origin + part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
+        for i in np.nonzero(~on_panels)[0]:
             sq = flat[i]
             if q.panels and sq < se[0]:
-                res[i] = self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
+                res[i] = self.origin + self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
             else:
                 end = self.s_r if math.isfinite(self.s_r) else sq + 80.0 / k
-                res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
-                res[i] = self._partial(sq, end) + res_mass
-        return res.reshape(s_q.shape)
+                res[i] = self.origin + self._partial(sq, end) + self._reserve_mass(sq)
+        return res
 
     def _sub_integral(self, t_q, t_end):
-        """Integral of v (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
+        """Integral of (v - origin) (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
         each by one 24-node Gauss-Legendre rule."""
         k = self.n - 1.0
         xs, ws = _GL[0]
@@ -190,7 +236,7 @@ class ForwardAuction:
         ss = np.exp(tt) / k
         vv = self.model.value_at(np.exp(-ss), -np.expm1(-ss))
         sq = (np.exp(t_q) / k)[..., None]
-        return (hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
+        return (hh[..., None] * ws * (vv - self.origin) * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
 
     def node_bids(self):
         """The inner quadrature's nodes with the bids there (bids by the panel
@@ -201,7 +247,8 @@ class ForwardAuction:
         nodes = tail.nodes
         # g integrated spectrally from every node to its panel's right end (no new value
         # evaluations), plus each rule's tail beyond, shifted back to the node.
-        bids = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
+        shading = (nodes.half * (tail.g @ _TAIL_BOTH) + tail.d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
+        bids = self.origin + shading
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
         vals = tail.values
@@ -251,8 +298,8 @@ class BidTail:
 
     nodes: BidNodes
     values: np.ndarray  # the model's values at the nodes
-    d: np.ndarray  # (2, panels + 1): per rule, the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
-    g: np.ndarray  # v (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
+    d: np.ndarray  # (2, panels + 1): per rule, the integral of (v - origin) (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
+    g: np.ndarray  # (v - origin) (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
 
 
 @dataclass(frozen=True)
@@ -283,8 +330,8 @@ class NodeBids:
 def _quad_cut(auc, rank):
     """Filled rank quadrature over values >= the floor."""
     up, low = auc._growth(auc.n, rank)
-    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), s_cut=auc.s_r,
-                               upper_growth=up, lower_growth=low).fill(auc.model)
+    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), s_cut=auc.s_r, upper_growth=up, lower_growth=low,
+                               model=auc.model, power=auc._power(auc.n, rank), checked=True).fill(auc.model)
 
 
 def _closed_moments(auc, rank):
@@ -300,7 +347,8 @@ def _closed_moments(auc, rank):
 def _second_price_atoms(auc):
     """The price max(X2, r) on a sale has atoms: P(no sale) and P(price = r)."""
     n, fr = auc.n, auc.f_r
-    return fr**n, (n * fr ** (n - 1) * (1.0 - fr) if auc.reserve_binds else 0.0)
+    above = -math.expm1(-auc.s_r) if auc.reserve_binds else 0.0  # 1 - F(r), whose digits 1 - fr loses near the top
+    return fr**n, n * fr ** (n - 1) * above
 
 
 def _second_price_quadrature(auc):
@@ -310,16 +358,18 @@ def _second_price_quadrature(auc):
     return auc._sp_quad
 
 
-def _price_stats_second(auc, mean):
+def _price_sd_second(auc, mean):
+    """sd of the price max(X2, r) 1{sale} about ``mean``, scaled so no square overflows."""
     closed = _closed_moments(auc, 2)
     if closed is not None and closed[1] is not None:
-        return closed[1] + (closed[0] - mean) ** 2
+        return math.hypot(math.sqrt(max(closed[1], 0.0)), closed[0] - mean)
     p0, pr = _second_price_atoms(auc)
     q = _second_price_quadrature(auc)
-    var = p0 * mean**2 + (pr * (auc.floor - mean) ** 2 if pr else 0.0)
+    c = os_.sd_scale(mean, auc.floor - mean if pr else 0.0, q.values - mean if q.panels else 0.0)
+    var = p0 * (mean / c) ** 2 + (pr * ((auc.floor - mean) / c) ** 2 if pr else 0.0)
     if q.panels:
-        var += q.integrate(lambda x: (x - mean) ** 2)[0]
-    return var
+        var += q.integrate(lambda x: ((x - mean) / c) ** 2)[0]
+    return c * math.sqrt(max(var, 0.0))
 
 
 def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
@@ -375,10 +425,90 @@ def second_price_revenue(auc):
 
 def ascending_revenue(auc):
     """The open clock stops at the second-highest value (or the reserve):
-    E[price] = r P(sale) + integral from r of P(X2 > p) dp, in value space."""
+    E[price] = r P(sale) + integral from r of P(X2 > p) dp, in value space. Where the
+    clock price's upper tail beyond the quantile edges still counts (a gamma of tiny shape,
+    whose price is 0 but for a sliver of chance, or a lognormal with a large sigma), the
+    edges reach on to values that a single draw exceeds with chance down to 1e-300."""
+    edges, split = _ascending_edges(auc)
+    total, err, above, below = _clock_integral(auc, edges, split, _from_top(auc))
+    if max(above, below) > 1e-12 * abs(total):  # a crude bound, loose by the tail's scale
+        far = np.concatenate((auc.model.isf(_FAR_SURVIVAL) if above else [], auc.model.ppf(_FAR_SURVIVAL) if below else []))
+        far = far[np.isfinite(far) & ((far > edges[-1]) | (far < edges[0]))]
+        total, err, _, _ = _clock_integral(auc, _widened(np.unique(np.concatenate((edges, far)))), split)
+    return total, err
+
+
+def _from_top(auc):
+    """Whether the clock price lies nearer the top of a bounded support than the floor: then
+    E[price] = top P(sale) - integral of P(price <= x, sale) up to the top keeps the digits of a
+    price just below a top of 0 (the forward twin of costs massed near 0), which the integral
+    up from a floor of -1 would take as a difference of two numbers near 1."""
+    top, floor = auc.model.upper, auc.floor
+    if not (math.isfinite(top) and math.isfinite(floor)):
+        return False
+    mid = float(os_.rank_quantiles(auc.model, auc.n, 2, [0.5])[0])
+    return abs(top - mid) < abs(mid - floor)
+
+
+_FAR_SURVIVAL = 10.0 ** -np.array([20.0, 25, 30, 40, 50, 65, 80, 100, 130, 160, 200, 250, 300])
+
+
+def _clock_integral(auc, edges, split, from_top=False):
+    """(the clock price's mean over the edges, its two-rule error, and bounds on what the
+    light tails beyond the edges would add: P(X2 > top) |top| above the last edge and,
+    where the support is unbounded below, P(X2 <= bottom) |bottom| below the first)."""
     m, n = auc.model, auc.n
+
+    def sf2(x):
+        return os_.rank_sf(m, n, 2, x)
+
+    def cdf2(x):
+        return os_.rank_cdf(m, n, 2, x)
+
+    a, b, same_side, log_ratio = _value_spans(edges)
+    # Panels spanning a wide ratio on one side of zero run in log|x|, where a
+    # power-law tail becomes an exponential the rule integrates exactly.
+    logp = same_side & (log_ratio > math.log(2.0))
+    sgn = np.sign(a + b)
+    la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
+    lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
+
+    p0 = 1.0 - auc.p_sale
+
+    def integrand(x):
+        if from_top:  # P(price <= x, sale) = P(X2 <= x) - P(X1 < r) above the floor
+            return p0 - cdf2(x)
+        if split is None:
+            return sf2(x)
+        up = x >= split
+        out = np.empty(x.shape)
+        out[up], out[~up] = sf2(x[up]), -cdf2(x[~up])
+        return out
+
+    base = auc.model.upper * auc.p_sale if from_top else auc.floor * auc.p_sale if split is None else split
+    totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
+    # Power-law tails beyond the end edges, integrated in closed form.
+    tail, above, below = 0.0, 0.0, 0.0
+    top, bot = edges[-1], edges[0]
+    if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
+        tail += top * float(sf2(np.array(top))) / (2.0 * m.upper_tail_index - 1.0)
+    elif not math.isfinite(m.upper):
+        above = float(sf2(np.array(top))) * abs(top)
+    if split is not None and math.isfinite(m.lower_tail_index):
+        tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
+    elif split is not None:
+        below = float(cdf2(np.array(bot))) * abs(bot)
+    return totals[0] + tail, abs(totals[0] - totals[1]), above, below
+
+
+def _ascending_edges(auc):
+    """Value-space panel edges for the clock price from the floor up (the second-highest
+    value's quantiles, the kinks, the ends), and the split point below which the cdf is
+    integrated instead of the survival function (None when the floor is finite). A panel
+    spanning many decades on one side of zero (a floor of 1e-300, say) is cut into pieces
+    of at most e^3, which the log-|x| rule integrates exactly (``_widened``)."""
+    m, n, lo_end = auc.model, auc.n, auc.floor
     xs = os_.rank_quantiles(m, n, 2, _P_EDGES)
-    lo_end = auc.floor
     edges = np.concatenate((xs, list(m.kink_values()), [lo_end] if math.isfinite(lo_end) else []))
     if math.isfinite(m.upper):
         edges = np.append(edges, m.upper)
@@ -388,54 +518,28 @@ def ascending_revenue(auc):
     split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
     if split is not None:
         edges = np.unique(np.append(edges, split))
+    return _widened(edges), split
 
-    def sf2(x):
-        return os_.rank_sf(m, n, 2, x)
 
-    def cdf2(x):
-        return os_.rank_cdf(m, n, 2, x)
-
-    # A panel spanning many decades on one side of zero (a floor of 1e-300, say) is
-    # cut into pieces of at most e^3, which the log-|x| rule below integrates exactly.
-    def spans(edges):
-        """Panels, whether each lies on one side of zero, and its |log(b / a)| there."""
-        a, b = edges[:-1], edges[1:]
-        same_side = a * b > 0
-        return a, b, same_side, np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
-
-    a, b, same_side, log_ratio = spans(edges)
+def _widened(edges):
+    """Edges with every panel spanning more than e^3 on one side of zero cut into pieces."""
+    a, b, _, log_ratio = _value_spans(edges)
     wide = np.nonzero(log_ratio > 3.0)[0]
     if wide.size:
         extra = [math.copysign(v, a[i]) for i in wide
                  for v in np.geomspace(abs(a[i]), abs(b[i]), min(int(log_ratio[i] / 3.0), 400) + 2)[1:-1]]
         edges = np.unique(np.concatenate((edges, extra)))
-        a, b, same_side, log_ratio = spans(edges)
-    # Panels spanning a wide ratio on one side of zero run in log|x|, where a
-    # power-law tail becomes an exponential the rule integrates exactly.
-    logp = same_side & (log_ratio > math.log(2.0))
-    sgn = np.sign(a + b)
-    la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
-    lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
+    return edges
 
-    def integrand(x):
-        if split is None:
-            return sf2(x)
-        up = x >= split
-        out = np.empty(x.shape)
-        out[up], out[~up] = sf2(x[up]), -cdf2(x[~up])
-        return out
 
-    base = lo_end * auc.p_sale if split is None else split
-    totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
-    # Power-law tails beyond the last edge, integrated in closed form.
-    tail = 0.0
-    if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
-        top = edges[-1]
-        tail += top * float(sf2(np.array(top))) / (2.0 * m.upper_tail_index - 1.0)
-    if split is not None and math.isfinite(m.lower_tail_index):
-        bot = edges[0]
-        tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
-    return totals[0] + tail, abs(totals[0] - totals[1])
+def _value_spans(edges):
+    """Panels, whether each lies on one side of zero, and its |log(b / a)| there: taken as
+    log|b| - log|a|, since b / a overflows from a subnormal floor (1e-315) up to 1."""
+    a, b = edges[:-1], edges[1:]
+    same_side = np.sign(a) * np.sign(b) > 0
+    with np.errstate(divide="ignore"):
+        gap = np.log(np.abs(np.where(same_side, b, 1.0))) - np.log(np.abs(np.where(same_side, a, 1.0)))
+    return a, b, same_side, np.abs(gap)
 
 
 def _value_panel_sums(la, lb, logp, sgn, integrand):
@@ -493,8 +597,10 @@ def descending_revenue(auc):
     n = auc.n
     tail, nb = auc._bid_tail(), auc.node_bids()
     c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail.nodes, n))
-    floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
-    hi, lo = (tail.d[:, c] - floor_term + nb.integrals((nb.values - nb.bids) * weight)).tolist()
+    # b(c) - r F(r)^n with b(c) = origin + d[c], written (origin - r) + r P(sale) + d[c] so that no term
+    # of the reserve's size is taken from another.
+    at_floor = (auc.origin - auc.floor) + auc.floor * auc.p_sale if math.isfinite(auc.floor) else auc.origin
+    hi, lo = (tail.d[:, c] + at_floor + nb.integrals((nb.values - nb.bids) * weight)).tolist()
     return hi, abs(hi - lo)
 
 
@@ -503,7 +609,7 @@ def _descending_weight(nodes, n):
     weight, (n-1) s (1 - F^n) where t < t_c and -(n-1) s F^n elsewhere: functions of
     the nodes and n alone."""
     k = n - 1.0
-    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n))))
+    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n)))) if len(nodes.edges) else 0
     return c, k * nodes.s * np.where(nodes.t < nodes.edges[c], -np.expm1(-n * nodes.s), -np.exp(-n * nodes.s))
 
 
@@ -513,10 +619,12 @@ def all_pay_revenue(auc):
     return _bid_outer(auc, lambda nb: n * nb.one * nb.rivals * nb.bids)
 
 
-def _bid_price_stats(auc, mean):
-    """Variance of the price b(X1) 1{sale}, shared by first-price and descending."""
-    var, _ = _bid_outer(auc, lambda nb: nb.top * (nb.bids - mean) ** 2)
-    return var + (1.0 - auc.p_sale) * mean**2
+def _bid_price_sd(auc, mean):
+    """sd of the price b(X1) 1{sale} about ``mean``, shared by first-price and descending."""
+    nb = auc.node_bids()
+    c = os_.sd_scale(mean, nb.bids - mean)
+    var, _ = _bid_outer(auc, lambda nb: nb.top * ((nb.bids - mean) / c) ** 2)
+    return c * math.sqrt(max(var + (1.0 - auc.p_sale) * (mean / c) ** 2, 0.0))
 
 
 def _bid_price_quantiles(auc, ps):
@@ -538,10 +646,18 @@ def _bid_price_quantiles(auc, ps):
 
 
 def _all_pay_stats(auc):
+    """sd of the sum of n all-pay bids, and what the winner pays. One bidder pays
+    a = F^(n-1) b at or above the floor and nothing below it; the n payments are
+    independent, so the variance is n Var(a), taken about its mean and scaled."""
     ea, _ = _bid_outer(auc, lambda nb: nb.one * nb.rivals * nb.bids)
-    ea2, _ = _bid_outer(auc, lambda nb: nb.one * (nb.rivals * nb.bids) ** 2)
+    nb, se = auc.node_bids(), auc._bid_tail().nodes.se
+    c = os_.sd_scale(ea, nb.rivals * nb.bids - ea)
+    var, _ = _bid_outer(auc, lambda nb: nb.one * ((nb.rivals * nb.bids - ea) / c) ** 2)
+    # Below the nodes (below the floor, or where F^(n-1) is negligible) a bidder pays nothing;
+    # that chance is F at the last edge, e^(-s).
+    var += (math.exp(-se[-1]) if len(se) else 1.0) * (ea / c) ** 2
     winner_pays, _ = _bid_outer(auc, lambda nb: nb.top * nb.rivals * nb.bids)
-    return auc.n * max(ea2 - ea * ea, 0.0), winner_pays
+    return c * math.sqrt(auc.n * max(var, 0.0)), winner_pays
 
 
 ROUTES = {
@@ -553,71 +669,101 @@ ROUTES = {
 }
 
 
+def _no_sale_note(auc, direction):
+    """Say so when the reserve (maximum price) lies where no value (cost) reaches it."""
+    if auc.p_sale > 0.0:
+        return []
+    if direction == "forward":
+        return ["the reserve is at or above the top of the value model's support: no bidder can beat it, so nothing is sold"]
+    return ["the maximum price is at or below the bottom of the cost model's support: no bidder can meet it, so nothing is awarded"]
+
+
 def forward_figures(auc, rules, quantiles):
     """Each rule's forward figures, expected revenue by the rule's own route."""
     n = auc.n
     warnings = []
-    bid_rules = {"first_price", "descending", "all_pay"} & set(rules)
-    closed_top = _closed_moments(auc, 1)
-    if auc.p_sale == 0.0:
-        e_win_value = 0.0
-    elif closed_top is not None:
-        e_win_value = closed_top[0]
-    elif n == 1 or not bid_rules:  # no bids needed: the highest value's own quadrature
-        e_win_value = _quad_cut(auc, 1).integrate(lambda x: x)[0]
-    else:
-        e_win_value = _bid_outer(auc, lambda nb: nb.top * nb.values)[0]
-    eff = _efficiency(auc, e_win_value, warnings)
+    e_win_value = _winner_value(auc, rules)
+    if e_win_value is None:
+        warnings.append(f"each value beats the reserve with chance below {FAR_RESERVE:g}: the price is the reserve under "
+                        "every rule, but the winner's value is beyond reach, so the surpluses and efficiency are null")
+    eff = _efficiency(auc, e_win_value, warnings) if e_win_value is not None else None
     out, shared = {}, {}
     for rule in rules:
-        if auc.p_sale == 0.0:
-            mean, err, var, qs, winner_pay = 0.0, 0.0, 0.0, np.zeros(len(quantiles)), 0.0
-        elif n == 1:
-            # A lone bidder pays the floor under every rule (no rival to beat).
-            if not math.isfinite(auc.floor):
-                raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
-            mean, err = auc.floor * auc.p_sale, 0.0
-            var = auc.p_sale * (1 - auc.p_sale) * auc.floor**2
-            qs = np.where(np.asarray(quantiles) <= 1 - auc.p_sale, 0.0, auc.floor)
-            winner_pay = mean
-        else:
-            mean, err = ROUTES[rule](auc)
-            winner_pay = mean
-            # The sd and quantiles depend only on the price distribution, which the two
-            # rules of each pair share; they are computed once per pair (the sd about the
-            # first rule's mean: the pair's means agree to their error estimates, whose
-            # square is far below rounding of the variance).
-            if rule in ("second_price", "ascending"):
-                if "second" not in shared:
-                    shared["second"] = _price_stats_second(auc, mean), _price_quantiles_second(auc, quantiles)
-                var, qs = shared["second"]
-            elif rule in ("first_price", "descending"):
-                if "bid" not in shared:
-                    shared["bid"] = _bid_price_stats(auc, mean), _bid_price_quantiles(auc, quantiles)
-                var, qs = shared["bid"]
-            else:
-                var, winner_pay = _all_pay_stats(auc)
-                qs = None
+        mean, err, sd, qs, winner_pay = _rule_stats(auc, rule, quantiles, shared)
         price_rank = 2 if rule in ("second_price", "ascending") and n > 1 else 1
         if not auc.has_variance(n, price_rank):
-            var = None
+            sd = None
             note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
             if note not in warnings:
                 warnings.append(note)
+        elif not math.isfinite(sd):
+            sd = None
+            warnings.append(f"{rule}: the sd is null (it is beyond double precision, about 1e308)")
         out[rule] = {
             "rule": rule,
             "expected_revenue": mean,
-            "revenue_sd": None if var is None else math.sqrt(max(var, 0.0)),
+            "revenue_sd": sd,
             "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),  # at ``quantiles``
             "probability_of_sale": auc.p_sale,
-            "expected_winner_surplus": e_win_value - winner_pay,
-            "expected_bidder_surplus": e_win_value - mean,
+            "expected_winner_surplus": None if e_win_value is None else e_win_value - winner_pay,
+            "expected_bidder_surplus": None if e_win_value is None else e_win_value - mean,
             "efficiency": eff,
             "_err": err,
         }
-    if "all_pay" in rules and n > 1 and auc.p_sale > 0:
+    if "all_pay" in rules and auc.single_price is None and auc.p_sale > 0:
         warnings.append("all_pay: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
     return out, warnings
+
+
+def _winner_value(auc, rules):
+    """E[X1 1{sale}]: the winner's expected value, by the cheapest route the rules allow."""
+    closed_top = _closed_moments(auc, 1)
+    if auc.p_sale == 0.0:
+        return 0.0
+    if 0.0 < auc.s_r < FAR_RESERVE:
+        return None  # beyond the quadratures' reach (see FAR_RESERVE)
+    if closed_top is not None:
+        return closed_top[0]
+    if auc.n == 1 or not {"first_price", "descending", "all_pay"} & set(rules):  # no bids needed
+        return _quad_cut(auc, 1).integrate(lambda x: x)[0]
+    return _bid_outer(auc, lambda nb: nb.top * nb.values)[0]
+
+
+def _rule_stats(auc, rule, quantiles, shared):
+    """(mean, abs error, sd, quantiles, the winner's payment) of one rule's revenue.
+    The sd and quantiles depend only on the price distribution, which the two rules of
+    each pair share; they are computed once per pair (the sd about the first rule's
+    mean: the pair's means agree to their error estimates, whose square is far below
+    rounding of the variance)."""
+    if auc.p_sale == 0.0:
+        return 0.0, 0.0, 0.0, np.zeros(len(quantiles)), 0.0
+    if auc.single_price is not None:
+        return _single_price_stats(auc, quantiles)
+    mean, err = ROUTES[rule](auc)
+    if rule in ("second_price", "ascending"):
+        if "second" not in shared:
+            shared["second"] = _price_sd_second(auc, mean), _price_quantiles_second(auc, quantiles)
+        return (mean, err, *shared["second"], mean)
+    if rule in ("first_price", "descending"):
+        if "bid" not in shared:
+            shared["bid"] = _bid_price_sd(auc, mean), _bid_price_quantiles(auc, quantiles)
+        return (mean, err, *shared["bid"], mean)
+    sd, winner_pay = _all_pay_stats(auc)
+    return mean, err, sd, None, winner_pay
+
+
+def _single_price_stats(auc, quantiles):
+    """The figures when the price is ``auc.single_price`` on a sale: a lone bidder pays the
+    reserve under every rule (no rival to beat), even a reserve below the support (without
+    a reserve, the bottom of the support); so does the one bidder above a far reserve."""
+    price, p = auc.single_price, auc.p_sale
+    if not math.isfinite(price):
+        raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
+    ps = np.asarray(quantiles, float)
+    # Revenue is 0 with chance 1 - p and the price with chance p, in increasing order.
+    qs = np.where(ps <= 1.0 - p, 0.0, price) if price >= 0.0 else np.where(ps <= p, price, 0.0)
+    mean = price * p
+    return mean, 0.0, abs(price) * math.sqrt(p * (1.0 - p)), qs, mean
 
 
 def _efficiency(auc, e_win_value, warnings):
@@ -631,7 +777,8 @@ def _efficiency(auc, e_win_value, warnings):
     if s0 == auc.s_r and realised > 0:  # the same cut as the reserve's: the best gain is the realised one
         return 1.0
     up, low = os_.tail_growth(auc.model, 1)
-    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), s_cut=s0, upper_growth=up, lower_growth=low).fill(auc.model)
+    q = os_.rank_quadrature(auc.n, 1, kinks_u=auc.model.kinks_u(), s_cut=s0, upper_growth=up, lower_growth=low,
+                            model=auc.model, power=1, checked=True).fill(auc.model)
     best = (q.integrate(lambda x: x - v0)[0]) if q.panels else 0.0
     if not best > 0:
         warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")
@@ -665,6 +812,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)
+    warnings += _no_sale_note(auc, direction)
     sign = 1.0 if direction == "forward" else -1.0
     mean_k, sd_k, q_k, p_k = _NAMES[direction]
     results, err = [], 0.0
@@ -684,7 +832,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         })
     means = [r[mean_k] for r in results]
     spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
-    return {
+    return audit.revenue({
         "direction": direction,
         "assumptions": ASSUMPTIONS,
         "bidders": bidders,
@@ -693,7 +841,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         "revenue_equivalence": finite(spread),
         "numerics": {"method": "quantile_gauss_legendre+spectral_bid_integration", "abs_error": finite(err)},
         "warnings": warnings,
-    }
+    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0)
 
 
 def _check_price_exists(fmodel, bidders):
@@ -728,14 +876,15 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     else:
         s_q = fmodel.neg_log_cdf(v)
         s_q = np.minimum(s_q, auc.s_r)
-        b = np.full(v.shape, auc.floor)
+        b = np.full(v.shape, auc.lone_price if bidders == 1 else auc.floor)
         live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
         b[live] = auc.bids_at_s(s_q[live])
         fwd = direction == "forward"
         if rule == "all_pay":
             # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
             win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
-            bids = win * b
+            with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
+                bids = np.where(win > 0.0, win * b, 0.0)
             note = ("all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)" if fwd else
                     "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)")
         else:
@@ -753,14 +902,15 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
         warnings.append("bids are null at " + ("values" if direction == "forward" else "costs") + " outside the model's support")
     if not all(takes_part[inside]):
         warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
-    return {"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
-            "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}
+    warnings += _no_sale_note(auc, direction)
+    return audit.bids({"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
+                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}, model, reserve)
 
 
 def _sp_payoff(model, n, r, v0):
     """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
     auc = ForwardAuction(model, n, r, v0)
-    rev = second_price_revenue(auc)[0] if n > 1 else auc.floor * auc.p_sale
+    rev = second_price_revenue(auc)[0] if n > 1 else auc.lone_price * auc.p_sale
     return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
 
 
@@ -841,4 +991,4 @@ def reserve_report(model, direction, bidders, own_value):
         "assumptions": ASSUMPTIONS,
         "warnings": [],
     }
-    return out
+    return audit.reserve_price(out, model, own_value)

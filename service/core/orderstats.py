@@ -86,8 +86,9 @@ class RankQuadrature:
     kernel density through a few scattered bids) still integrate to full precision.
     """
 
-    def __init__(self, m, r, lognorm, edges):
+    def __init__(self, m, r, lognorm, edges, cut_at_end=False):
         self.m, self.r, self.lognorm = m, r, lognorm
+        self.cut_at_end = cut_at_end  # whether the last edge is a cut (a reserve), not where the weight fades
         edges = np.asarray(edges, float)
         self._set_panels(edges[:-1], edges[1:])
         self.values = None
@@ -217,18 +218,46 @@ _RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds
 
 
 def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
-                    fine=False):
+                    fine=False, checked=False):
     """Quadrature for rank r of n (see ``_build_rank_quadrature``).
 
     Without a model to probe, the rule depends only on its arguments, so it is built
     once per worker for each (n, r, kinks, cut, reach) and handed out as a fresh copy
     (``fill`` replaces arrays, never writes into them; the cached ones are read-only).
+    A model with cheap quantiles is probed: the scan that trims the range weighs |Q|^power.
+    With ``checked`` it is probed only when the cached rule's ends still carry that
+    weight (``_ends_matter``: a lognormal with a large sigma, a gamma of tiny shape), so
+    that ordinary models keep the cached rule and what is kept with it.
     """
     kinks = tuple(float(k) for k in np.atleast_1d(np.asarray(kinks_u, float)))
-    if (model is not None and power and getattr(model, "cheap_quantiles", False)) or len(kinks) > _RULE_CACHE_KINKS:
+    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    if (probe and not checked) or len(kinks) > _RULE_CACHE_KINKS:
         return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine)
-    return copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
+    rule = copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
                                   float(upper_growth), float(lower_growth), bool(fine)))
+    if probe and _ends_matter(rule, model, power):
+        return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine)
+    return rule
+
+
+def _ends_matter(q, model, power):
+    """Whether |Q|^power times the weight, at the rule's first edge (the upper tail) or at
+    its last when that is not a cut, comes within e^-40 of its size in the bulk: the
+    scan that placed the edges weighed the weight alone, and here the values grow
+    faster than it allowed for. A few quantiles: the edges and the panels' middles."""
+    if q.panels == 0:
+        return False
+    t = np.concatenate(([q.a[0], q.b[-1]], 0.5 * (q.a + q.b)))
+    s = np.exp(t) / q.m
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        logw = _log_weight(t, q.m, q.r, q.lognorm)
+        x = np.abs(model.value_at(np.exp(-s), -np.expm1(-s)))
+        bulk = logw > np.max(logw) - 5.0
+        scale = max(float(np.max(np.where(bulk & np.isfinite(x), x, 0.0))), _TINY)
+        h = logw + power * np.log(np.maximum(x, scale) / scale)
+    h = np.where(np.isnan(h), -np.inf, h)
+    ends = h[:1] if q.cut_at_end else h[:2]
+    return bool(np.max(ends) > np.max(h[2:]) - 40.0)
 
 
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
@@ -254,40 +283,67 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
     m = float(n - r + 1)
     r = float(r)
     lognorm = math.log(m) + log_beta(r, m)
-
-    def empty():
+    if s_cut is None and u_cut > 0.0:
+        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
+    window = _rank_window(n, m, r, s_cut, upper_growth, lower_growth, fine)
+    if window is None:
         return RankQuadrature(m, r, lognorm, [])
+    t0, sig, t_left, t_right = window
+    cut = s_cut is not None and math.isfinite(s_cut)
+    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    ta, tb = _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, model if probe else None, power)
+    if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
+        tb = max(tb, min(t_right, math.log(80.0)))
+    tpk = min(max(t0, ta), tb)
+    edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
+    for uk in kinks_u:
+        if 0.0 < uk < 1.0:
+            edges = np.append(edges, math.log(m * -math.log(uk)))
+    if fine:
+        w_end = min(math.exp(tb), 4.0 * 400)
+        edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
+    edges = np.unique(edges[(edges >= ta) & (edges <= tb)])
+    return RankQuadrature(m, r, lognorm, edges, cut_at_end=cut and tb >= t_right)
+
+
+def _rank_window(n, m, r, s_cut, upper_growth, lower_growth, fine):
+    """(t0, sig, t_left, t_right): the weight's peak and scale in t, and the range
+    that holds it (None when empty). A cut far in the upper tail (a reserve beaten
+    with chance 1e-40) keeps the weight's last 60 e-folds below it, since integrals
+    cut there are about that sliver and nothing else."""
     es = float(sp.digamma(n + 1.0) - sp.digamma(m)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0)))
     vs = float(sp.polygamma(1, m) - sp.polygamma(1, n + 1.0)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0) ** 2))
     t0 = math.log(m * es)
     sig = min(1.0, math.sqrt(vs) / es)
-    t_left = max(t0 - max(14.0 * sig, 60.0 / max(r - upper_growth, 1e-3)), math.log(m * _TINY))
+    reach = 60.0 / max(r - upper_growth, 1e-3)  # the weight falls as e^((r - growth) t) into the upper tail
+    t_left = max(t0 - max(14.0 * sig, reach), math.log(m * _TINY))
     w_right = m * (es + 14.0 * math.sqrt(vs)) + 70.0
     if lower_growth:
         w_right /= max(1.0 - lower_growth / m, 1e-3)
     if fine:
         w_right = max(w_right, 90.0)
     t_right = min(math.log(w_right), math.log(m * 690.0))
-    if s_cut is None and u_cut > 0.0:
-        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
-    cut = s_cut is not None and math.isfinite(s_cut)
-    if cut:
+    if s_cut is not None and math.isfinite(s_cut):
         if s_cut <= 0.0:
-            return empty()
+            return None
         t_right = min(t_right, math.log(m * s_cut))
+        t_left = max(min(t_left, t_right - reach), math.log(m * _TINY))
     if t_right <= t_left:
-        return empty()
+        return None
+    return t0, sig, t_left, t_right
 
-    # Trim to where the integrand matters, on a cheap scan of the log-weight.
-    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
-    scan = np.linspace(t_left, t_right, 151 if probe else 301)
-    if probe:
+
+def _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, model, power):
+    """(ta, tb): the part of [t_left, t_right] where the integrand matters, on a cheap
+    scan of the log-weight (and, with a ``model`` to probe, of |Q|^power)."""
+    scan = np.linspace(t_left, t_right, 151 if model is not None else 301)
+    if model is not None:
         far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 121)
         scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
         aug = _log_weight(scan, m, r, lognorm)
-        if not probe:  # the power-law tails' growth, in closed form
+        if model is None:  # the power-law tails' growth, in closed form
             aug = aug - upper_growth * np.log(np.maximum(-np.expm1(-wscan / m), _TINY)) + lower_growth * wscan / m
         else:  # the growth itself, measured on the model's values
             # |Q|^power only counts where it exceeds the values' own scale in the
@@ -297,26 +353,22 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
             scale = np.max(np.where(bulk & np.isfinite(xs), xs, 0.0))
             aug = aug + power * np.log(np.maximum(xs, max(scale, _TINY)) / max(scale, _TINY))
             aug = np.where(np.isnan(aug), -np.inf, aug)  # no value there (a quantile routine gave up)
-    keep = np.nonzero(aug > np.max(aug) - _DECADES)[0] if np.isfinite(np.max(aug)) else np.nonzero(aug == np.inf)[0]
+    top = np.max(aug)
+    if model is not None and not math.isfinite(float(top)):
+        return scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
+    keep = np.nonzero(aug > top - _DECADES)[0] if np.isfinite(top) else np.nonzero(aug == np.inf)[0]
+    # The hull with where the weight alone matters: a fast-growing tail (a lognormal with
+    # a large sigma) puts the peak of x^2 w far out, where x w (the mean) no longer is.
+    weight = _log_weight(scan, m, r, lognorm)
+    keep = np.union1d(keep, np.nonzero(weight > np.max(weight) - _DECADES)[0])
     if len(keep) == 0:  # nothing finite to go by: the whole scanned range
         keep = np.arange(len(scan))
     ta = scan[max(keep[0] - 1, 0)]
-    tb = t_right if (cut and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
-    if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
-        tb = max(tb, min(t_right, math.log(80.0)))
-    tpk = min(max(t0, ta), tb)
-    if probe and not math.isfinite(float(np.max(aug))):
-        ta, tb = scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
-
-    edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
-    for uk in kinks_u:
-        if 0.0 < uk < 1.0:
-            edges = np.append(edges, math.log(m * -math.log(uk)))
-    if fine:
-        w_end = min(math.exp(tb), 4.0 * 400)
-        edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
-    edges = np.unique(edges[(edges >= ta) & (edges <= tb)])
-    return RankQuadrature(m, r, lognorm, edges)
+    if cut and keep[-1] == len(scan) - 1:
+        return ta, t_right
+    # On the right the weight falls as e^-w: one unit of t (a factor e in w) past the last point
+    # kept is margin enough, where the probe's sparse far scan would step a factor 300 out.
+    return ta, min(scan[min(keep[-1] + 1, len(scan) - 1)], scan[keep[-1]] + 1.0)
 
 
 def tail_growth(model, p):
@@ -348,14 +400,30 @@ def discrete_rank_probabilities(model, n, r):
 class RankSummary:
     rank: int
     mean: float | None
-    var: float | None
+    sd: float | None
     abs_error: float
     method: str
     warnings: list
 
+    @property
+    def var(self):
+        return None if self.sd is None else self.sd * self.sd
+
+
+def sd_scale(*deviations):
+    """A power of two at or above the largest finite |deviation|: squares of deviations
+    divided by it lie in [0, 1], so none overflows (a spread of 1e200 about a mean of
+    1e150) and the ones that matter do not underflow (a spread of 1e-200)."""
+    top = 0.0
+    for d in deviations:
+        d = np.abs(np.asarray(d, float))
+        d = d[np.isfinite(d)]
+        top = max(top, float(d.max()) if d.size else 0.0)
+    return math.ldexp(1.0, math.frexp(top)[1]) if top > 0.0 else 1.0
+
 
 def rank_summary(model, n, r):
-    """Mean and variance of rank r of n, by the best route the model allows."""
+    """Mean and sd of rank r of n, by the best route the model allows."""
     warnings = []
     has_mean = moment_exists(model, n, r, 1)
     has_var = moment_exists(model, n, r, 2)
@@ -369,32 +437,51 @@ def rank_summary(model, n, r):
         x = model.atoms
         mean = float(np.dot(p, x) / np.sum(p))
         var = float(np.dot(p, (x - mean) ** 2) / np.sum(p))
-        return RankSummary(r, mean, var, 4e-16 * abs(mean), "exact_discrete_sum", warnings)
+        return RankSummary(r, mean, math.sqrt(var), 4e-16 * abs(mean), "exact_discrete_sum", warnings)
     closed = getattr(model, "closed_rank_moments", None)
-    if closed is not None:
-        got = closed(n, r)
-        if got is not None:
-            mean, var = got
-            return RankSummary(r, mean, var if has_var else None, 4e-16 * abs(mean), "closed_form", warnings)
+    got = closed(n, r) if closed is not None else None
+    if got is not None:
+        mean, var = got
+        sd = math.sqrt(max(var, 0.0)) if has_var and var is not None else None
+        return RankSummary(r, mean, sd, 4e-16 * abs(mean), "closed_form", warnings)
     up, low = tail_growth(model, 2 if has_var else 1)
     q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
                         model=model, power=2 if has_var else 1).fill(model)
-    total = q.total()
-    with np.errstate(over="ignore", invalid="ignore"):
-        mean, err = q.integrate(lambda x: x)
-        mean /= total
-        var = None
-        if has_var and math.isfinite(mean):
-            var, err2 = q.integrate(lambda x: (x - mean) ** 2)
-            var /= total
-            err = max(err, err2 / max(2.0 * math.sqrt(max(var, 0.0)), 1e-300) if var > 0 else err2)
-    if not math.isfinite(mean):
+    mean, sd, err = _quadrature_moments(q, has_var)
+    if mean is None or not math.isfinite(mean):
         warnings.append(f"rank {r}: the mean is beyond double precision (about 1e308); mean and sd are null")
         return RankSummary(r, None, None, 0.0, "quantile_gauss_legendre", warnings)
-    if var is not None and not math.isfinite(var):
-        warnings.append(f"rank {r}: the variance is beyond double precision (about 1e308); sd is null")
-        var = None
-    return RankSummary(r, mean, var, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings)
+    if has_var and (sd is None or not math.isfinite(sd)):
+        warnings.append(f"rank {r}: the sd is beyond double precision (about 1e308); sd is null")
+        sd = None
+    return RankSummary(r, mean, sd, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings)
+
+
+def _quadrature_moments(q, has_sd):
+    """(mean, sd, error estimate) of the values on a filled rank quadrature.
+
+    The rank's weight integrates to 1, so nothing is divided by the rule's own total: where
+    the scan kept all of the weight, the mean is taken about a value at the weight's peak,
+    so that values equal to within rounding (a sd of 1e-300 about 1e150) give that value
+    exactly; where it trimmed part of the weight, it did so because the values there are
+    negligible (a gamma of shape 1e-5 is below 1e-300 except with chance 5e-5), and they are
+    counted as zero rather than spread over the rest by a normalisation."""
+    if q.panels == 0:
+        return None, None, 0.0
+    whole = abs(q.total() - 1.0) < 1e-9
+    with np.errstate(over="ignore", invalid="ignore"):
+        centre = float(q.values_hi.flat[np.argmax(q.w_hi)]) if whole else 0.0
+        if not math.isfinite(centre):
+            centre = 0.0
+        dev, err = q.integrate(lambda x: x - centre)
+        mean = centre + dev
+        if not (has_sd and math.isfinite(mean)):
+            return mean, None, err
+        c = sd_scale(q.values - mean)
+        var, err2 = q.integrate(lambda x: ((x - mean) / c) ** 2)
+        root = math.sqrt(max(var, 0.0))
+        err = max(err, c * (err2 / (2.0 * root) if root > 0 else math.sqrt(err2)))
+    return mean, c * root, err
 
 
 def rank_quantiles(model, n, r, ps):
