@@ -47,7 +47,11 @@ def forward_uniform_revenue(n, r):
     n bidders and reserve r in [0, 1]: (n-1)/(n+1) + r^n - 2n r^(n+1)/(n+1),
     the same under every standard rule. A reserve at or below the bottom of the
     support does not bind (r -> 0); a reserve at or above the top means no sale.
-    With n = 1 it reads r(1 - r): the lone bidder pays the reserve when v >= r."""
+    With n = 1 it reads r(1 - r): the lone bidder pays the reserve when v >= r; a lone
+    bidder pays even a reserve below the support (its bid E[max(Y, r) | Y < v] with no
+    rival Y is r itself), so there it reads r."""
+    if n == 1 and r is not None and r < 0.0:
+        return r
     r = 0.0 if r is None else min(max(r, 0.0), 1.0)
     return (n - 1) / (n + 1) + r**n - 2 * n * r ** (n + 1) / (n + 1)
 
@@ -305,10 +309,11 @@ def test_optimal_maximum_price_reverse(n, B):
 def test_reverse_uniform_payment(n, R):
     # Mirror of Krishna (2009), ch. 2 (module docstring): E[payment] = P(award) - rev(n, 1 - R),
     # P(award) = 1 - (1 - R)^n; with no maximum price E[second-lowest cost] = 2/(n+1) (n >= 2;
-    # a lone bidder is paid the top of the cost support, 1).
+    # a lone bidder is paid the top of the cost support, 1, or the maximum price R itself, even
+    # one above the support: R P(C <= R)).
     Rc = 1.0 if R is None else min(max(R, 0.0), 1.0)
     p_award = 1.0 - (1.0 - Rc) ** n
-    expected = p_award - forward_uniform_revenue(n, 1.0 - Rc)
+    expected = p_award - forward_uniform_revenue(n, 1.0 - Rc) if n > 1 or R is None else R * Rc
     if R is None and n >= 2:
         assert expected == pytest.approx(2.0 / (n + 1), rel=1e-12)
     rep = A.revenue_report(U01, "reverse", n, R, 1.0)

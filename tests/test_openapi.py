@@ -312,6 +312,8 @@ def test_parametric_families_list_the_code_parameters():
             assert (prop.get("exclusiveMinimum") == 0) == (p.bound == "positive"), (family, name)
             if p.default is not None:
                 assert prop.get("default") == p.default, (family, name)
+            # The declared reliable range (models.Param.reliable) is the schema's minimum and maximum.
+            assert (prop.get("minimum"), prop.get("maximum")) == tuple(p.reliable), (family, name)
 
 
 # ---------------------------------------------------------------- accept/refuse agreement

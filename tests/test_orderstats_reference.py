@@ -28,6 +28,7 @@ from service.core import models as M
 from service.core import orderstats as O
 from service.core import topvalues as T
 from service.core.auctions import ForwardAuction
+from service.core.errors import ParameterError
 
 INF = math.inf
 PARAMETRIC_RTOL = 1e-10
@@ -427,10 +428,12 @@ def test_lognormal_max_of_two_closed_form(sigma):
 
 def test_lognormal_mean_beyond_double_range_is_not_a_wrong_number():
     # E[max of n] >= E[X] = exp(sigma^2 / 2) = exp(1250) for the lognormal
-    # (Johnson, Kotz and Balakrishnan 1994, ch. 14): no double can hold it,
-    # so the only right answer is null (or an overflow), never a finite number.
-    s = O.rank_summary(M.LogNormal(median=1.0, sigma=50.0), 5, 1)
-    assert s.mean is None or not math.isfinite(s.mean) or s.mean > 1e308
+    # (Johnson, Kotz and Balakrishnan 1994, ch. 14): no double can hold it, so the
+    # only right answer is no number. sigma 50 lies outside the declared reliable
+    # range (at most 12), so the model is refused, naming sigma.
+    with pytest.raises(ParameterError) as refused:
+        M.LogNormal(median=1.0, sigma=50.0)
+    assert refused.value.field == "sigma"
 
 
 # ---------------------------------------------------------------------------

@@ -35,7 +35,9 @@ def test_uniform_revenue_grid_is_krishna(client):
     assert table["columns"] == ["bidders", "reserve", "rule", "expected_revenue"]
     assert len(table["rows"]) == 30 * 29 * 5
     for n, r, rule, rev in table["rows"]:
-        want = krishna(n, r) if n > 1 else max(min(r, 1.0), 0.0) * (1 - max(min(r, 1.0), 0.0))
+        # A lone bidder pays the reserve itself whenever it buys, even a reserve below the
+        # support (the n = 1 case of b(v) = E[max(Y, r) | Y < v] with no rival: r).
+        want = krishna(n, r) if n > 1 else r * (1 - max(min(r, 1.0), 0.0))
         assert rev == pytest.approx(want, rel=1e-9, abs=1e-14), (n, r, rule)
 
 

@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from . import budget
+from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
 from .models import Reflected
@@ -40,6 +40,10 @@ ASSUMPTIONS = [
     "a single indivisible item or contract, no entry costs, no collusion",
 ]
 _GL = os_.GAUSS_RULES
+#: Below this chance that one value beats the reserve, the rank quadratures' windows
+#: (which stop at s = 1e-300) cannot hold the weight below the cut; the price is then the
+#: reserve under every rule, to double precision (the next term is smaller by that chance).
+FAR_RESERVE = 1e-250
 
 
 # M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial,
@@ -94,11 +98,19 @@ class ForwardAuction:
         self.v0 = seller_value
         # The effective floor: the reserve, or the bottom of the support.
         self.floor = model.lower if reserve is None else max(self.reserve, model.lower)
+        # A lone bidder has no rival to beat and pays the reserve itself, even one below
+        # the support; without a reserve, the bottom of the support.
+        self.lone_price = model.lower if reserve is None else self.reserve
+        self.origin = self._origin()
         self.reserve_binds = reserve is not None and self.reserve > model.lower
         self.s_r = _neg_log_cdf(model, self.floor) if self.reserve_binds else math.inf
         self.u_cut = math.exp(-self.s_r) if self.reserve_binds else 0.0
         self.f_r = self.u_cut  # F(floor)
         self.p_sale = -math.expm1(-self.n * self.s_r) if math.isfinite(self.s_r) else 1.0
+        # The price under every rule when at most one bidder can be above the floor: a lone
+        # bidder, or a reserve so near the top that each value beats it with chance below
+        # FAR_RESERVE (two beat it with chance below its square, far below rounding); None otherwise.
+        self.single_price = self.lone_price if self.n == 1 else self.floor if 0.0 < self.s_r < FAR_RESERVE else None
         self._bid_nodes = None
         self._bid_tails = None
         self._sp_quad = None
@@ -107,11 +119,35 @@ class ForwardAuction:
         self._bidders_surplus = None
         self._closed = {}
 
+    def _origin(self):
+        """Bids are integrated as b(v) - origin, b(v) - o = E[max(Y, r) - o | Y < v]. The origin is
+        whichever of the floor, the top of the support and 0 lies nearest the highest rival's
+        median, so that bids keep their digits where the rivals' values are: a bid barely above
+        a reserve far from zero, or bids just below a top of 0 (the forward twin of costs massed
+        near 0)."""
+        ends = [x for x in (self.floor, self.model.upper, 0.0) if math.isfinite(x)]
+        if self.n == 1:
+            return ends[0]
+        s = math.log(2.0) / (self.n - 1.0)  # F(y)^(n-1) = 1/2
+        mid = float(self.model.value_at(np.array([math.exp(-s)]), np.array([-math.expm1(-s)]))[0])
+        if math.isfinite(self.floor):
+            mid = max(mid, self.floor)  # only bids above the floor are asked for
+        return min(ends, key=lambda x: abs(x - mid)) if math.isfinite(mid) else ends[0]
+
+    def _reserve_mass(self, s_from):
+        """(floor - origin) e^(-(n-1)(s_r - s)): the reserve's part of the bid at s, from the origin."""
+        if not (math.isfinite(self.s_r) and math.isfinite(self.floor)) or self.floor == self.origin:
+            return 0.0
+        return (self.floor - self.origin) * math.exp(-(self.n - 1.0) * (self.s_r - s_from))
+
     # ---- shared pieces -----------------------------------------------------
+    def _power(self, n, r):
+        """The power of the values a rank-r-of-n integrand reaches: 2 where the variance exists, else 1."""
+        return 2 if os_.moment_exists(self.model, n, r, 2) else 1
+
     def _growth(self, n, r):
         """Tail reach for a rank-r-of-n integrand: x^2 where the variance exists, else x."""
-        p = 2 if os_.moment_exists(self.model, n, r, 2) else 1
-        return os_.tail_growth(self.model, p)
+        return os_.tail_growth(self.model, self._power(n, r))
 
     def _bid_growth(self):
         """Tail reach for the bid nodes' integrands: that of the highest value where its
@@ -135,7 +171,8 @@ class ForwardAuction:
                 s_top = _neg_log_cdf(self.model, _TOP_VALUE)
                 splits = _heavy_tail_edges(a, k, s_top)
             q = os_.rank_quadrature(self.n - 1, 1, kinks_u=self.model.kinks_u(), s_cut=self.s_r, upper_growth=up,
-                                    lower_growth=low, fine=True, s_top=s_top, splits_s=splits)
+                                    lower_growth=low, fine=True, s_top=s_top, splits_s=splits, model=self.model,
+                                    power=self._power(self.n - 1, 1), checked=True)
             q.fill(self.model, conditional=True, floor=0.0 if a <= 1.0 else 1e-12)
             self._bid_nodes = q
         return self._bid_nodes
@@ -163,24 +200,25 @@ class ForwardAuction:
             return self._bid_tails
         q = self._inner_quadrature()
         nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
-        d, g = self._conditional_tails(nodes, q.values, self.floor)
+        d, g = self._conditional_tails(nodes, q.values - self.origin, self.floor - self.origin)
         self._bid_tails = BidTail(nodes, q.values, d, g)
         return self._bid_tails
 
     def _conditional_tails(self, nodes, h, end_value):
         """For node values h of a function of s: per rule, d[k] = the integral of
         h (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve, plus end_value times
-        e^(-(n-1)(s_r - s_k)) (the bids: h the values, end_value the floor), by the panel
-        recurrence; and the integrand g, shifted to each panel's right edge."""
+        e^(-(n-1)(s_r - s_k)) (the bids: h the values less the origin, end_value the floor less
+        it), by the panel recurrence; and the integrand g, shifted to each panel's right edge."""
         k = self.n - 1.0
         g = h * nodes.k_s_growth
-        end_mass = end_value * math.exp(-k * (self.s_r - nodes.se[-1])) if math.isfinite(self.s_r) else 0.0
-        end_mass = end_mass if math.isfinite(end_value) else 0.0
+        end_mass = 0.0
+        if math.isfinite(self.s_r) and math.isfinite(end_value) and end_value != 0.0 and len(nodes.se):
+            end_mass = end_value * math.exp(-k * (self.s_r - nodes.se[-1]))
         panels = (nodes.dt * g) @ os_.RULE_COLUMNS
         return np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)]), g
 
     def _partial(self, s_q, s_end):
-        """Integral of v (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
+        """Integral of (v - origin) (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
         k = self.n - 1.0
         w_end = min(k * (s_end - s_q), 80.0)
         if not w_end > 0:
@@ -199,43 +237,53 @@ class ForwardAuction:
         ww = (half[:, None] * w).ravel() * np.exp(-wp)
         s = s_q + wp / k
         vals = m.value_at(np.exp(-s), -np.expm1(-s))
-        return float(np.dot(ww, vals))
+        return float(np.dot(ww, vals - self.origin))
 
     def bids_at_s(self, s_q):
-        """First-price equilibrium bids at values with -log F(v) = s_q (array)."""
+        """First-price equilibrium bids at values with -log F(v) = s_q (array): the floor
+        at and below it (b(r) = r), where the value model has no mass above the floor too."""
         s_q = np.asarray(s_q, float)
         if self.n == 1:
-            return np.full(s_q.shape, self.floor)
+            return np.full(s_q.shape, self.lone_price)
+        flat = s_q.ravel()
+        res = np.full(flat.shape, math.nan)
+        res[flat >= self.s_r] = self.floor  # comparisons with NaN are False and do not warn
+        above = flat < self.s_r
+        if above.any():
+            res[above] = self._bids_above_floor(flat[above])
+        return res.reshape(s_q.shape)
+
+    def _bids_above_floor(self, flat):
+        """Bids at values above the floor, s = -log F(v) < s_r (a flat array)."""
         k = self.n - 1.0
         q = self._inner_quadrature()
         tail = self._bid_tail()
         edges, se, d = tail.nodes.edges, tail.nodes.se, tail.d[0]
-        # The panel recurrence is exact out to the cut when the panels reach it; where they
-        # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
-        ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
-        reach = math.inf if ends_at_cut else k * se[-1] - 36.0
-        flat = s_q.ravel()
         res = np.full(flat.shape, math.nan)
-        live = flat <= self.s_r  # comparisons with NaN are False and do not warn
-        on_panels = live & (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach) if q.panels else np.zeros(flat.shape, bool)
+        on_panels = np.zeros(flat.shape, bool)
+        if q.panels:
+            # The panel recurrence is exact out to the cut when the panels reach it; where they
+            # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
+            ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
+            reach = math.inf if ends_at_cut else k * se[-1] - 36.0
+            on_panels = (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach)
         if on_panels.any():
             # Within the panels: the node's partial panel, then the recurrence from its right edge.
             sq = flat[on_panels]
             j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
             part = self._sub_integral(np.log(k * sq), edges[j + 1])
-            res[on_panels] = part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
-        for i in (np.nonzero(live & ~on_panels)[0] if not on_panels.all() else ()):
+            res[on_panels] = self.origin + part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
+        for i in np.nonzero(~on_panels)[0]:
             sq = flat[i]
             if q.panels and sq < se[0]:
-                res[i] = self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
+                res[i] = self.origin + self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
             else:
                 end = self.s_r if math.isfinite(self.s_r) else sq + 80.0 / k
-                res_mass = self.floor * math.exp(-k * (self.s_r - sq)) if math.isfinite(self.s_r) else 0.0
-                res[i] = self._partial(sq, end) + res_mass
-        return res.reshape(s_q.shape)
+                res[i] = self.origin + self._partial(sq, end) + self._reserve_mass(sq)
+        return res
 
     def _sub_integral(self, t_q, t_end):
-        """Integral of v (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
+        """Integral of (v - origin) (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
         each by one 24-node Gauss-Legendre rule."""
         k = self.n - 1.0
         xs, ws = _GL[0]
@@ -244,7 +292,7 @@ class ForwardAuction:
         ss = np.exp(tt) / k
         vv = self.model.value_at(np.exp(-ss), -np.expm1(-ss))
         sq = (np.exp(t_q) / k)[..., None]
-        return (hh[..., None] * ws * vv * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
+        return (hh[..., None] * ws * (vv - self.origin) * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
 
     def node_bids(self):
         """The inner quadrature's nodes with the bids there (bids by the panel
@@ -253,7 +301,7 @@ class ForwardAuction:
             return self._node_bid_cache
         tail = self._bid_tail()
         nodes = tail.nodes
-        bids = _at_nodes(nodes, tail.d, tail.g)
+        bids = self.origin + _at_nodes(nodes, tail.d, tail.g)
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
         vals = tail.values
@@ -351,8 +399,8 @@ class BidTail:
 
     nodes: BidNodes
     values: np.ndarray  # the model's values at the nodes
-    d: np.ndarray  # (2, panels + 1): per rule, the integral of v (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
-    g: np.ndarray  # v (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
+    d: np.ndarray  # (2, panels + 1): per rule, the integral of (v - origin) (n-1) e^(-(n-1)(s - s_k)) ds from edge k to the reserve
+    g: np.ndarray  # (v - origin) (n-1) s e^(-(n-1)(s - se_right)): shifted to the panel's right edge, so nothing overflows
 
 
 @dataclass(frozen=True)
@@ -383,8 +431,8 @@ class NodeBids:
 def _quad_cut(auc, rank):
     """Filled rank quadrature over values >= the floor."""
     up, low = auc._growth(auc.n, rank)
-    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), s_cut=auc.s_r,
-                               upper_growth=up, lower_growth=low).fill(auc.model)
+    return os_.rank_quadrature(auc.n, rank, kinks_u=auc.model.kinks_u(), s_cut=auc.s_r, upper_growth=up, lower_growth=low,
+                               model=auc.model, power=auc._power(auc.n, rank), checked=True).fill(auc.model)
 
 
 def _closed_moments(auc, rank):
@@ -400,7 +448,8 @@ def _closed_moments(auc, rank):
 def _second_price_atoms(auc):
     """The price max(X2, r) on a sale has atoms: P(no sale) and P(price = r)."""
     n, fr = auc.n, auc.f_r
-    return fr**n, (n * fr ** (n - 1) * (1.0 - fr) if auc.reserve_binds else 0.0)
+    above = -math.expm1(-auc.s_r) if auc.reserve_binds else 0.0  # 1 - F(r), whose digits 1 - fr loses near the top
+    return fr**n, n * fr ** (n - 1) * above
 
 
 def _second_price_quadrature(auc):
@@ -410,25 +459,28 @@ def _second_price_quadrature(auc):
     return auc._sp_quad
 
 
-def _revenue_variance(p_sale, price_mean, price_var):
-    """Var of revenue = the price on a sale (chance p_sale), 0 otherwise, from the price's
-    mean and variance given a sale: p Var + p (1 - p) mean^2 (law of total variance)."""
-    return p_sale * price_var + p_sale * (1.0 - p_sale) * price_mean**2
+def _revenue_sd(p_sale, price_mean, price_sd):
+    """sd of revenue = the price on a sale (chance p_sale), 0 otherwise, from the price's
+    mean and sd given a sale: Var = p Var_sale + p (1 - p) mean^2 (law of total variance),
+    taken through hypot so that no square overflows (a mean of 1e200)."""
+    return math.sqrt(p_sale) * math.hypot(price_sd, math.sqrt(max(1.0 - p_sale, 0.0)) * price_mean)
 
 
-def _sd_error(var, var_err):
-    """The error of sqrt(var) from the error of var."""
-    return var_err / (2.0 * math.sqrt(var)) if var > 0 else math.sqrt(var_err)
+def _sd_error(sd, c, var_err):
+    """The error of sd = c sqrt(V) from the error ``var_err`` of V, a variance in units of c^2."""
+    x = sd / c
+    return c * (var_err / (2.0 * x) if x > 0 else math.sqrt(var_err))
 
 
 def _price_stats_second(auc):
-    """(variance, error of the sd) of the revenue under second price: max(X2, r) on a
-    sale, 0 otherwise. The price's spread is taken from its offsets from the quadrature's
-    reference anchor (``RankQuadrature.offsets``), so it keeps its digits wherever the
-    values sit."""
+    """(sd, its error) of the revenue under second price: max(X2, r) on a sale, 0 otherwise.
+    The price's spread is taken from its offsets from the quadrature's reference anchor
+    (``RankQuadrature.offsets``), so it keeps its digits wherever the values sit, and its
+    squares are scaled by a power of two (``orderstats.sd_scale``), so none overflows."""
     closed = _closed_moments(auc, 2)
     if closed is not None and closed[1] is not None:
-        return closed[1], os_.closed_form_error(auc.model, auc.n, closed[0], math.sqrt(max(closed[1], 0.0)))
+        sd = math.sqrt(max(closed[1], 0.0))
+        return sd, os_.closed_form_error(auc.model, auc.n, closed[0], sd)
     _, pr = _second_price_atoms(auc)
     q = _second_price_quadrature(auc)
     ref, o = q.offsets() if q.panels else (auc.floor, None)
@@ -438,9 +490,11 @@ def _price_stats_second(auc):
         return 0.0, 0.0
     with np.errstate(over="ignore", invalid="ignore"):
         shift = (pr * at_floor + (q.integrate_nodes(o)[0] if q.panels else 0.0)) / mass
-        spread, err = q.integrate_nodes((o - shift) ** 2) if q.panels else (0.0, 0.0)
-    var = _revenue_variance(auc.p_sale, ref + shift, (spread + pr * (at_floor - shift) ** 2) / mass)
-    return var, _sd_error(var, auc.p_sale * err / mass + os_.ROUNDING * abs(var))
+        c = os_.sd_scale(at_floor - shift, o - shift if q.panels else 0.0)
+        spread, err = q.integrate_nodes(((o - shift) / c) ** 2) if q.panels else (0.0, 0.0)
+    price_sd = c * math.sqrt(max((spread + pr * ((at_floor - shift) / c) ** 2) / mass, 0.0))
+    sd = _revenue_sd(auc.p_sale, ref + shift, price_sd)
+    return sd, _sd_error(sd, c, auc.p_sale * err / mass + os_.ROUNDING * (sd / c) ** 2)
 
 
 def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
@@ -496,21 +550,39 @@ def second_price_revenue(auc):
 
 def ascending_revenue(auc):
     """The open clock stops at the second-highest value (or the reserve):
-    E[price] = r P(sale) + integral from r of P(X2 > p) dp, in value space."""
+    E[price] = r P(sale) + integral from r of P(X2 > p) dp, in value space. Where the
+    clock price's upper tail beyond the quantile edges still counts (a gamma of tiny shape,
+    whose price is 0 but for a sliver of chance, or a lognormal with a large sigma), the
+    edges reach on to values that a single draw exceeds with chance down to 1e-300."""
+    edges, split = _ascending_edges(auc)
+    total, err, above, below = _clock_integral(auc, edges, split, _from_top(auc))
+    if max(above, below) > 1e-12 * abs(total):  # a crude bound, loose by the tail's scale
+        far = np.concatenate((auc.model.isf(_FAR_SURVIVAL) if above else [], auc.model.ppf(_FAR_SURVIVAL) if below else []))
+        far = far[np.isfinite(far) & ((far > edges[-1]) | (far < edges[0]))]
+        total, err, _, _ = _clock_integral(auc, _widened(np.unique(np.concatenate((edges, far)))), split)
+    return total, err
+
+
+def _from_top(auc):
+    """Whether the clock price lies nearer the top of a bounded support than the floor: then
+    E[price] = top P(sale) - integral of P(price <= x, sale) up to the top keeps the digits of a
+    price just below a top of 0 (the forward twin of costs massed near 0), which the integral
+    up from a floor of -1 would take as a difference of two numbers near 1."""
+    top, floor = auc.model.upper, auc.floor
+    if not (math.isfinite(top) and math.isfinite(floor)):
+        return False
+    mid = float(os_.rank_quantiles(auc.model, auc.n, 2, [0.5])[0])
+    return abs(top - mid) < abs(mid - floor)
+
+
+_FAR_SURVIVAL = 10.0 ** -np.array([20.0, 25, 30, 40, 50, 65, 80, 100, 130, 160, 200, 250, 300])
+
+
+def _clock_integral(auc, edges, split, from_top=False):
+    """(the clock price's mean over the edges, its two-rule error, and bounds on what the
+    light tails beyond the edges would add: P(X2 > top) |top| above the last edge and,
+    where the support is unbounded below, P(X2 <= bottom) |bottom| below the first)."""
     m, n = auc.model, auc.n
-    xs = os_.rank_quantiles(m, n, 2, _P_EDGES)
-    lo_end = auc.floor
-    edges = np.concatenate((xs, list(m.kink_values()), [lo_end] if math.isfinite(lo_end) else []))
-    if math.isfinite(m.upper):
-        edges = np.append(edges, m.upper)
-    if math.isfinite(lo_end):
-        edges = edges[edges >= lo_end]
-    edges = np.unique(edges[np.isfinite(edges)])
-    split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
-    if split is not None:
-        edges = np.unique(np.concatenate((edges, [split], _tail_edges(edges[0], (n - 1.0) * m.lower_tail_index))))
-    if not math.isfinite(m.upper):
-        edges = np.append(edges, _tail_edges(edges[-1], 2.0 * m.upper_tail_index))
 
     def sf2(x):
         return os_.rank_sf(m, n, 2, x)
@@ -518,21 +590,7 @@ def ascending_revenue(auc):
     def cdf2(x):
         return os_.rank_cdf(m, n, 2, x)
 
-    # A panel spanning many decades on one side of zero (a floor of 1e-300, say) is
-    # cut into pieces of at most e^3, which the log-|x| rule below integrates exactly.
-    def spans(edges):
-        """Panels, whether each lies on one side of zero, and its |log(b / a)| there."""
-        a, b = edges[:-1], edges[1:]
-        same_side = a * b > 0
-        return a, b, same_side, np.abs(np.log(np.where(same_side, b / np.where(same_side, a, 1.0), 1.0)))
-
-    a, b, same_side, log_ratio = spans(edges)
-    wide = np.nonzero(log_ratio > 3.0)[0]
-    if wide.size:
-        extra = [math.copysign(v, a[i]) for i in wide
-                 for v in np.geomspace(abs(a[i]), abs(b[i]), min(int(log_ratio[i] / 3.0), 400) + 2)[1:-1]]
-        edges = np.unique(np.concatenate((edges, extra)))
-        a, b, same_side, log_ratio = spans(edges)
+    a, b, same_side, log_ratio = _value_spans(edges)
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
     # power-law tail becomes an exponential the rule integrates exactly.
     logp = same_side & (log_ratio > math.log(2.0))
@@ -540,7 +598,11 @@ def ascending_revenue(auc):
     la = np.where(logp, np.log(np.abs(np.where(logp, a, 1.0))), a)
     lb = np.where(logp, np.log(np.abs(np.where(logp, b, 1.0))), b)
 
+    p0 = 1.0 - auc.p_sale
+
     def integrand(x):
+        if from_top:  # P(price <= x, sale) = P(X2 <= x) - P(X1 < r) above the floor
+            return p0 - cdf2(x)
         if split is None:
             return sf2(x)
         up = x >= split
@@ -548,10 +610,16 @@ def ascending_revenue(auc):
         out[up], out[~up] = sf2(x[up]), -cdf2(x[~up])
         return out
 
-    base = lo_end * auc.p_sale if split is None else split
+    base = auc.model.upper * auc.p_sale if from_top else auc.floor * auc.p_sale if split is None else split
     totals = [base + s for s in _refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
     tail = _power_tails(m, n, edges, sf2, cdf2, split is not None)
-    return totals[0] + tail, abs(totals[0] - totals[1]) + os_.ROUNDING * (abs(base) + abs(totals[0] - base) + abs(tail))
+    above = below = 0.0  # light tails beyond the end edges: bounds on what they would add
+    if not (math.isfinite(m.upper) or math.isfinite(m.upper_tail_index)):
+        above = float(sf2(np.array(edges[-1]))) * abs(edges[-1])
+    if split is not None and not math.isfinite(m.lower_tail_index):
+        below = float(cdf2(np.array(edges[0]))) * abs(edges[0])
+    err = abs(totals[0] - totals[1]) + os_.ROUNDING * (abs(base) + abs(totals[0] - base) + abs(tail))
+    return totals[0] + tail, err, above, below
 
 
 def _power_tails(m, n, edges, sf2, cdf2, lower):
@@ -579,6 +647,50 @@ def _tail_edges(end, index):
         return np.empty(0)
     x = end * np.exp(3.0 * np.arange(1, min(math.ceil(69.0 / (3.0 * index)), 400) + 1))
     return x[np.abs(x) < 1e300]
+
+
+def _ascending_edges(auc):
+    """Value-space panel edges for the clock price from the floor up (the second-highest
+    value's quantiles, the kinks, the ends, and every factor e^3 into a power-law tail,
+    ``_tail_edges``), and the split point below which the cdf is integrated instead of the
+    survival function (None when the floor is finite). A panel spanning many decades on one
+    side of zero (a floor of 1e-300, say) is cut into pieces of at most e^3, which the log-|x|
+    rule integrates exactly (``_widened``)."""
+    m, n, lo_end = auc.model, auc.n, auc.floor
+    xs = os_.rank_quantiles(m, n, 2, _P_EDGES)
+    edges = np.concatenate((xs, list(m.kink_values()), [lo_end] if math.isfinite(lo_end) else []))
+    if math.isfinite(m.upper):
+        edges = np.append(edges, m.upper)
+    if math.isfinite(lo_end):
+        edges = edges[edges >= lo_end]
+    edges = np.unique(edges[np.isfinite(edges)])
+    split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
+    if split is not None:
+        edges = np.unique(np.concatenate((edges, [split], _tail_edges(edges[0], (n - 1.0) * m.lower_tail_index))))
+    if not math.isfinite(m.upper):
+        edges = np.append(edges, _tail_edges(edges[-1], 2.0 * m.upper_tail_index))
+    return _widened(edges), split
+
+
+def _widened(edges):
+    """Edges with every panel spanning more than e^3 on one side of zero cut into pieces."""
+    a, b, _, log_ratio = _value_spans(edges)
+    wide = np.nonzero(log_ratio > 3.0)[0]
+    if wide.size:
+        extra = [math.copysign(v, a[i]) for i in wide
+                 for v in np.geomspace(abs(a[i]), abs(b[i]), min(int(log_ratio[i] / 3.0), 400) + 2)[1:-1]]
+        edges = np.unique(np.concatenate((edges, extra)))
+    return edges
+
+
+def _value_spans(edges):
+    """Panels, whether each lies on one side of zero, and its |log(b / a)| there: taken as
+    log|b| - log|a|, since b / a overflows from a subnormal floor (1e-315) up to 1."""
+    a, b = edges[:-1], edges[1:]
+    same_side = np.sign(a) * np.sign(b) > 0
+    with np.errstate(divide="ignore"):
+        gap = np.log(np.abs(np.where(same_side, b, 1.0))) - np.log(np.abs(np.where(same_side, a, 1.0)))
+    return a, b, same_side, np.abs(gap)
 
 
 def _value_panel_sums(la, lb, logp, sgn, integrand):
@@ -638,10 +750,13 @@ def descending_revenue(auc):
     n = auc.n
     tail, nb = auc._bid_tail(), auc.node_bids()
     c, weight = auc._inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail.nodes, n))
-    floor_term = auc.floor * auc.f_r**n if math.isfinite(auc.floor) else 0.0
-    hi, lo = (tail.d[:, c] - floor_term + nb.integrals((nb.values - nb.bids) * weight)).tolist()
+    # b(c) - r F(r)^n with b(c) = origin + d[c], written (origin - r) + r P(sale) + d[c] so that no term
+    # of the reserve's size is taken from another.
+    at_floor = (auc.origin - auc.floor) + auc.floor * auc.p_sale if math.isfinite(auc.floor) else auc.origin
+    hi, lo = (tail.d[:, c] + at_floor + nb.integrals((nb.values - nb.bids) * weight)).tolist()
     # v - b(v) at a node is as precise as v itself
-    rounding = abs(tail.d[0, c]) + abs(floor_term) + float(nb.integrals(np.abs(nb.values * weight))[0])
+    rounding = abs(tail.d[0, c]) + abs(auc.origin) + abs(auc.floor * auc.p_sale if math.isfinite(auc.floor) else 0.0) \
+        + float(nb.integrals(np.abs(nb.values * weight))[0])
     return hi, abs(hi - lo) + os_.ROUNDING * rounding
 
 
@@ -650,7 +765,7 @@ def _descending_weight(nodes, n):
     weight, (n-1) s (1 - F^n) where t < t_c and -(n-1) s F^n elsewhere: functions of
     the nodes and n alone."""
     k = n - 1.0
-    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n))))
+    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n)))) if len(nodes.edges) else 0
     return c, k * nodes.s * np.where(nodes.t < nodes.edges[c], -np.expm1(-n * nodes.s), -np.exp(-n * nodes.s))
 
 
@@ -661,9 +776,10 @@ def all_pay_revenue(auc):
 
 
 def _bid_price_stats(auc):
-    """(variance, error of the sd) of the revenue b(X1) 1{sale}, shared by first-price and
-    descending. The price's spread comes from the bids' offsets from a reference anchor
-    (``ForwardAuction.node_bid_offsets``), so it keeps its digits wherever the values sit."""
+    """(sd, its error) of the revenue b(X1) 1{sale}, shared by first-price and descending.
+    The price's spread comes from the bids' offsets from a reference anchor
+    (``ForwardAuction.node_bid_offsets``), so it keeps its digits wherever the values sit;
+    its squares are scaled by a power of two (``orderstats.sd_scale``)."""
     ref, bid_off = auc.node_bid_offsets()
     nb = auc.node_bids()
     with np.errstate(over="ignore", invalid="ignore"):
@@ -671,9 +787,10 @@ def _bid_price_stats(auc):
         if not mass > 0:
             return 0.0, 0.0
         shift = first / mass
-        spread, err = _bid_outer(auc, lambda nb: nb.top * (bid_off - shift) ** 2)
-    var = _revenue_variance(auc.p_sale, ref + shift, spread / mass)
-    return var, _sd_error(var, auc.p_sale * err / mass + os_.ROUNDING * abs(var))
+        c = os_.sd_scale(bid_off - shift)
+        spread, err = _bid_outer(auc, lambda nb: nb.top * ((bid_off - shift) / c) ** 2)
+    sd = _revenue_sd(auc.p_sale, ref + shift, c * math.sqrt(max(spread / mass, 0.0)))
+    return sd, _sd_error(sd, c, auc.p_sale * err / mass + os_.ROUNDING * (sd / c) ** 2)
 
 
 def _bid_price_quantiles(auc, ps):
@@ -695,16 +812,24 @@ def _bid_price_quantiles(auc, ps):
 
 
 def _all_pay_stats(auc):
-    """(variance, error of the sd) of the all-pay revenue, the sum of n independent bids
-    a(X) = F(X)^(n-1) b(X) 1{X >= r}, each bid's variance taken about its mean. Below the
-    nodes (below the floor, or where F^(n-1) is negligible) a bidder bids 0."""
+    """(sd, its error) of the all-pay revenue, the sum of n independent bids
+    a(X) = F(X)^(n-1) b(X) 1{X >= r}, each bid's variance taken about its mean and its
+    squares scaled (``orderstats.sd_scale``). Below the nodes (below the floor, or where
+    F^(n-1) is negligible) a bidder bids 0."""
     nb = auc.node_bids()
     mass, ea = (np.stack((nb.one.reshape(-1), (nb.one * nb.rivals * nb.bids).reshape(-1))) @ nb.rule_dt[:, 0]).tolist()
     below = 1.0 - mass
     with np.errstate(over="ignore", invalid="ignore"):
-        spread, err = _bid_outer(auc, lambda nb: nb.one * (nb.rivals * nb.bids - ea) ** 2)
-    var = auc.n * (spread + below * ea**2)
-    return var, _sd_error(var, auc.n * err + os_.ROUNDING * abs(var))
+        c = os_.sd_scale(ea, nb.rivals * nb.bids - ea)
+        spread, err = _bid_outer(auc, lambda nb: nb.one * ((nb.rivals * nb.bids - ea) / c) ** 2)
+    scaled_var = auc.n * (spread + below * (ea / c) ** 2)
+    sd = c * math.sqrt(max(scaled_var, 0.0))
+    return sd, _sd_error(sd, c, auc.n * err + os_.ROUNDING * abs(scaled_var))
+
+
+def all_pay_winner_payment(auc):
+    """E[a(X1) 1{sale}]: what the winner alone pays under all-pay."""
+    return _bid_outer(auc, lambda nb: nb.top * nb.rivals * nb.bids)[0]
 
 
 ROUTES = {
@@ -716,22 +841,34 @@ ROUTES = {
 }
 
 
+def _no_sale_note(auc, direction):
+    """Say so when the reserve (maximum price) lies where no value (cost) reaches it."""
+    if auc.p_sale > 0.0:
+        return []
+    if direction == "forward":
+        return ["the reserve is at or above the top of the value model's support: no bidder can beat it, so nothing is sold"]
+    return ["the maximum price is at or below the bottom of the cost model's support: no bidder can meet it, so nothing is awarded"]
+
+
 def forward_figures(auc, rules, quantiles):
     """Each rule's forward figures: the expected revenue by the rule's own route; the sd,
     the surpluses and the efficiency each integrated as one quantity, never as a
     difference of two large figures; a figure that does not exist is None, with a warning."""
-    if auc.n == 1 and auc.p_sale > 0.0 and not math.isfinite(auc.floor):
+    if auc.n == 1 and auc.p_sale > 0.0 and not math.isfinite(auc.lone_price):
         raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
     warnings = []
     sp_surplus, eff = _top_gains(auc, warnings)
     out, shared = {}, {}
     for rule in rules:
-        mean, err, var, sd_err, qs = _price_figures(auc, rule, quantiles, shared, warnings)
+        mean, err, sd, sd_err, qs = _price_figures(auc, rule, quantiles, shared, warnings)
+        if sd is not None and not math.isfinite(sd):
+            sd = None
+            warnings.append(f"{rule}: the sd is null (it is beyond double precision, about 1e308)")
         winner, bidder = (None, None) if sp_surplus is None else _winner_gains(auc, rule, sp_surplus)
         out[rule] = {
             "rule": rule,
             "expected_revenue": mean,
-            "revenue_sd": None if var is None else math.sqrt(max(var, 0.0)),
+            "revenue_sd": sd,
             "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),  # at ``quantiles``
             "probability_of_sale": auc.p_sale,
             "expected_winner_surplus": None if winner is None else winner[0],
@@ -739,13 +876,13 @@ def forward_figures(auc, rules, quantiles):
             "efficiency": None if eff is None else eff[0],
             "_err": max([err, sd_err] + [g[1] for g in (winner, bidder, eff) if g is not None]),
         }
-    if "all_pay" in rules and auc.n > 1 and auc.p_sale > 0:
+    if "all_pay" in rules and auc.single_price is None and auc.p_sale > 0:
         warnings.append("all_pay: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
     return out, warnings
 
 
 def _price_figures(auc, rule, quantiles, shared, warnings):
-    """(mean, its error, variance or None, the sd's error, quantiles or None) of the revenue.
+    """(mean, its error, sd or None, the sd's error, quantiles or None) of the revenue.
     The sd and quantiles depend only on the price distribution, which the two rules of each
     pair share, so they are computed once per pair."""
     has_var = auc.p_sale == 0.0 or price_moment_exists(auc.model, auc.n, rule, 2, auc.floor)
@@ -755,24 +892,35 @@ def _price_figures(auc, rule, quantiles, shared, warnings):
             warnings.append(note)
     if auc.p_sale == 0.0:
         return 0.0, 0.0, 0.0, 0.0, np.zeros(len(quantiles))
-    if auc.n == 1:  # a lone bidder pays the floor under every rule (no rival to beat)
-        mean = auc.floor * auc.p_sale
-        qs = np.where(np.asarray(quantiles) <= 1 - auc.p_sale, 0.0, auc.floor)
-        return mean, os_.ROUNDING * abs(mean), auc.p_sale * (1 - auc.p_sale) * auc.floor**2, os_.ROUNDING * abs(auc.floor), qs
+    if auc.single_price is not None:
+        return _single_price_stats(auc, quantiles)
     if rule not in ("second_price", "ascending"):
         if _out_of_reach(auc, rule, 1, warnings):
             return None, 0.0, None, 0.0, (None if rule == "all_pay" else _bid_price_quantiles(auc, quantiles))
         has_var = has_var and not _out_of_reach(auc, rule, 2, warnings)
     mean, err = ROUTES[rule](auc)
     if rule == "all_pay":
-        var, sd_err = _all_pay_stats(auc) if has_var else (None, 0.0)
-        return mean, err, var, sd_err, None
+        sd, sd_err = _all_pay_stats(auc) if has_var else (None, 0.0)
+        return mean, err, sd, sd_err, None
     pair = "second" if rule in ("second_price", "ascending") else "bid"
     if pair not in shared:
         stats, price_quantiles = (_price_stats_second, _price_quantiles_second) if pair == "second" else (_bid_price_stats, _bid_price_quantiles)
         shared[pair] = (stats(auc) if has_var else (None, 0.0)), price_quantiles(auc, quantiles)
-    (var, sd_err), qs = shared[pair]
-    return mean, err, var, sd_err, qs
+    (sd, sd_err), qs = shared[pair]
+    return mean, err, sd, sd_err, qs
+
+
+def _single_price_stats(auc, quantiles):
+    """(mean, its error, sd, the sd's error, quantiles) when the price is ``auc.single_price``
+    on a sale: a lone bidder pays the reserve under every rule (no rival to beat), even a
+    reserve below the support (without a reserve, the bottom of the support); so does the
+    one bidder above a far reserve (``FAR_RESERVE``)."""
+    price, p = auc.single_price, auc.p_sale
+    ps = np.asarray(quantiles, float)
+    # Revenue is 0 with chance 1 - p and the price with chance p, in increasing order.
+    qs = np.where(ps <= 1.0 - p, 0.0, price) if price >= 0.0 else np.where(ps <= p, price, 0.0)
+    mean, sd = price * p, abs(price) * math.sqrt(p * (1.0 - p))
+    return mean, os_.ROUNDING * abs(mean), sd, os_.ROUNDING * sd, qs
 
 
 def _out_of_reach(auc, rule, p, warnings):
@@ -790,10 +938,15 @@ def _out_of_reach(auc, rule, p, warnings):
 def _top_gains(auc, warnings):
     """(the second-price winner's surplus, the efficiency), each (value, error) or None: both
     integrals over the highest value's quadrature (``_top_quadrature``). Neither exists
-    where the highest value's mean does not."""
+    where the highest value's mean does not, nor can they be integrated above a far reserve
+    (``FAR_RESERVE``)."""
     if not auc.model.upper_tail_index > 1.0:
         warnings.append("expected_winner_surplus, expected_bidder_surplus and efficiency are null: the highest "
                         "value's mean does not exist (the value model's tail is too heavy)")
+        return None, None
+    if 0.0 < auc.s_r < FAR_RESERVE:
+        warnings.append(f"each value beats the reserve with chance below {FAR_RESERVE:g}: the price is the reserve under "
+                        "every rule, but the winner's value is beyond reach, so the surpluses and efficiency are null")
         return None, None
     q, s0 = _top_quadrature(auc)
     return _second_price_surplus(auc, q), _efficiency(auc, q, s0, warnings)
@@ -808,8 +961,8 @@ def _top_quadrature(auc):
     s_cut = auc.s_r if s0 is None else max(auc.s_r, s0)
     split = () if s0 is None or s0 == auc.s_r else (min(auc.s_r, s0),)
     up, low = os_.tail_growth(m, 1)
-    q = os_.rank_quadrature(auc.n, 1, kinks_u=m.kinks_u(), s_cut=s_cut, splits_s=split,
-                            upper_growth=up, lower_growth=low).fill(m)
+    q = os_.rank_quadrature(auc.n, 1, kinks_u=m.kinks_u(), s_cut=s_cut, splits_s=split, upper_growth=up,
+                            lower_growth=low, model=m, power=1, checked=True).fill(m)
     return q, s0
 
 
@@ -823,15 +976,20 @@ def _panels_above(q, s):
 def _second_price_surplus(auc, q):
     """(E[(X1 - max(X2, r)) 1{X1 >= r}], its error): by parts, as for the expected gap
     (``orderstats.expected_gap``), int from F(r) to 1 of n u^(n-1) (1 - u) Q'(u) du; with one
-    bidder, E[X - floor; X >= floor] alike. Without a precise S / f, E[X1; sale] less the revenue."""
+    bidder, E[X - floor; X >= floor] alike, plus (floor - reserve) P(sale) where a reserve
+    below the support is what the lone bidder pays. Without a precise S / f, E[X1; sale]
+    less the revenue."""
     above = _panels_above(q, auc.s_r)
     ih = auc.model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
+    below_support = (auc.floor - auc.lone_price) * auc.p_sale if auc.n == 1 else 0.0
     with np.errstate(invalid="ignore", over="ignore"):
         if ih is not None:
-            return q.integrate_nodes(ih, above)
+            surplus, err = q.integrate_nodes(ih, above)
+            return surplus + below_support, err
         ref, o = q.offsets()
         if auc.n == 1:
-            return q.integrate_nodes(o - (auc.floor - ref), above)
+            surplus, err = q.integrate_nodes(o - (auc.floor - ref), above)
+            return surplus + below_support, err
         shift, err = q.integrate_nodes(o, above)
         revenue, rev_err = second_price_revenue(auc)
         return ref * float(q.w_hi[above].sum()) + shift - revenue, err + rev_err
@@ -857,6 +1015,18 @@ def _winner_gains(auc, rule, sp_surplus):
     return _bid_outer(auc, lambda nb: nb.top * (shade - np.expm1(-k * nb.s) * nb.bids)), bidders
 
 
+def winner_value(auc):
+    """E[X1 1{sale}], the winner's expected value; None above a far reserve (``FAR_RESERVE``)."""
+    if auc.p_sale == 0.0:
+        return 0.0
+    if 0.0 < auc.s_r < FAR_RESERVE:
+        return None
+    closed_top = _closed_moments(auc, 1)
+    if closed_top is not None:
+        return closed_top[0]
+    return _quad_cut(auc, 1).integrate(lambda x: x)[0]
+
+
 def _efficiency(auc, q, s0, warnings):
     """(1 - lost / best, its error): best = E[(X1 - v0)^+], the largest expected gain from
     trade; lost = the gains a reserve above v0 gives up, E[(X1 - v0) 1{v0 <= X1 < r}], or the
@@ -878,7 +1048,6 @@ def _efficiency(auc, q, s0, warnings):
         warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")
         return None
     return 1.0 - lost / best, (e_lost + abs(lost) / best * e_best) / best
-
 
 # ---- reports in the caller's direction -------------------------------------------
 
@@ -906,6 +1075,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)
+    warnings += _no_sale_note(auc, direction)
     sign = 1.0 if direction == "forward" else -1.0
     mean_k, sd_k, q_k, p_k = _NAMES[direction]
     results, err = [], 0.0
@@ -925,7 +1095,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         })
     means = [r[mean_k] for r in results]
     spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
-    return {
+    return audit.revenue({
         "direction": direction,
         "assumptions": ASSUMPTIONS,
         "bidders": bidders,
@@ -934,7 +1104,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         "revenue_equivalence": finite(spread),
         "numerics": {"method": "quantile_gauss_legendre+spectral_bid_integration", "abs_error": finite(err)},
         "warnings": warnings,
-    }
+    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0)
 
 
 def price_moment_exists(model, n, rule, p, floor=-math.inf):
@@ -995,14 +1165,15 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     else:
         s_q = fmodel.neg_log_cdf(v)
         s_q = np.minimum(s_q, auc.s_r)
-        b = np.full(v.shape, auc.floor)
+        b = np.full(v.shape, auc.lone_price if bidders == 1 else auc.floor)
         live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
         b[live] = auc.bids_at_s(s_q[live])
         fwd = direction == "forward"
         if rule == "all_pay":
             # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
             win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
-            bids = win * b
+            with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
+                bids = np.where(win > 0.0, win * b, 0.0)
             note = ("all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)" if fwd else
                     "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)")
         else:
@@ -1020,14 +1191,15 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
         warnings.append("bids are null at " + ("values" if direction == "forward" else "costs") + " outside the model's support")
     if not all(takes_part[inside]):
         warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
-    return {"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
-            "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}
+    warnings += _no_sale_note(auc, direction)
+    return audit.bids({"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
+                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}, model, reserve)
 
 
 def _sp_payoff(model, n, r, v0):
     """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
     auc = ForwardAuction(model, n, r, v0)
-    rev = second_price_revenue(auc)[0] if n > 1 else auc.floor * auc.p_sale
+    rev = second_price_revenue(auc)[0] if n > 1 else auc.lone_price * auc.p_sale
     return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
 
 
@@ -1108,4 +1280,4 @@ def reserve_report(model, direction, bidders, own_value):
         "assumptions": ASSUMPTIONS,
         "warnings": [],
     }
-    return out
+    return audit.reserve_price(out, model, own_value)

@@ -26,11 +26,33 @@ INF = math.inf
 
 @dataclass(frozen=True)
 class Param:
-    """A family parameter: ``bound`` is ``'positive'``, ``'nonnegative'`` or None."""
+    """A family parameter: ``bound`` is ``'positive'``, ``'nonnegative'`` or None.
+
+    ``reliable`` is the closed range (None for no limit on that side) within which the
+    answers were measured against 30-digit references (tests/test_reliable_ranges.py);
+    outside it the constructor refuses the value rather than answer unreliably.
+    """
 
     required: bool = True
     default: float | None = None
     bound: str | None = None
+    reliable: tuple = (None, None)
+
+
+#: The smallest scale (an sd, a scale, a width) taken: below it values are subnormal
+#: numbers, which carry only a few digits, and densities 1/scale overflow.
+MIN_SCALE = 1e-300
+#: The largest value the quadratures meet: they reach quantiles 1e-300 from either end,
+#: so the value there must be finite for any mean or quantile to be trusted.
+MAX_VALUE = 1e308
+_SCALE = Param(bound="positive", reliable=(MIN_SCALE, None))
+
+
+def _check_width(low, high):
+    if not high > low:
+        raise ParameterError("high", "must be greater than low")
+    if not high - low >= MIN_SCALE:
+        raise ParameterError("high", f"must exceed low by at least {MIN_SCALE:g}: narrower ranges are not reliable")
 
 
 class ValueModel:
@@ -57,6 +79,16 @@ class ValueModel:
 
     def from_standard(self, z):
         raise NotImplementedError
+
+    def check_reliable(self, **values):
+        """Refuse, naming the parameter, any value outside its declared reliable range."""
+        for name, x in values.items():
+            lo, hi = self.parameters[name].reliable
+            if x is None or (lo is None or x >= lo) and (hi is None or x <= hi):
+                continue
+            span = f"at least {lo:g}" if hi is None else f"at most {hi:g}" if lo is None else f"between {lo:g} and {hi:g}"
+            raise ParameterError(name, f"must be {span}: outside that range the answers are not reliable "
+                                       "(the range was measured against 30-digit references)")
 
     # --- to be overridden -------------------------------------------------
     def cdf(self, x):
@@ -244,8 +276,7 @@ class Uniform(ValueModel):
     parameters = {"low": Param(), "high": Param()}
 
     def __init__(self, low, high):
-        if not high > low:
-            raise ParameterError("high", "must be greater than low")
+        _check_width(low, high)
         self.low, self.high = float(low), float(high)
         self.lower, self.upper = self.low, self.high
         self.width = self.high - self.low
@@ -322,9 +353,10 @@ class _StandardNormalScale(ValueModel):
 
 class Normal(_StandardNormalScale):
     family = "normal"
-    parameters = {"mean": Param(), "sd": Param(bound="positive")}
+    parameters = {"mean": Param(), "sd": _SCALE}
 
     def __init__(self, mean, sd):
+        self.check_reliable(sd=sd)
         self.mu, self.sd = float(mean), float(sd)
 
     def _z(self, x):
@@ -351,14 +383,15 @@ class Normal(_StandardNormalScale):
 class LogNormal(_StandardNormalScale):
     family = "lognormal"
     parameters = {
-        "median": Param(required=False, bound="positive"),
-        "sigma": Param(required=False, bound="positive"),
-        "mean": Param(required=False, bound="positive"),
-        "sd": Param(required=False, bound="positive"),
+        "median": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
+        "sigma": Param(required=False, bound="positive", reliable=(None, 12.0)),
+        "mean": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
+        "sd": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
     }
     lower = 0.0
 
     def __init__(self, median=None, sigma=None, mean=None, sd=None):
+        self.check_reliable(median=median, mean=mean, sd=sd)
         by_median = median is not None or sigma is not None
         by_mean = mean is not None or sd is not None
         if by_median and by_mean:
@@ -380,6 +413,17 @@ class LogNormal(_StandardNormalScale):
             self.mu, self.sigma = math.log(mean) - 0.5 * s2, math.sqrt(s2)
         else:
             raise ParameterError("median", "give median and sigma, or mean and sd")
+        self._check_sigma("sigma" if by_median else "sd")
+
+    def _check_sigma(self, field):
+        """sigma at most 12, and the value 1e-300 from the top, e^(mu + 37.05 sigma), finite."""
+        sigma_max = self.parameters["sigma"].reliable[1]
+        if self.sigma > sigma_max:
+            raise ParameterError(field, f"gives a sigma (sd of the log) of {self.sigma:.6g}; it must be at most {sigma_max:g}: "
+                                        "beyond, the answers are not reliable (measured against 30-digit references)")
+        if self.mu + 37.05 * self.sigma > math.log(MAX_VALUE):
+            raise ParameterError(field, "with this median, values a draw exceeds with chance 1e-300 pass 1e308; "
+                                        "the answers are not reliable there: give a smaller sigma or median")
 
     def _z(self, x):
         with np.errstate(divide="ignore"):  # log 0 = -inf: no value at or below 0
@@ -418,9 +462,10 @@ class LogNormal(_StandardNormalScale):
 
 class Exponential(ValueModel):
     family = "exponential"
-    parameters = {"mean": Param(bound="positive"), "shift": Param(required=False, default=0.0)}
+    parameters = {"mean": _SCALE, "shift": Param(required=False, default=0.0)}
 
     def __init__(self, mean, shift=0.0):
+        self.check_reliable(mean=mean)
         self.scale, self.shift = float(mean), float(shift)
         self.lower = self.shift
 
@@ -466,10 +511,13 @@ class Exponential(ValueModel):
 
 class Gamma(ValueModel):
     family = "gamma"
-    parameters = {"shape": Param(bound="positive"), "scale": Param(bound="positive")}
+    # Below shape 0.01 a draw is 0 but with chance ~shape, and a reverse auction's payment (the
+    # second-lowest of many such costs, 1e-77 at shape 1e-5 and 20 bidders) is lost to the sliver.
+    parameters = {"shape": Param(bound="positive", reliable=(0.01, None)), "scale": _SCALE}
     lower = 0.0
 
     def __init__(self, shape, scale):
+        self.check_reliable(shape=shape, scale=scale)
         self.k, self.theta = float(shape), float(scale)
         self._lognorm = sp.gammaln(self.k) + self.k * math.log(self.theta)
 
@@ -503,10 +551,13 @@ class Gamma(ValueModel):
 
 class Weibull(ValueModel):
     family = "weibull"
-    parameters = {"shape": Param(bound="positive"), "scale": Param(bound="positive")}
+    # Below shape 0.03 the value 1e-300 from the top, scale 690^(1/shape), can pass 1e308, and a
+    # reverse auction among a million bidders loses its first-price route.
+    parameters = {"shape": Param(bound="positive", reliable=(0.03, None)), "scale": _SCALE}
     lower = 0.0
 
     def __init__(self, shape, scale):
+        self.check_reliable(shape=shape, scale=scale)
         self.k, self.lam = float(shape), float(scale)
 
     def _h(self, x):
@@ -552,20 +603,23 @@ class Weibull(ValueModel):
 
 class BetaValues(ValueModel):
     family = "beta"
+    # Outside [0.01, 1e6] the incomplete beta's inverse slows by orders of magnitude and
+    # the auction routes lose digits (1e-100 took 42 s and still came out wrong).
     parameters = {
-        "alpha": Param(bound="positive"),
-        "beta": Param(bound="positive"),
+        "alpha": Param(bound="positive", reliable=(0.01, 1e6)),
+        "beta": Param(bound="positive", reliable=(0.01, 1e6)),
         "low": Param(required=False, default=0.0),
         "high": Param(required=False, default=1.0),
     }
 
     def __init__(self, alpha, beta, low=0.0, high=1.0):
-        if not high > low:
-            raise ParameterError("high", "must be greater than low")
+        self.check_reliable(alpha=alpha, beta=beta)
+        _check_width(low, high)
         self.a, self.b = float(alpha), float(beta)
         self.lower, self.upper = float(low), float(high)
         self.width = self.upper - self.lower
         self._lognorm = sp.betaln(self.a, self.b) + math.log(self.width)
+        self._f_mid = float(sp.betainc(self.a, self.b, 0.5))  # the cdf at the middle of [low, high]
 
     def _y(self, x):
         return np.clip((np.asarray(x, float) - self.lower) / self.width, 0.0, 1.0)
@@ -589,17 +643,44 @@ class BetaValues(ValueModel):
         the leading term of the tail, I_y ~ y^a / (a B(a, b))."""
         p = np.asarray(p, float)
         y = sp.betaincinv(a, b, p)
-        bad = np.isnan(y) & (p < 1e-8)
+        # Where the answer underflows scipy gives NaN or the smallest normal number 2.2e-308,
+        # which would break the order of quantiles that the leading term puts at 0.
+        bad = (np.isnan(y) & (p < 1e-8)) | (y <= np.finfo(float).tiny)
         if np.any(bad):
             y = np.where(bad, np.exp((np.log(np.where(bad, p, 1.0)) + math.log(a) + sp.betaln(a, b)) / a), y)
         return y
 
+    def value_at(self, u, v):
+        """Each value measured from the end it is nearer, so that neither end's digits are
+        lost: from low where the cdf is below its value at the middle of the range (a beta
+        of alpha 0.01 has most of its mass within 1e-40 of low, which high - width y would
+        round to low), else from high as high - width y with y from the mirrored Beta(b, a)."""
+        u, v = np.broadcast_arrays(np.asarray(u, float), np.asarray(v, float))
+        out = np.empty(u.shape)
+        low = u <= self._f_mid
+        for part, a, b, p, q, end, sign in ((low, self.a, self.b, u, v, self.lower, 1.0),
+                                            (~low, self.b, self.a, v, u, self.upper, -1.0)):
+            if part.any():
+                out[part] = end + sign * self.width * self._from_end(p[part], q[part], a, b)
+        return out
+
+    def _from_end(self, p, q, a, b):
+        """y with I_y(a, b) = p = 1 - q, from whichever of p and q is below 1/2."""
+        y = np.empty(p.shape)
+        small = p < 0.5
+        if small.any():
+            y[small] = self._inv(p[small], a, b)
+        if not small.all():
+            y[~small] = sp.betainccinv(a, b, q[~small])
+        return y
+
     def ppf(self, u):
-        return self.lower + self.width * self._inv(u, self.a, self.b)
+        u = np.asarray(u, float)
+        return self.value_at(u, 1.0 - u)
 
     def isf(self, v):
-        # The upper end as high - width * y, with y from the mirrored Beta(b, a).
-        return self.upper - self.width * self._inv(v, self.b, self.a)
+        v = np.asarray(v, float)
+        return self.value_at(1.0 - v, v)
 
     def value_parts(self, u, v):
         """Measured from the nearer end: high - width y' in the upper half (y' from the
@@ -628,8 +709,7 @@ class Triangular(ValueModel):
     parameters = {"low": Param(), "mode": Param(), "high": Param()}
 
     def __init__(self, low, mode, high):
-        if not high > low:
-            raise ParameterError("high", "must be greater than low")
+        _check_width(low, high)
         if not low <= mode <= high:
             raise ParameterError("mode", "must lie between low and high")
         self.lower, self.c, self.upper = float(low), float(mode), float(high)
@@ -688,17 +768,19 @@ class Triangular(ValueModel):
 
 class Pareto(ValueModel):
     family = "pareto"
-    parameters = {"shape": Param(bound="positive"), "minimum": Param(bound="positive")}
+    parameters = {"shape": Param(bound="positive"), "minimum": _SCALE}
     closed_form_logs = True  # closed_rank_moments goes through log-gamma ratios
 
     def __init__(self, shape, minimum):
+        self.check_reliable(minimum=minimum)
         self.alpha, self.xm = float(shape), float(minimum)
         self.lower = self.xm
         self.upper_tail_index = self.alpha
 
     def _logratio(self, x):
         x = np.maximum(np.asarray(x, float), self.xm)
-        return np.log(self.xm / x)
+        with np.errstate(divide="ignore"):  # x = inf: log 0 = -inf, S = 0
+            return np.log(self.xm / x)
 
     def cdf(self, x):
         return -np.expm1(self.alpha * self._logratio(x))
@@ -714,10 +796,11 @@ class Pareto(ValueModel):
         return np.where(x >= self.xm, self.alpha / np.maximum(x, self.xm) * np.exp(self.alpha * self._logratio(x)), 0.0)
 
     def ppf(self, u):
-        return self.xm * np.exp(-np.log1p(-np.asarray(u, float)) / self.alpha)
+        with np.errstate(over="ignore"):  # beyond 1e308 for a tiny shape: inf, which reports turn into null
+            return self.xm * np.exp(-np.log1p(-np.asarray(u, float)) / self.alpha)
 
     def isf(self, v):
-        with np.errstate(divide="ignore"):
+        with np.errstate(divide="ignore", over="ignore"):
             return self.xm * np.exp(-np.log(np.asarray(v, float)) / self.alpha)
 
     def value_parts(self, u, v):
@@ -757,15 +840,17 @@ class Pareto(ValueModel):
 class Power(ValueModel):
     family = "power"
     closed_form_logs = True  # closed_rank_moments goes through log-gamma ratios
+    # Below exponent 0.01 a draw sits at low but for a sliver of chance, and a reverse auction's
+    # payment (5e-231 at exponent 0.001 and 200 bidders) is lost to it.
     parameters = {
-        "exponent": Param(bound="positive"),
+        "exponent": Param(bound="positive", reliable=(0.01, None)),
         "high": Param(),
         "low": Param(required=False, default=0.0),
     }
 
     def __init__(self, exponent, high, low=0.0):
-        if not high > low:
-            raise ParameterError("high", "must be greater than low")
+        self.check_reliable(exponent=exponent)
+        _check_width(low, high)
         self.a = float(exponent)
         self.lower, self.upper = float(low), float(high)
         self.w = self.upper - self.lower

@@ -101,8 +101,9 @@ class RankQuadrature:
     ``ValueModel.value_parts``), from which ``offsets`` forms differences of values.
     """
 
-    def __init__(self, m, r, lognorm, edges):
+    def __init__(self, m, r, lognorm, edges, cut_at_end=False):
         self.m, self.r, self.lognorm = m, r, lognorm
+        self.cut_at_end = cut_at_end  # whether the last edge is a cut (a reserve), not where the weight fades
         edges = np.asarray(edges, float)
         self._set_panels(edges[:-1], edges[1:])
         self.values = None
@@ -265,7 +266,7 @@ _RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds
 
 
 def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
-                    fine=False, splits_s=(), s_top=0.0):
+                    fine=False, splits_s=(), s_top=0.0, checked=False):
     """Quadrature for rank r of n (see ``_build_rank_quadrature``); ``splits_s`` are extra
     panel edges, given as s = -log u so that they keep their digits near the top, and no
     panel reaches above s = ``s_top`` (values beyond the double range, say).
@@ -273,15 +274,44 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
     Without a model to probe, the rule depends only on its arguments, so it is built
     once per worker for each (n, r, kinks, cut, reach) and handed out as a fresh copy
     (``fill`` replaces arrays, never writes into them; the cached ones are read-only).
+    A model with cheap quantiles is probed: the scan that trims the range weighs |Q|^power.
+    With ``checked`` it is probed only when the cached rule's ends still carry that
+    weight (``_ends_matter``: a lognormal with a large sigma, a gamma of tiny shape), so
+    that ordinary models keep the cached rule and what is kept with it.
     """
     kinks = tuple(float(k) for k in np.atleast_1d(np.asarray(kinks_u, float)))
     splits = tuple(float(x) for x in splits_s)
     if model is not None and not (model.upper_tail_index == model.lower_tail_index == math.inf):
         model = None  # a power-law tail's growth is known in closed form; its far values overflow
-    if (model is not None and power and getattr(model, "cheap_quantiles", False)) or len(kinks) > _RULE_CACHE_KINKS:
-        return _build_rank_quadrature(n, r, kinks, u_cut, s_cut, upper_growth, lower_growth, model, power, fine, splits, s_top)
-    return copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
+    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    shape = (n, r, kinks, u_cut, s_cut, upper_growth, lower_growth)
+    if (probe and not checked) or len(kinks) > _RULE_CACHE_KINKS:
+        return _build_rank_quadrature(*shape, model, power, fine, splits, s_top)
+    rule = copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
                                   float(upper_growth), float(lower_growth), bool(fine), splits, float(s_top)))
+    if probe and _ends_matter(rule, model, power):
+        return _build_rank_quadrature(*shape, model, power, fine, splits, s_top)
+    return rule
+
+
+def _ends_matter(q, model, power):
+    """Whether |Q|^power times the weight, at the rule's first edge (the upper tail) or at
+    its last when that is not a cut, comes within e^-40 of its size in the bulk: the
+    scan that placed the edges weighed the weight alone, and here the values grow
+    faster than it allowed for. A few quantiles: the edges and the panels' middles."""
+    if q.panels == 0:
+        return False
+    t = np.concatenate(([q.a[0], q.b[-1]], 0.5 * (q.a + q.b)))
+    s = np.exp(t) / q.m
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        logw = _log_weight(t, q.m, q.r, q.lognorm)
+        x = np.abs(model.value_at(np.exp(-s), -np.expm1(-s)))
+        bulk = logw > np.max(logw) - 5.0
+        scale = max(float(np.max(np.where(bulk & np.isfinite(x), x, 0.0))), _TINY)
+        h = logw + power * np.log(np.maximum(x, scale) / scale)
+    h = np.where(np.isnan(h), -np.inf, h)
+    ends = h[:1] if q.cut_at_end else h[:2]
+    return bool(np.max(ends) > np.max(h[2:]) - 40.0)
 
 
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
@@ -307,40 +337,68 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
     m = float(n - r + 1)
     r = float(r)
     lognorm = math.log(m) + log_beta(r, m)
-
-    def empty():
+    if s_cut is None and u_cut > 0.0:
+        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
+    t_floor = math.log(m * max(_TINY, s_top))
+    window = _rank_window(n, m, r, s_cut, upper_growth, lower_growth, fine, t_floor)
+    if window is None:
         return RankQuadrature(m, r, lognorm, [])
+    t0, sig, t_left, t_right = window
+    cut = s_cut is not None and math.isfinite(s_cut)
+    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    ta, tb = _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, model if probe else None, power,
+                      t_floor)
+    if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
+        tb = max(tb, min(t_right, math.log(80.0)))
+    tpk = min(max(t0, ta), tb)
+    edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
+    splits = [-math.log(uk) for uk in kinks_u if 0.0 < uk < 1.0] + [x for x in splits_s if 0.0 < x < math.inf]
+    edges = np.append(edges, [math.log(m * x) for x in splits])
+    if fine:
+        w_end = min(math.exp(tb), 4.0 * 400)
+        edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
+    edges = np.unique(edges[(edges >= ta) & (edges <= tb)])
+    return RankQuadrature(m, r, lognorm, edges, cut_at_end=cut and tb >= t_right)
+
+
+def _rank_window(n, m, r, s_cut, upper_growth, lower_growth, fine, t_floor):
+    """(t0, sig, t_left, t_right): the weight's peak and scale in t, and the range
+    that holds it (None when empty). A cut far in the upper tail (a reserve beaten
+    with chance 1e-40) keeps the weight's last 60 e-folds below it, since integrals
+    cut there are about that sliver and nothing else."""
     es = float(sp.digamma(n + 1.0) - sp.digamma(m)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0)))
     vs = float(sp.polygamma(1, m) - sp.polygamma(1, n + 1.0)) if n - r >= 2000 else float(np.sum(1.0 / np.arange(m, n + 1.0) ** 2))
     t0 = math.log(m * es)
     sig = min(1.0, math.sqrt(vs) / es)
-    t_left = max(t0 - max(14.0 * sig, 60.0 / max(r - upper_growth, 1e-3)), math.log(m * max(_TINY, s_top)))
+    reach = 60.0 / max(r - upper_growth, 1e-3)  # the weight falls as e^((r - growth) t) into the upper tail
+    t_left = max(t0 - max(14.0 * sig, reach), t_floor)
     w_right = m * (es + 14.0 * math.sqrt(vs)) + 70.0
     if lower_growth:
         w_right /= max(1.0 - lower_growth / m, 1e-3)
     if fine:
         w_right = max(w_right, 90.0)
     t_right = min(math.log(w_right), math.log(m * 690.0))
-    if s_cut is None and u_cut > 0.0:
-        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
-    cut = s_cut is not None and math.isfinite(s_cut)
-    if cut:
+    if s_cut is not None and math.isfinite(s_cut):
         if s_cut <= 0.0:
-            return empty()
+            return None
         t_right = min(t_right, math.log(m * s_cut))
+        t_left = max(min(t_left, t_right - reach), t_floor)
     if t_right <= t_left:
-        return empty()
+        return None
+    return t0, sig, t_left, t_right
 
-    # Trim to where the integrand matters, on a cheap scan of the log-weight.
-    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
-    scan = np.linspace(t_left, t_right, 151 if probe else 301)
-    if probe:
-        far = np.linspace(math.log(m * _TINY), min(math.log(m * 690.0), t_right if cut else math.inf), 121)
+
+def _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, model, power, t_floor):
+    """(ta, tb): the part of [t_left, t_right] where the integrand matters, on a cheap
+    scan of the log-weight (and, with a ``model`` to probe, of |Q|^power)."""
+    scan = np.linspace(t_left, t_right, 151 if model is not None else 301)
+    if model is not None:
+        far = np.linspace(t_floor, min(math.log(m * 690.0), t_right if cut else math.inf), 121)
         scan = np.unique(np.concatenate((scan, far)))
     wscan = np.exp(scan)
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
         aug = _log_weight(scan, m, r, lognorm)
-        if not probe:  # the power-law tails' growth, in closed form
+        if model is None:  # the power-law tails' growth, in closed form
             aug = aug - upper_growth * np.log(np.maximum(-np.expm1(-wscan / m), _TINY)) + lower_growth * wscan / m
         else:  # the growth itself, measured on the model's values
             # |Q|^power only counts where it exceeds the values' own scale in the
@@ -350,25 +408,22 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
             scale = np.max(np.where(bulk & np.isfinite(xs), xs, 0.0))
             aug = aug + power * np.log(np.maximum(xs, max(scale, _TINY)) / max(scale, _TINY))
             aug = np.where(np.isnan(aug), -np.inf, aug)  # no value there (a quantile routine gave up)
-    keep = np.nonzero(aug > np.max(aug) - _DECADES)[0] if np.isfinite(np.max(aug)) else np.nonzero(aug == np.inf)[0]
+    top = np.max(aug)
+    if model is not None and not math.isfinite(float(top)):
+        return scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
+    keep = np.nonzero(aug > top - _DECADES)[0] if np.isfinite(top) else np.nonzero(aug == np.inf)[0]
+    # The hull with where the weight alone matters: a fast-growing tail (a lognormal with
+    # a large sigma) puts the peak of x^2 w far out, where x w (the mean) no longer is.
+    weight = _log_weight(scan, m, r, lognorm)
+    keep = np.union1d(keep, np.nonzero(weight > np.max(weight) - _DECADES)[0])
     if len(keep) == 0:  # nothing finite to go by: the whole scanned range
         keep = np.arange(len(scan))
     ta = scan[max(keep[0] - 1, 0)]
-    tb = t_right if (cut and keep[-1] == len(scan) - 1) else scan[min(keep[-1] + 1, len(scan) - 1)]
-    if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
-        tb = max(tb, min(t_right, math.log(80.0)))
-    tpk = min(max(t0, ta), tb)
-    if probe and not math.isfinite(float(np.max(aug))):
-        ta, tb = scan[0], scan[-1]  # the integrand overflows: the caller sees a non-finite result
-
-    edges = np.concatenate(([ta, tb, tpk], tpk + sig * _EDGES_Z, tpk - sig * _EDGES_Z))
-    splits = [-math.log(uk) for uk in kinks_u if 0.0 < uk < 1.0] + [x for x in splits_s if 0.0 < x < math.inf]
-    edges = np.append(edges, [math.log(m * x) for x in splits])
-    if fine:
-        w_end = min(math.exp(tb), 4.0 * 400)
-        edges = np.append(edges, np.log(4.0 * np.arange(1, int(w_end / 4.0) + 1)))
-    edges = np.unique(edges[(edges >= ta) & (edges <= tb)])
-    return RankQuadrature(m, r, lognorm, edges)
+    if cut and keep[-1] == len(scan) - 1:
+        return ta, t_right
+    # On the right the weight falls as e^-w: one unit of t (a factor e in w) past the last point
+    # kept is margin enough, where the probe's sparse far scan would step a factor 300 out.
+    return ta, min(scan[min(keep[-1] + 1, len(scan) - 1)], scan[keep[-1]] + 1.0)
 
 
 def tail_growth(model, p):
@@ -400,16 +455,32 @@ def discrete_rank_probabilities(model, n, r):
 class RankSummary:
     rank: int
     mean: float | None
-    var: float | None
+    sd: float | None
     abs_error: float
     method: str
     warnings: list
     gap: tuple | None = None  # (E[X_1 - X_2], its error) when asked of rank 1's quadrature
 
+    @property
+    def var(self):
+        return None if self.sd is None else self.sd * self.sd
+
+
+def sd_scale(*deviations):
+    """A power of two at or above the largest finite |deviation|: squares of deviations
+    divided by it lie in [0, 1], so none overflows (a spread of 1e200 about a mean of
+    1e150) and the ones that matter do not underflow (a spread of 1e-200)."""
+    top = 0.0
+    for d in deviations:
+        d = np.abs(np.asarray(d, float))
+        d = d[np.isfinite(d)]
+        top = max(top, float(d.max()) if d.size else 0.0)
+    return math.ldexp(1.0, math.frexp(top)[1]) if top > 0.0 else 1.0
+
 
 def rank_summary(model, n, r, with_gap=False):
-    """Mean and variance of rank r of n, by the best route the model allows; with
-    ``with_gap``, rank 1's quadrature also gives the expected gap (see ``expected_gap``)."""
+    """Mean and sd of rank r of n, by the best route the model allows; with ``with_gap``,
+    rank 1's quadrature also gives the expected gap (see ``expected_gap``)."""
     warnings = []
     has_mean = moment_exists(model, n, r, 1)
     has_var = moment_exists(model, n, r, 2)
@@ -422,49 +493,68 @@ def rank_summary(model, n, r, with_gap=False):
         p = discrete_rank_probabilities(model, n, r)
         x = model.atoms
         mean = float(np.dot(p, x) / np.sum(p))
-        var = float(np.dot(p, (x - mean) ** 2) / np.sum(p))
-        return RankSummary(r, mean, var, 4e-16 * abs(mean), "exact_discrete_sum", warnings)
+        c = sd_scale(x - mean)
+        sd = c * math.sqrt(float(np.dot(p, ((x - mean) / c) ** 2) / np.sum(p)))
+        return RankSummary(r, mean, sd, 4e-16 * abs(mean), "exact_discrete_sum", warnings)
     closed = getattr(model, "closed_rank_moments", None)
-    if closed is not None:
-        got = closed(n, r)
-        if got is not None:
-            mean, var = got
-            err = closed_form_error(model, n, mean, math.sqrt(var) if has_var and var > 0 else 0.0)
-            return RankSummary(r, mean, var if has_var else None, err, "closed_form", warnings)
+    got = closed(n, r) if closed is not None else None
+    if got is not None:
+        mean, var = got
+        sd = math.sqrt(max(var, 0.0)) if has_var and var is not None else None
+        return RankSummary(r, mean, sd, closed_form_error(model, n, mean, sd or 0.0), "closed_form", warnings)
     up, low = tail_growth(model, 2 if has_var else 1)
     q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
                         model=model, power=2 if has_var else 1).fill(model)
-    total = q.total()
     with np.errstate(over="ignore", invalid="ignore"):
-        mean, var, err = quadrature_moments(q, total, has_var)
-        gap = _spacing(model, q, total) if with_gap and r == 1 else None
-    if not math.isfinite(mean):
+        mean, sd, err = quadrature_moments(q, has_var)
+        gap = _spacing(model, q, _norm(q)) if with_gap and r == 1 and q.panels else None
+    if mean is None or not math.isfinite(mean):
         warnings.append(f"rank {r}: the mean is beyond double precision (about 1e308); mean and sd are null")
         return RankSummary(r, None, None, 0.0, "quantile_gauss_legendre", warnings)
-    if var is not None and not math.isfinite(var):
-        warnings.append(f"rank {r}: the variance is beyond double precision (about 1e308); sd is null")
-        var = None
-    return RankSummary(r, mean, var, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings, gap)
+    if has_var and (sd is None or not math.isfinite(sd)):
+        warnings.append(f"rank {r}: the sd is beyond double precision (about 1e308); sd is null")
+        sd = None
+    return RankSummary(r, mean, sd, err if math.isfinite(err) else None, "quantile_gauss_legendre", warnings, gap)
 
 
-def quadrature_moments(q, total, has_var):
-    """Mean and variance (None without ``has_var``) of a filled quadrature's values, its
-    weights divided by ``total``, with one bound for the error of both the mean and the sd.
-    The variance is taken about the mean of the offsets (``RankQuadrature.offsets``), so
-    its relative precision does not depend on where the values sit."""
+def _norm(q):
+    """What a rank quadrature's integrals are divided by. The rank's weight integrates to 1:
+    where the scan kept all of it, dividing by the rule's own total only removes its
+    rounding; where it trimmed part of it, it did so because the values there are
+    negligible (a gamma of shape 1e-5 is below 1e-300 except with chance 5e-5), and they
+    count as zero rather than being spread over the rest by a normalisation."""
+    total = q.total()
+    return total if abs(total - 1.0) < 1e-9 else 1.0
+
+
+def quadrature_moments(q, has_sd):
+    """(mean, sd, error bound for both) of a filled rank quadrature's values; (None, None, 0)
+    for an empty rule. The mean is taken about a value at the weight's peak and the spread
+    from the offsets (``RankQuadrature.offsets``), so that its relative precision does not
+    depend on where the values sit (a sd of 1e-300 about 1e150); the squares are scaled by a
+    power of two (``sd_scale``), so a spread of 1e200 neither overflows nor one of 1e-200
+    underflows."""
+    if q.panels == 0:
+        return None, None, 0.0
+    total = _norm(q)
     ref, o = q.offsets()
+    if total == 1.0 and abs(q.total() - 1.0) >= 1e-9:
+        o, ref = o + ref, 0.0  # a trimmed weight: the whole values, nothing renormalised
     shift, err = q.integrate_nodes(o)
     shift /= total
     mean = ref + shift
     err = err / total + ROUNDING * abs(mean)
-    if not (has_var and math.isfinite(shift)):
+    if not (has_sd and math.isfinite(shift)):
         return mean, None, err
     dev = o - shift
-    var, err2 = q.integrate_nodes(dev * dev)
+    c = sd_scale(dev)
+    scaled = dev / c
+    var, err2 = q.integrate_nodes(scaled * scaled)
     var /= total
     # each offset's own rounding moves the variance by up to 2 |dev| ROUNDING |o|
-    err2 = (err2 + 2.0 * ROUNDING * float(np.abs((q.w * dev * o)[:, :RULE_SPLIT]).sum())) / total
-    return mean, var, max(err, err2 / (2.0 * math.sqrt(var)) if var > 0 else math.sqrt(err2))
+    err2 = (err2 + 2.0 * ROUNDING * float(np.abs((q.w * scaled * (o / c))[:, :RULE_SPLIT]).sum())) / total
+    root = math.sqrt(max(var, 0.0))
+    return mean, c * root, max(err, c * (err2 / (2.0 * root) if root > 0 else math.sqrt(err2)))
 
 
 def _spacing(model, q, total):
@@ -502,12 +592,11 @@ def expected_gap(model, n, summaries=()):
     if top is None or top.method != "quantile_gauss_legendre":
         up, low = tail_growth(model, 1)
         q = rank_quadrature(n, 1, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low, model=model, power=1).fill(model)
-        total = q.total()
-        got = _spacing(model, q, total)
+        got = _spacing(model, q, _norm(q)) if q.panels else None
         if got is not None:
             return got
         with np.errstate(over="ignore", invalid="ignore"):
-            mean, _, err = quadrature_moments(q, total, False)
+            mean, _, err = quadrature_moments(q, False)
         top = RankSummary(1, mean, None, err, "quantile_gauss_legendre", [])
     second = by_rank.get(2) or rank_summary(model, n, 2)
     if top.mean is None or second.mean is None:

@@ -18,9 +18,9 @@ import math
 
 import numpy as np
 
-from . import budget
+from . import audit, auctions, budget
 from . import orderstats as os_
-from .auctions import ForwardAuction, _check_price_exists, _forward_case, price_moment_exists
+from .auctions import FAR_RESERVE, ForwardAuction, _check_price_exists, _forward_case, price_moment_exists
 from .errors import ParameterError
 from .topvalues import finite
 
@@ -31,6 +31,7 @@ METRICS = {
                 "expected_bidder_surplus", "efficiency", "expected_payoff"),
 }
 _ROUTE = {"second_price": "sp", "ascending": "sp", "first_price": "fp", "descending": "fp", "all_pay": "ap"}
+_RULE_OF = {"sp": "second_price", "fp": "first_price", "ap": "all_pay"}
 
 
 def _t_of(s, k):
@@ -52,10 +53,18 @@ def _flat(q):
     return v.ravel(), dens, (np.exp(t) / q.m).ravel()
 
 
+#: A cell whose vectorised terms exceed its figure by this factor has lost digits to
+#: cancellation (a reserve near the top of costs that start at 0, where b_0 and the
+#: reserve's lift are both far larger than the tiny price); it is recomputed by the
+#: single-scenario route, which integrates with the reserve in place.
+_CANCELLATION = 1e5
+
+
 def _block(model, n, reserves, v0):
-    """Figures for one bidder count over all reserves: per route (revenue, variance, the
-    winner's payment), E[X1; sale] ("e1"), and the gains ("gains": the bidders' surplus and
-    the efficiency's best and lost gains, see ``_gains``)."""
+    """Figures for one bidder count over all reserves: per route (revenue, sd, the winner's
+    payment), E[X1; sale] ("e1"), and the gains ("gains": the bidders' surplus and the
+    efficiency's best and lost gains, see ``_gains``). Cells whose vectorised terms cancel,
+    or whose cut lies beyond the nodes, are recomputed one by one (``_single_scenario``)."""
     floor = np.maximum(reserves, model.lower)
     binds = reserves > model.lower
     s_r = np.where(binds, model.neg_log_cdf(floor), np.inf)
@@ -66,21 +75,59 @@ def _block(model, n, reserves, v0):
         q = _filled(model, 1, 1)
         v, dens, s = _flat(q)
         W = q.cut_weights(_t_of(s_r, 1.0))
+        # a lone bidder pays the reserve itself, even one below the support, whenever it buys
         with np.errstate(invalid="ignore"):
-            rev = np.where(p_sale > 0, floor * p_sale, 0.0)
-            var = np.where(p_sale > 0, p_sale * (1.0 - p_sale) * floor**2, 0.0)
+            rev = np.where(p_sale > 0, reserves * p_sale, 0.0)
+            sd = np.where(p_sale > 0, np.abs(reserves) * np.sqrt(p_sale * (1.0 - p_sale)), 0.0)
         for key in ("sp", "fp", "ap"):
-            out[key] = (rev, var, rev)
+            out[key] = (rev, sd, rev)
         out["e1"] = _weigh(W, dens * v)
-        out["gains"] = _gains(model, q, dens, W, s_r, 1.0, v0)
+        gains = _gains(model, q, dens, W, s_r, 1.0, v0)
+        if gains is not None and gains[0] is not None:  # E[X - floor; sale] and what a reserve below the support adds
+            gains = (gains[0] + (floor - reserves) * p_sale, *gains[1:])
+        out["gains"] = gains
         return out
-    out["sp"] = _second_price_block(model, n, floor, binds, s_r, p_sale)
+    out["sp"], loose = _second_price_block(model, n, floor, binds, s_r, p_sale)
     auc = ForwardAuction(model, n, None, v0)
     q1 = auc._inner_quadrature()
     W1 = q1.cut_weights(_t_of(s_r, n - 1.0))
-    out.update(_bid_block(auc, W1, floor, binds, s_r, p_sale))
+    bids, loose_bid = _bid_block(auc, W1, floor, binds, s_r, p_sale)
+    out.update(bids)
     out["gains"] = _gains(model, q1, auc.node_bids().first_rule(auc.node_bids().top), W1, s_r, n - 1.0, v0)
+    far = binds & (s_r < FAR_RESERVE)
+    for j in np.nonzero((loose | loose_bid | far | _beyond_nodes(q1, binds, s_r, n - 1.0)) & (p_sale > 0.0))[0]:
+        budget.check()
+        _single_scenario(model, n, float(reserves[j]), v0, out, j)
     return out
+
+
+def _lost(total, *terms, bound=np.inf):
+    """Whether a sum lost its digits to cancellation: its terms far exceed it, or far exceed
+    ``bound``, a bound on its true size (a sum whose own digits are lost can come out far
+    larger than it is)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return sum(np.abs(t) for t in terms) > _CANCELLATION * np.minimum(np.abs(total), bound)
+
+
+def _beyond_nodes(q, binds, s_r, k):
+    """Reserves whose cut lies above the quadrature's highest node (each value beats them with
+    chance below about 1e-26): cut weights there are all zero, and the nodes say nothing."""
+    return binds & (_t_of(s_r, k) < (q.a[0] if q.panels else np.inf))
+
+
+def _single_scenario(model, n, reserve, v0, out, j):
+    """Cell j of every route recomputed with the reserve in place, as /v1/revenue does; its
+    gains are those of /v1/revenue too (kept in ``out["cells"]``)."""
+    auc = ForwardAuction(model, n, reserve, v0)
+    figures, _ = auctions.forward_figures(auc, ["second_price", "first_price", "all_pay"], [])
+    sp, fp, ap = figures["second_price"], figures["first_price"], figures["all_pay"]
+    winner_ap = ap["expected_revenue"] if auc.single_price is not None else auctions.all_pay_winner_payment(auc)
+    for key, f, paid in (("sp", sp, sp["expected_revenue"]), ("fp", fp, fp["expected_revenue"]), ("ap", ap, winner_ap)):
+        for arr, x in zip(out[key], (f["expected_revenue"], f["revenue_sd"], paid)):
+            arr[j] = math.nan if x is None else x
+    out.setdefault("cells", {})[j] = figures
+    got = auctions.winner_value(auc)
+    out["e1"][j] = math.nan if got is None else got
 
 
 def _weigh(W, h):
@@ -100,23 +147,23 @@ def _finite_sum(a):
         return float(np.sum(np.where(np.isfinite(a), a, 0.0)))
 
 
-def _conditional_variance(p_sale, mass, centre, first, second):
-    """The revenue's variance (price on a sale, 0 otherwise) from the integrals over the
-    sale of the price's offset from ``centre`` (``first``) and of its square (``second``),
-    ``mass`` the sale's chance on the nodes: p Var + p (1 - p) mean^2 on a sale (law of
-    total variance). Offsets from a centre in the bulk keep the spread's digits wherever
-    the values sit."""
-    with np.errstate(invalid="ignore", divide="ignore"):
+def _conditional_sd(p_sale, mass, centre, first, second):
+    """The revenue's sd (price on a sale, 0 otherwise) from the integrals over the sale of
+    the price's offset from ``centre`` (``first``) and of its square (``second``), ``mass``
+    the sale's chance on the nodes: Var = p Var_sale + p (1 - p) mean^2 (law of total
+    variance), the mean's part through hypot so that it does not overflow. Offsets from a
+    centre in the bulk keep the spread's digits wherever the values sit."""
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         safe = np.where(mass > 0, mass, 1.0)
         shift = np.where(mass > 0, first / safe, 0.0)
-        var_c = np.where(mass > 0, second / safe - shift**2, 0.0)
-    return p_sale * var_c + p_sale * (1.0 - p_sale) * (centre + shift) ** 2
+        sd_sale = np.sqrt(np.maximum(np.where(mass > 0, second / safe - shift**2, 0.0), 0.0))
+        return np.sqrt(p_sale) * np.hypot(sd_sale, np.sqrt(np.maximum(1.0 - p_sale, 0.0)) * (centre + shift))
 
 
 def _second_price_block(model, n, floor, binds, s_r, p_sale):
-    """(revenue, variance, the winner's payment) under second price: the price is max(X2, r)
-    on a sale. Second moments are taken about the second-highest value's mean, from the
-    values' offsets (``RankQuadrature.offsets``)."""
+    """((revenue, sd, the winner's payment), cells that lost their digits) under second
+    price: the price is max(X2, r) on a sale. Second moments are taken about the
+    second-highest value's mean, from the values' offsets (``RankQuadrature.offsets``)."""
     k = n - 1.0
     q2 = _filled(model, n, 2)
     v2, d2, _ = _flat(q2)
@@ -128,14 +175,16 @@ def _second_price_block(model, n, floor, binds, s_r, p_sale):
     with np.errstate(over="ignore", invalid="ignore"):
         pr = np.where(binds, n * np.exp(-k * s_r) * -np.expm1(-s_r), 0.0)
         at_floor = np.where(pr > 0, floor - ref - c, 0.0)
-        rev = pr * np.where(pr > 0, floor, 0.0) + _weigh(W2, d2 * v2)
+        at_reserve, above = pr * np.where(pr > 0, floor, 0.0), _weigh(W2, d2 * v2)
+        rev = at_reserve + above
         first, second = pr * at_floor + _weigh(W2, d2 * o2), pr * at_floor**2 + _weigh(W2, d2 * o2 * o2)
-        return rev, _conditional_variance(p_sale, pr + _weigh(W2, d2), ref + c, first, second), rev
+        sd = _conditional_sd(p_sale, pr + _weigh(W2, d2), ref + c, first, second)
+    return (rev, sd, rev), _lost(rev, at_reserve, above) | _beyond_nodes(q2, binds, s_r, k)
 
 
 def _bid_block(auc, W1, floor, binds, s_r, p_sale):
-    """First price and all-pay, each (revenue, variance, the winner's payment), on the nodes
-    of the highest rival value. With g = G(r)/G(v) = e^(-(n-1)(s_r - s)), b_r = b_0 + g delta,
+    """({"fp": ..., "ap": ..., "e1": ...}, cells that lost their digits): first price and
+    all-pay, each (revenue, sd, the winner's payment), on the nodes of the highest rival value. With g = G(r)/G(v) = e^(-(n-1)(s_r - s)), b_r = b_0 + g delta,
     delta = r - b_0(r); the terms in g are integrated in closed form or with g's growth folded
     into a smooth integrand, never by interpolating g itself across a cut panel."""
     n, k = auc.n, auc.n - 1.0
@@ -151,7 +200,8 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
         else:
             i3 = np.where(np.isfinite(s_r), 2.0 * s_r * np.exp(-2.0 * s_r), 0.0)
     outer, single = nb.first_rule(nb.top), nb.first_rule(nb.one)  # densities per dt: the highest value's, one bidder's
-    rev_fp = _weigh(W1, outer * b0) + delta * n * g_r * sx
+    base_fp, lift_fp = _weigh(W1, outer * b0), delta * n * g_r * sx
+    rev_fp = base_fp + lift_fp
     # second moments from the bids' offsets, about their mean without a reserve
     ref, b_off = auc.node_bid_offsets()
     b_off = nb.first_rule(b_off)
@@ -161,15 +211,22 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
         b_off = b_off - c
         first = _weigh(W1, outer * b_off) + delta * n * g_r * sx
         second = _weigh(W1, outer * b_off**2) + 2.0 * delta * g_r * (_weigh(W1, n * single * b_off)) + delta**2 * i3
-        out = {"fp": (rev_fp, _conditional_variance(p_sale, _weigh(W1, outer), ref + c, first, second), rev_fp)}
+        out = {"fp": (rev_fp, _conditional_sd(p_sale, _weigh(W1, outer), ref + c, first, second), rev_fp)}
         a0 = nb.first_rule(nb.rivals) * b0  # a_r(v) = F(v)^(n-1) b_0(v) + G(r) delta
         lift = g_r * delta
-        ea = _weigh(W1, single * a0) + lift * sx
-        ea2 = _weigh(W1, single * a0 * a0) + 2.0 * lift * (_weigh(W1, single * a0)) + lift**2 * sx
-    winner_pays = _weigh(W1, outer * a0) + lift * p_sale
-    out["ap"] = (n * ea, n * np.maximum(ea2 - ea * ea, 0.0), winner_pays)
-    out["e1"] = _weigh(W1, outer * nb.first_rule(nb.values))
-    return out
+        ea0, paid = _weigh(W1, single * a0), _weigh(W1, outer * a0)
+        ea = ea0 + lift * sx
+        ea2 = _weigh(W1, single * a0 * a0) + 2.0 * lift * ea0 + lift**2 * sx
+        winner_pays = paid + lift * p_sale
+        out["ap"] = (n * ea, np.sqrt(n * np.maximum(ea2 - ea * ea, 0.0)), winner_pays)
+    values = nb.first_rule(nb.values)
+    out["e1"] = _weigh(W1, outer * values)
+    # floor <= a bid <= the value, so |revenue| <= P(sale) |floor| + E[|X1|; sale], and each
+    # of the n all-pay payments alike
+    with np.errstate(invalid="ignore"):
+        bound = p_sale * np.abs(floor) + _weigh(W1, outer * np.abs(values))
+    loose = _lost(rev_fp, base_fp, lift_fp, bound=bound) | _lost(ea, ea0, lift * sx, bound=bound)
+    return out, loose | _lost(winner_pays, paid, lift * p_sale, bound=bound)
 
 
 def _gains(model, q, dens, W_r, s_r, k, v0):
@@ -213,7 +270,7 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
         # bid's shading r - b_0(r) is a small difference and needs every digit.
         sq = s_r[inside]
         shrink = np.exp(-k * (se[p + 1] - sq))
-        out[inside] = auc._sub_integral(tq, q.b[p]) + shrink * d[p + 1]
+        out[inside] = auc.origin + auc._sub_integral(tq, q.b[p]) + shrink * d[p + 1]
     # Beyond where the nodes reach, the standalone route; where G(r) = e^-(n-1)s_r is
     # below e^-40 the shading only enters multiplied by G(r), so it is left at 0.
     rest = binds & ~inside & (k * s_r < 40.0)
@@ -226,11 +283,16 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
     """One row's figures from its bidder count's block: reserve j, ``rule``. The surpluses
     and the efficiency come from the gains integrated directly (``_gains``); a figure that
     does not exist is None."""
-    rev, var, winner_pays = (x[j] for x in blk[_ROUTE[rule]])
+    route = _ROUTE[rule]
+    rev, sd, winner_pays = (x[j] for x in blk[route])
     p_sale, gains = blk["p_sale"][j], blk["gains"]
     has_var = has_var or p_sale == 0.0
     bidders = winner = efficiency = None
-    if gains is not None:
+    recomputed = blk.get("cells", {}).get(j)
+    if recomputed is not None:  # the single-scenario route's own gains (see ``_single_scenario``)
+        f = recomputed[_RULE_OF[route]]
+        winner, bidders, efficiency = f["expected_winner_surplus"], f["expected_bidder_surplus"], f["efficiency"]
+    elif gains is not None:
         surplus, best, lost = gains
         # without a precise S / f, E[X1; sale] less the revenue
         bidders = surplus[j] if surplus is not None else blk["e1"][j] - rev
@@ -238,7 +300,7 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
         efficiency = None if best is None or not best > 0 else 1.0 - lost[j] / best
     return {
         names[0]: sign * rev,
-        names[1]: math.sqrt(max(var, 0.0)) if has_var else None,
+        names[1]: sd if has_var else None,
         names[2]: p_sale,
         "expected_winner_surplus": winner,
         "expected_bidder_surplus": bidders,
@@ -264,7 +326,7 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
     res = np.asarray(reserves, float)
     fres = res if direction == "forward" else -res
     sign = 1.0 if direction == "forward" else -1.0
-    rows = []
+    rows, warnings = [], []
     for n in bidders:
         budget.check()
         blk = _block(fmodel, n, fres, v0)
@@ -275,4 +337,18 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
             for rule in rules:
                 cells = _cells(blk, j, n, rule, has_var[rule, floor_finite], v0, sign, names)
                 rows.append([n, r, rule, *[finite(cells[m]) for m in metrics]])
-    return {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows}
+        _note_nulls(blk, has_var, rules, n, warnings)
+    table = {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows, "warnings": warnings}
+    return audit.sweep(table, model, own_value if own_value is not None or direction == "reverse" else 0.0)
+
+
+def _note_nulls(blk, has_var, rules, n, warnings):
+    """Say why figures of this bidder count are null where the mathematics has them."""
+    if not all(has_var.values()):
+        warnings.append(f"{n} bidders: some sds are null (the price's variance does not exist: the value model's tail is too heavy)")
+    if any(not np.all(np.isfinite(blk[_ROUTE[rule]][1])) for rule in rules if has_var[rule, 1]):
+        warnings.append(f"{n} bidders: some sds are null (beyond double precision, about 1e308)")
+    far = (blk["p_sale"] > 0.0) & (blk["p_sale"] < n * FAR_RESERVE)
+    if np.any(far & ~np.isfinite(blk["e1"])):
+        warnings.append(f"{n} bidders: at reserves that each value beats with chance below {FAR_RESERVE:g} the price "
+                        "is the reserve under every rule, but the winner's value is beyond reach: the surpluses and efficiency are null")

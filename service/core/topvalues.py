@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from . import budget
+from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
 
@@ -49,9 +49,11 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
         item = {
             "rank": s.rank,
             "mean": finite(s.mean),
-            "sd": finite(math.sqrt(max(s.var, 0.0))) if s.var is not None else None,
+            "sd": finite(s.sd),
             "quantiles": [{"p": float(p), "value": finite(q)} for p, q in zip(quantiles, qs)],
         }
+        if not np.all(np.isfinite(qs)):
+            warnings.append(f"rank {s.rank}: quantiles beyond double range (about 1e308) are null")
         if curve_points:
             x, pdf, cdf = os_.rank_curve(model, bidders, s.rank, curve_points)
             item["curve"] = {"x": finite_list(x), "pdf": finite_list(pdf), "cdf": finite_list(cdf)}
@@ -65,22 +67,31 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
         out["expected_gap"] = finite(gap)
     out["numerics"] = _numerics(summaries, gap_error)
     out["warnings"] = warnings
-    return out
+    return audit.top_values(out, model)
 
 
-def _triangle_mass(dens, axis):
+def _triangle_mass(log_dens, axis):
     """Integral of a density on y <= x from its grid values: the trapezoid rule
     on the cells below the diagonal, and on each diagonal cell the three-vertex
-    rule for its lower triangle (the square-cell rule would overstate it by half)."""
-    if len(axis) < 2:
+    rule for its lower triangle (the square-cell rule would overstate it by half).
+    Taken from the log density times the cell area, which stays finite where the
+    density itself passes 1e308 on a grid a few 1e-300 wide."""
+    h = axis[1] - axis[0] if len(axis) > 1 else 0.0
+    if not h > 0.0:
         return 0.0
-    h = axis[1] - axis[0]
+    with np.errstate(over="ignore"):  # a density singular at the grid's edge: the rule's mass is inf
+        dens = np.exp(log_dens + 2.0 * math.log(h))  # per unit cell area
     c = dens[1:, :-1] + dens[1:, 1:] + dens[:-1, :-1] + dens[:-1, 1:]  # cell corner sums
     below = np.tril(np.ones_like(c, dtype=bool), -1)
-    square = 0.25 * h * h * float(np.sum(c[below]))
+    square = 0.25 * float(np.sum(c[below]))
     i = np.arange(len(axis) - 1)
-    tri = h * h / 6.0 * float(np.sum(dens[i, i] + dens[i + 1, i] + dens[i + 1, i + 1]))
+    tri = float(np.sum(dens[i, i] + dens[i + 1, i] + dens[i + 1, i + 1])) / 6.0
     return square + tri
+
+
+def _overflow_note(dens, warnings):
+    if not np.all(np.isfinite(dens)):
+        warnings.append("the density passes double range (about 1e308) at some points; it is null there")
 
 
 def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
@@ -99,23 +110,34 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
         for start in range(0, len(hx), _CHUNK):  # a bounded working set, and a budget check per chunk
             budget.check()
             part = slice(start, start + _CHUNK)
-            d[part] = np.exp(os_.joint_logdensity(model, bidders, i, j, hx[part], ly[part]))
-        return {
+            with np.errstate(over="ignore"):
+                d[part] = np.exp(os_.joint_logdensity(model, bidders, i, j, hx[part], ly[part]))
+        warnings = []
+        _overflow_note(d, warnings)
+        return audit.joint_density({
             "bidders": bidders,
             "ranks": [i, j],
             "points": [{"higher": float(a), "lower": float(b), "density": finite(c)} for a, b, c in zip(hx, ly, d)],
-            "warnings": [],
-        }
+            "warnings": warnings,
+        })
     lo = max(float(os_.rank_quantiles(model, bidders, j, [5e-4])[0]), model.lower)
     hi = min(float(os_.rank_quantiles(model, bidders, i, [1 - 5e-4])[0]), model.upper)
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        raise ParameterError("bidder_values", "the ranks' quantiles pass double range (about 1e308): no grid can hold "
+                                              "their density; ask for the density at points instead")
     axis = np.linspace(lo, hi, grid_points)
     budget.check()
-    dens = np.exp(os_.joint_logdensity(model, bidders, i, j, axis[:, None], axis[None, :]))
-    mass = _triangle_mass(dens, axis)
+    log_dens = os_.joint_logdensity(model, bidders, i, j, axis[:, None], axis[None, :])
+    with np.errstate(over="ignore"):
+        dens = np.exp(log_dens)
+    mass = _triangle_mass(log_dens, axis)
     warnings = []
-    if abs(mass - 1.0) > 0.05:
+    _overflow_note(dens, warnings)
+    if not math.isfinite(mass):
+        warnings.append("the grid's mass is null: the density is too sharp at a grid point for the rule to weigh it")
+    elif abs(mass - 1.0) > 0.05:
         warnings.append(f"the grid holds {mass:.3f} of the probability; the density may be too sharp for {grid_points} grid points")
-    return {
+    return audit.joint_density({
         "bidders": bidders,
         "ranks": [i, j],
         "higher": finite_list(axis),
@@ -123,4 +145,4 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
         "density": [finite_list(row) for row in dens],
         "mass": finite(mass),
         "warnings": warnings,
-    }
+    })
