@@ -647,7 +647,8 @@ class BetaValues(ValueModel):
         # which would break the order of quantiles that the leading term puts at 0.
         bad = (np.isnan(y) & (p < 1e-8)) | (y <= np.finfo(float).tiny)
         if np.any(bad):
-            y = np.where(bad, np.exp((np.log(np.where(bad, p, 1.0)) + math.log(a) + sp.betaln(a, b)) / a), y)
+            with np.errstate(divide="ignore"):  # p = 0: log 0 = -inf, and y = 0 as it should be
+                y = np.where(bad, np.exp((np.log(np.where(bad, p, 1.0)) + math.log(a) + sp.betaln(a, b)) / a), y)
         return y
 
     def value_at(self, u, v):
