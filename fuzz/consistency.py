@@ -9,7 +9,8 @@ check is a law that any correct answer obeys whatever the numerics:
   rank r + 1, and every rank's mean and quantiles lie in the model's support;
 - a price lies in the support or is 0 (no sale), at or above the reserve when there is
   a sale: floor P(sale) <= E[revenue] <= top P(sale), so non-negative values give a
-  non-negative revenue (forward) or payment (reverse);
+  non-negative revenue (forward) or payment (reverse); a lone bidder, with no rival to
+  beat, pays the reserve itself, even one outside the support;
 - no revenue above the mean of the highest value: the bidders' and the winner's
   expected surplus are not negative (individual rationality), and for non-negative
   values E[revenue] <= E[highest of n] <= mean + sd (n - 1) / sqrt(2n - 1), the bound of
@@ -30,9 +31,26 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import math
 
 INF = math.inf
+
+
+def _refuse_constant(name):
+    raise ValueError(f"non-standard JSON literal {name}")
+
+
+def _finite_float(text):
+    value = float(text)
+    if not math.isfinite(value):
+        raise ValueError(f"number literal {text} is not finite as a double")
+    return value
+
+
+def strict_json(body):
+    """A body (bytes) parsed as strict JSON: no NaN, Infinity or number beyond the double range."""
+    return json.loads(body.decode("utf-8"), parse_constant=_refuse_constant, parse_float=_finite_float)
 RULES = ("first_price", "second_price", "ascending", "descending", "all_pay")
 # Relative slack for comparisons between figures, far above rounding and far below any real error.
 REL = 1e-9
@@ -383,6 +401,8 @@ class Auction:
             self.high_end = self.hi if self.reserve is None else min(self.reserve, self.hi)
             self.sure = self.reserve is None or self.reserve >= self.hi
         self.never = self.low_end >= self.high_end
+        if self.n == 1 and self.reserve is not None:  # a lone bidder pays the reserve itself, inside the support or not
+            self.low_end = self.high_end = self.reserve
         self.scale = model_scale(self.model)
 
 
@@ -399,10 +419,10 @@ def auction_figures(f, auc, fig, rule, err=0.0):
     if p is not None and auc.sure:
         f.need(p >= 1 - PROB_SLACK, (k["p"], rule), f"{rule}: {k['p']} = {p!r} although every bidder takes part")
     f.need(sd is None or sd >= 0, (k["sd"], rule), f"{rule}: {k['sd']} = {sd!r} is negative")
-    if mean is not None and auc.lo >= 0:
+    if mean is not None and auc.lo >= 0 and auc.low_end >= 0:
         f.need(mean >= -tol, names, f"{rule}: a negative {k['mean']} {mean!r} although every {'value' if auc.direction == 'forward' else 'cost'} is at least {auc.lo!r}")
     if mean is not None and p is not None:
-        if _fin(auc.low_end) and not (auc.lo >= 0 and auc.low_end <= 0):
+        if _fin(auc.low_end) and not (auc.lo >= 0 and auc.low_end <= 0 and auc.n > 1):
             f.need(mean >= auc.low_end * p - tol, names, f"{rule}: {k['mean']} {mean!r} below the lowest price {auc.low_end!r} times {k['p']} {p!r}")
         if _fin(auc.high_end):
             f.need(mean <= auc.high_end * p + tol, names, f"{rule}: {k['mean']} {mean!r} above the highest price {auc.high_end!r} times {k['p']} {p!r}")

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import atexit
 import json
-import math
 import os
 import re
 import sys
@@ -46,17 +45,6 @@ _PROMETHEUS_INF_BUCKET = re.compile(r'le="\+Inf"')
 _QUOTED_ECHO = re.compile(r"'(?:[^'\\\n]|\\.)*'")
 
 
-def _refuse_constant(name):
-    raise ValueError(f"non-standard JSON literal {name}")
-
-
-def _finite_float(text):
-    value = float(text)
-    if not math.isfinite(value):
-        raise ValueError(f"number literal {text} is not finite as a double")
-    return value
-
-
 def _media_type(response):
     values = response.headers.get("content-type") or [""]
     return values[0].split(";", 1)[0].strip().lower()
@@ -71,7 +59,7 @@ def no_nan_or_infinity(ctx, response, case):
     media = _media_type(response)
     if media == "application/json" or media.endswith("+json"):
         try:
-            json.loads(body.decode("utf-8"), parse_constant=_refuse_constant, parse_float=_finite_float)
+            consistency.strict_json(body)
         except (UnicodeDecodeError, ValueError) as err:
             raise AssertionError(f"{media} body is not strict JSON with finite numbers: {err}") from None
     elif media.startswith("text/"):

@@ -97,21 +97,6 @@ def send(base, case, retries=RETRIES):
 
 
 # ------------------------------------------------------------------ judging
-def _refuse_constant(name):
-    raise ValueError(f"non-standard JSON literal {name}")
-
-
-def _finite_float(text):
-    value = float(text)
-    if not math.isfinite(value):
-        raise ValueError(f"number literal {text} is not finite as a double")
-    return value
-
-
-def strict_json(body):
-    return json.loads(body.decode("utf-8"), parse_constant=_refuse_constant, parse_float=_finite_float)
-
-
 def _server_error(out, data):
     """Why a 5xx breaks the contract, or None for a proper busy answer."""
     if out.status == 503 and out.headers.get("Retry-After") and isinstance(data, dict) and data.get("type") == BUSY_TYPE:
@@ -124,7 +109,7 @@ def _parse(case, out):
     media = out.media
     try:
         if media == "application/json" or media.endswith("+json"):
-            return strict_json(out.body), None
+            return consistency.strict_json(out.body), None
         text = out.body.decode("utf-8")
         if media == "text/csv":
             return consistency.csv_table(text), None

@@ -78,7 +78,8 @@ UNIFORM01 = {"family": "uniform", "low": 0, "high": 1}
 
 
 def mixture(k, spread=1.0):
-    """k components of six families over a wide range (an invented stress shape)."""
+    """k components of six families, spread over a wide range (an invented stress shape);
+    ``spread`` scales every location and scale, so two such mixtures can sit apart."""
     shapes = [
         lambda i: {"family": "lognormal", "median": (40000 + 1000 * i) * spread, "sigma": 0.2 + 0.02 * i},
         lambda i: {"family": "gamma", "shape": 2 + i, "scale": 3000 * spread},
@@ -88,7 +89,7 @@ def mixture(k, spread=1.0):
                    "high": (10000 * i + 20000) * spread},
         lambda i: {"family": "uniform", "low": 1000 * i * spread, "high": (1000 * i + 30000) * spread},
     ]
-    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": shapes[i % 6](i)} for i in range(k)]}
+    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": shapes[i % len(shapes)](i)} for i in range(k)]}
 
 
 def nested_mixture(k):

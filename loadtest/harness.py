@@ -43,19 +43,9 @@ LOGNORMAL6_ALL_RULES = {"bidder_values": {"family": "lognormal", "median": 62000
                         "rules": ["first_price", "second_price", "ascending", "descending", "all_pay"]}
 
 
-def stress_mixture(k, spread=1.0):
-    """k components of six families, spread over a wide range (an invented stress shape);
-    ``spread`` scales every location and scale, so two such mixtures can sit apart."""
-    shapes = [
-        lambda i: {"family": "lognormal", "median": (40000 + 1000 * i) * spread, "sigma": 0.2 + 0.02 * i},
-        lambda i: {"family": "gamma", "shape": 2 + i, "scale": 3000 * spread},
-        lambda i: {"family": "pareto", "shape": 3.5 + 0.1 * i, "minimum": (20000 + 500 * i) * spread},
-        lambda i: {"family": "weibull", "shape": 1.5 + 0.1 * i, "scale": 50000 * spread},
-        lambda i: {"family": "triangular", "low": 10000 * i * spread, "mode": (10000 * i + 5000) * spread,
-                   "high": (10000 * i + 20000) * spread},
-        lambda i: {"family": "uniform", "low": 1000 * i * spread, "high": (1000 * i + 30000) * spread},
-    ]
-    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": shapes[i % len(shapes)](i)} for i in range(k)]}
+# The invented stress mixture that the hostile fuzz part sends too (fuzz/hostile_cases.py: stdlib only).
+sys.path.insert(0, str(ROOT / "fuzz"))
+from hostile_cases import mixture as stress_mixture  # noqa: E402
 
 
 def free_port():

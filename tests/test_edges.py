@@ -300,3 +300,46 @@ def test_bid_strategy_grid_is_audited_in_order():
     assert not unreliable(out)
     assert all(b <= v for b, v in zip(out["bids"], out["values"]) if b is not None)
     assert math.isfinite(bids[-1])
+
+
+@pytest.mark.parametrize("n", [2, 6])
+def test_a_narrow_triangular_scales_as_the_unit_one(client, n):
+    # Prices are values, and values scale with the support: with costs triangular on [0, w],
+    # every payment and sd is w times that of the unit triangular (a change of units; the unit
+    # case is checked against mpmath in tests/test_auctions_reference.py). Once the squares of
+    # a width of 2e-167 underflowed: award chances of 1 at a maximum price of 0 and sds of 0.
+    w = 1.9622020415018433e-167
+    figures = {}
+    for width in (1.0, w):
+        body = {"bidder_costs": {"family": "triangular", "low": 0, "mode": 0, "high": width}, "bidders": n,
+                "rules": ["first_price", "second_price", "all_pay"]}
+        status, out = post(client, "/v1/revenue", body)
+        assert status == 200 and not unreliable(out)
+        figures[width] = [(r["expected_payment"], r["payment_sd"]) for r in out["results"]]
+        table = S.sweep(M.Triangular(0.0, 0.0, width), "reverse", [n], [0.0, width], ["first_price", "second_price", "all_pay"],
+                        ["expected_payment", "payment_sd", "probability_of_award"])
+        assert [row[5] for row in table["rows"]] == [0.0] * 3 + [1.0] * 3
+        assert [x for row in table["rows"][3:] for x in row[3:5]] == pytest.approx([x for f in figures[width] for x in f], rel=1e-9)
+    assert [x for f in figures[w] for x in f] == pytest.approx([w * x for f in figures[1.0] for x in f], rel=1e-12)
+
+
+def test_reserve_for_values_far_above_the_sellers_own_lies_at_the_virtual_values_root(client):
+    # Myerson (1981): psi(r) = r - S(r)/f(r) = v0, and psi(r) <= r puts r at or above v0. For
+    # power values F = ((x - a)/w)^k, psi(a + w y) = a + w y - w (1 - y^k) / (k y^(k-1)); the
+    # root below is solved by mpmath at 50 digits. Once the reserve came back as the bottom of
+    # the support (-1e150): every probe of the search lay above the root.
+    a, w, k = -1e150, 2e150, 1e10
+    status, out = post(client, "/v1/reserve-price", {"bidder_values": {"family": "power", "exponent": k, "low": a, "high": a + w},
+                                                     "bidders": 6})
+    assert status == 200 and out["regular"] is True
+    with mp.workdps(50):  # in d = 1 - y, as logs of the two sides over w; the root lies near d = log(k / 2) / k
+        d = mp.findroot(lambda d: mp.log(1 - (1 - d) ** k) - mp.log(k) - (k - 1) * mp.log1p(-d) - mp.log(a / w + 1 - d),
+                        (mp.mpf("1e-9"), mp.mpf("1e-8")), solver="illinois")
+        want = float(a + w * (1 - d))
+    assert out["optimal_reserve"] == pytest.approx(want, rel=1e-12)
+
+
+def test_a_reserve_among_values_that_rounding_cannot_tell_apart_is_refused(client):
+    # sd 1e-300 about -1e150: every quantile rounds to -1e150, so no reserve can be placed among them
+    status, out = post(client, "/v1/reserve-price", {"bidder_values": {"family": "normal", "mean": -1e150, "sd": 1e-300}, "bidders": 6})
+    assert status == 422 and out["errors"][0]["field"] == "bidder_values"

@@ -1220,6 +1220,9 @@ def optimal_reserve(model, bidders, v0):
     if len(x) < 2:
         raise ParameterError("bidder_values", "the value model is too concentrated to search for a reserve")
     scale = max(np.max(np.abs(x)), 1e-300)
+    if not x[-1] - x[0] > 8.0 * np.spacing(scale):
+        raise ParameterError("bidder_values", f"the values' spread is below the rounding of their size ({scale:g}): a reserve "
+                                              "cannot be placed among values that double precision does not tell apart")
     regular = bool(np.all(np.isfinite(psi)) and np.all(np.diff(psi) >= -1e-9 * scale))
     lo = model.lower if math.isfinite(model.lower) else float(x[0])
     hi = model.upper if math.isfinite(model.upper) else float(x[-1])
@@ -1230,9 +1233,13 @@ def optimal_reserve(model, bidders, v0):
 
     note = "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend on the number of bidders"
     if regular:
-        if psi[0] >= v0:
+        if psi[0] >= v0 and v0 <= lo:
             r_star = lo
             note += "; here every value's virtual value already exceeds it, so no reserve binds"
+        elif psi[0] >= v0:  # the virtual value is at most the value, so the root lies in [v0, the lowest probe]
+            a, b = v0, float(x[0])
+            r_star = a if vv(a) >= 0.0 else optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300),
+                                                            rtol=1e-15, maxiter=200)
         elif psi[-1] <= v0:
             r_star = hi
             note += "; here no value's virtual value reaches it, so the item is best kept"

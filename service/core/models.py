@@ -716,55 +716,64 @@ class Triangular(ValueModel):
         self.lower, self.c, self.upper = float(low), float(mode), float(high)
         self.w = self.upper - self.lower
         self.fc = (self.c - self.lower) / self.w
+        self.fb = (self.upper - self.c) / self.w  # 1 - fc, without its rounding near fc = 1
+        # the two sides' widths, never 0 in a denominator (a side of width 0 is never selected)
+        self._a = max(self.c - self.lower, 5e-324)
+        self._b = max(self.upper - self.c, 5e-324)
 
     def kink_values(self):
         return [self.c]
 
+    # Every square is taken as a product of two ratios, (x - low)/w times (x - low)/(mode - low),
+    # so that a width of 1e-200 neither underflows nor overflows anything.
+    def _rise(self, x):
+        with np.errstate(over="ignore", invalid="ignore"):
+            return ((x - self.lower) / self.w) * ((x - self.lower) / self._a)
+
+    def _fall(self, x):
+        with np.errstate(over="ignore", invalid="ignore"):
+            return ((self.upper - x) / self.w) * ((self.upper - x) / self._b)
+
     def cdf(self, x):
         x = np.clip(np.asarray(x, float), self.lower, self.upper)
-        left = (x - self.lower) ** 2 / (self.w * max(self.c - self.lower, 1e-300))
-        right = 1.0 - (self.upper - x) ** 2 / (self.w * max(self.upper - self.c, 1e-300))
-        return np.where(x <= self.c, left, right)
+        return np.where(x <= self.c, self._rise(x), 1.0 - self._fall(x))
 
     def sf(self, x):
         x = np.clip(np.asarray(x, float), self.lower, self.upper)
-        left = 1.0 - (x - self.lower) ** 2 / (self.w * max(self.c - self.lower, 1e-300))
-        right = (self.upper - x) ** 2 / (self.w * max(self.upper - self.c, 1e-300))
-        return np.where(x < self.c, left, right)
+        return np.where(x < self.c, 1.0 - self._rise(x), self._fall(x))
 
     def pdf(self, x):
         x = np.asarray(x, float)
-        left = 2 * (x - self.lower) / (self.w * max(self.c - self.lower, 1e-300))
-        right = 2 * (self.upper - x) / (self.w * max(self.upper - self.c, 1e-300))
-        d = np.where(x <= self.c, left, right)
+        with np.errstate(over="ignore", invalid="ignore"):
+            d = np.where(x <= self.c, 2.0 * ((x - self.lower) / self._a) / self.w, 2.0 * ((self.upper - x) / self._b) / self.w)
         return np.where((x >= self.lower) & (x <= self.upper), d, 0.0)
 
     def ppf(self, u):
         u = np.asarray(u, float)
-        left = self.lower + np.sqrt(np.maximum(u, 0) * self.w * (self.c - self.lower))
-        right = self.upper - np.sqrt(np.maximum(1 - u, 0) * self.w * (self.upper - self.c))
+        left = self.lower + self.w * np.sqrt(np.maximum(u, 0) * self.fc)
+        right = self.upper - self.w * np.sqrt(np.maximum(1 - u, 0) * self.fb)
         return np.where(u <= self.fc, left, right)
 
     def isf(self, v):
         v = np.asarray(v, float)
-        left = self.lower + np.sqrt(np.maximum(1 - v, 0) * self.w * (self.c - self.lower))
-        right = self.upper - np.sqrt(np.maximum(v, 0) * self.w * (self.upper - self.c))
+        left = self.lower + self.w * np.sqrt(np.maximum(1 - v, 0) * self.fc)
+        right = self.upper - self.w * np.sqrt(np.maximum(v, 0) * self.fb)
         return np.where(v >= 1 - self.fc, left, right)
 
     def value_parts(self, u, v):
         """Measured from low left of the mode and from high right of it."""
         u, v = np.asarray(u, float), np.asarray(v, float)
         left = np.where(v < 0.5, v >= 1 - self.fc, u <= self.fc)
-        rise = np.sqrt(np.maximum(u, 0) * self.w * (self.c - self.lower))
-        fall = np.sqrt(np.maximum(v, 0) * self.w * (self.upper - self.c))
+        rise = self.w * np.sqrt(np.maximum(u, 0) * self.fc)
+        fall = self.w * np.sqrt(np.maximum(v, 0) * self.fb)
         return np.where(left, self.lower, self.upper), np.where(left, rise, -fall)
 
     def inverse_hazard(self, u, v, anchor, delta):
         """v times dx/du: w (c - low) / (2 (x - low)) left of the mode, w (high - c) / (2 (high - x))
         right of it (there v w (high - c) = (high - x)^2, so the product is (high - x) / 2)."""
         left = anchor == self.lower
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(left, v * self.w * (self.c - self.lower) / (2.0 * np.abs(delta)), 0.5 * np.abs(delta))
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return np.where(left, v * self.w * ((self.c - self.lower) / (2.0 * np.abs(delta))), 0.5 * np.abs(delta))
 
 
 class Pareto(ValueModel):

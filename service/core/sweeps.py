@@ -147,17 +147,18 @@ def _finite_sum(a):
         return float(np.sum(np.where(np.isfinite(a), a, 0.0)))
 
 
-def _conditional_sd(p_sale, mass, centre, first, second):
+def _conditional_sd(p_sale, mass, centre, first, second, unit):
     """The revenue's sd (price on a sale, 0 otherwise) from the integrals over the sale of
-    the price's offset from ``centre`` (``first``) and of its square (``second``), ``mass``
-    the sale's chance on the nodes: Var = p Var_sale + p (1 - p) mean^2 (law of total
-    variance), the mean's part through hypot so that it does not overflow. Offsets from a
-    centre in the bulk keep the spread's digits wherever the values sit."""
+    the price's offset from ``centre`` (``first``) and of its square (``second``), both in
+    units of ``unit`` (a power of two, ``orderstats.sd_scale``, so that no square overflows
+    or underflows), ``mass`` the sale's chance on the nodes: Var = p Var_sale + p (1 - p)
+    mean^2 (law of total variance), the mean's part through hypot. Offsets from a centre in
+    the bulk keep the spread's digits wherever the values sit."""
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         safe = np.where(mass > 0, mass, 1.0)
         shift = np.where(mass > 0, first / safe, 0.0)
         sd_sale = np.sqrt(np.maximum(np.where(mass > 0, second / safe - shift**2, 0.0), 0.0))
-        return np.sqrt(p_sale) * np.hypot(sd_sale, np.sqrt(np.maximum(1.0 - p_sale, 0.0)) * (centre + shift))
+        return np.sqrt(p_sale) * np.hypot(unit * sd_sale, np.sqrt(np.maximum(1.0 - p_sale, 0.0)) * (centre + unit * shift))
 
 
 def _second_price_block(model, n, floor, binds, s_r, p_sale):
@@ -177,8 +178,10 @@ def _second_price_block(model, n, floor, binds, s_r, p_sale):
         at_floor = np.where(pr > 0, floor - ref - c, 0.0)
         at_reserve, above = pr * np.where(pr > 0, floor, 0.0), _weigh(W2, d2 * v2)
         rev = at_reserve + above
+        unit = os_.sd_scale(o2, at_floor)
+        o2, at_floor = o2 / unit, at_floor / unit
         first, second = pr * at_floor + _weigh(W2, d2 * o2), pr * at_floor**2 + _weigh(W2, d2 * o2 * o2)
-        sd = _conditional_sd(p_sale, pr + _weigh(W2, d2), ref + c, first, second)
+        sd = _conditional_sd(p_sale, pr + _weigh(W2, d2), ref + c, first, second, unit)
     return (rev, sd, rev), _lost(rev, at_reserve, above) | _beyond_nodes(q2, binds, s_r, k)
 
 
@@ -208,17 +211,22 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
     # a variance that does not exist (a heavy tail) may overflow here; the caller leaves it out
     with np.errstate(over="ignore", invalid="ignore"):
         c = _finite_sum(nb.first_rule(nb.dt) * outer * b_off)
-        b_off = b_off - c
-        first = _weigh(W1, outer * b_off) + delta * n * g_r * sx
-        second = _weigh(W1, outer * b_off**2) + 2.0 * delta * g_r * (_weigh(W1, n * single * b_off)) + delta**2 * i3
-        out = {"fp": (rev_fp, _conditional_sd(p_sale, _weigh(W1, outer), ref + c, first, second), rev_fp)}
+        unit = os_.sd_scale(b_off - c, delta)
+        b_off, du = (b_off - c) / unit, delta / unit
+        first = _weigh(W1, outer * b_off) + du * n * g_r * sx
+        second = _weigh(W1, outer * b_off**2) + 2.0 * du * g_r * (_weigh(W1, n * single * b_off)) + du**2 * i3
+        out = {"fp": (rev_fp, _conditional_sd(p_sale, _weigh(W1, outer), ref + c, first, second, unit), rev_fp)}
         a0 = nb.first_rule(nb.rivals) * b0  # a_r(v) = F(v)^(n-1) b_0(v) + G(r) delta
         lift = g_r * delta
         ea0, paid = _weigh(W1, single * a0), _weigh(W1, outer * a0)
         ea = ea0 + lift * sx
-        ea2 = _weigh(W1, single * a0 * a0) + 2.0 * lift * ea0 + lift**2 * sx
         winner_pays = paid + lift * p_sale
-        out["ap"] = (n * ea, np.sqrt(n * np.maximum(ea2 - ea * ea, 0.0)), winner_pays)
+        # the sd of one payment from its moments in units of a power of two, so no square under- or overflows
+        unit = os_.sd_scale(a0, lift)
+        a0u, liftu = a0 / unit, lift / unit
+        ea0u = _weigh(W1, single * a0u)
+        eau, ea2u = ea0u + liftu * sx, _weigh(W1, single * a0u * a0u) + 2.0 * liftu * ea0u + liftu**2 * sx
+        out["ap"] = (n * ea, unit * np.sqrt(n * np.maximum(ea2u - eau * eau, 0.0)), winner_pays)
     values = nb.first_rule(nb.values)
     out["e1"] = _weigh(W1, outer * values)
     # floor <= a bid <= the value, so |revenue| <= P(sale) |floor| + E[|X1|; sale], and each
