@@ -639,7 +639,7 @@ def quote(query, value, warnings=None):
         f.need(value >= -tol, (metric,), f"{metric} = {value!r} is negative")
     elif metric == "efficiency":
         f.need(value <= 1 + REL, (metric,), f"efficiency = {value!r} exceeds 1")
-    elif metric in ("expected_revenue", "expected_payment") and auc.lo >= 0:
+    elif metric in ("expected_revenue", "expected_payment") and auc.lo >= 0 and auc.low_end >= 0:
         f.need(value >= -tol, (metric,), f"a negative {metric} {value!r} although the support starts at {auc.lo!r}")
     elif metric in ("mean_highest", "mean_second", "mean_lowest", "mean_second_lowest", "optimal_reserve"):
         _within(f, (metric,), value, auc.lo, auc.hi, tol, metric)
