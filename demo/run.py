@@ -270,7 +270,7 @@ def millbrook(bs):
     tv = bs.top_values(**body)
     n = body["bidders"]
     section(f"Expected lowest costs with {n} bidders")
-    names = {n: "lowest", n - 1: "second-lowest"}
+    names = {1: "lowest", 2: "second-lowest"}  # bidder_costs: ranks count from the lowest
     print(table(["rank", "mean", "sd", "5%", "median", "95%"],
                 [[names.get(r["rank"], r["rank"]), money(r["mean"]), money(r["sd"]), money(quantile(r["quantiles"], 0.05)),
                   money(quantile(r["quantiles"], 0.5)), money(quantile(r["quantiles"], 0.95))] for r in tv["results"]]))

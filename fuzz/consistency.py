@@ -597,29 +597,47 @@ def _first(query):
     return out
 
 
-def _query_number(raw):
+def _query_number(raw, decimal="."):
     try:
-        return float(raw)
-    except (TypeError, ValueError):
+        return float(raw.replace(",", ".") if decimal == "," else raw)
+    except (TypeError, ValueError, AttributeError):
         return None
+
+
+def door_marks(query):
+    """(decimal mark, CSV field separator) a GET door writes for this query."""
+    q = _first(query or {})
+    decimal = q.get("decimal", ".")
+    return decimal, {",": ",", ";": ";", "tab": "\t"}.get(q.get("separator", ";" if decimal == "," else ","), ",")
+
+
+def door_number(text, decimal="."):
+    """A quote's text as a number, or None for an error line (errors=inline answers 200 with one)."""
+    text = text.strip()
+    if text.startswith("error:"):
+        return None
+    value = float(text.replace(",", ".") if decimal == "," else text)
+    if not math.isfinite(value):
+        raise ValueError(f"the quote is {text!r}")
+    return value
 
 
 def query_case(q):
     """The POST body the GET doors build from a query (the model flattened), enough to judge figures."""
-    model = {"family": q.get("family")}
+    model, decimal = {"family": q.get("family")}, q.get("decimal", ".")
     for k, v in q.items():
         if k in ("family", "direction", "metric", "rule", "bidders", "reserve", "seller_value", "buyer_value",
-                 "reserves", "rules", "metrics") or k.startswith(("bidders_", "reserves_")):
+                 "reserves", "rules", "metrics", "decimal", "errors", "separator") or k.startswith(("bidders_", "reserves_")):
             continue
         if k.startswith("truncate_"):
-            model.setdefault("truncate", {})[k[len("truncate_"):]] = _query_number(v)
+            model.setdefault("truncate", {})[k[len("truncate_"):]] = _query_number(v, decimal)
         else:
-            model[k] = _query_number(v)
+            model[k] = _query_number(v, decimal)
     side = "bidder_costs" if q.get("direction") == "reverse" else "bidder_values"
-    body = {side: model, "bidders": _query_number(q.get("bidders")) or 1}
+    body = {side: model, "bidders": _query_number(q.get("bidders"), decimal) or 1}
     for k in ("reserve", "seller_value", "buyer_value"):
         if k in q:
-            body[k] = _query_number(q[k])
+            body[k] = _query_number(q[k], decimal)
     return body
 
 
@@ -646,9 +664,9 @@ def quote(query, value, warnings=None):
     return f.unflagged(warnings)
 
 
-def csv_table(text):
+def csv_table(text, decimal=".", separator=","):
     """A CSV answer as {columns, rows}: numbers as floats, empty cells as None, other cells as text."""
-    rows = list(csv.reader(io.StringIO(text)))
+    rows = list(csv.reader(io.StringIO(text), delimiter=separator))
     if not rows:
         raise ValueError("no header row")
     cols, out = rows[0], []
@@ -664,7 +682,7 @@ def csv_table(text):
             elif name == "bidders":
                 cells.append(int(cell))
             else:
-                x = float(cell)
+                x = float(cell.replace(",", ".") if decimal == "," else cell)
                 if not math.isfinite(x):
                     raise ValueError(f"{name} holds {cell!r}")
                 cells.append(x)
@@ -676,4 +694,4 @@ def sweep_csv(query, text):
     """A GET /v1/sweeps.csv table against the sweep's laws (a CSV has no warnings: refuse or be right)."""
     body = query_case(_first(query))
     body.pop("bidders", None)
-    return sweep(body, csv_table(text))
+    return sweep(body, csv_table(text, *door_marks(query)))

@@ -106,7 +106,7 @@ def _figure_problems(case, response):
         if media == "application/json":
             data = json.loads(text)
             return consistency.quote(case.query or {}, data.get("value"), data.get("warnings"))
-        return consistency.quote(case.query or {}, float(text.strip()))
+        return consistency.quote(case.query or {}, consistency.door_number(text, consistency.door_marks(case.query)[0]))
     if path == "/v1/sweeps.csv":
         return consistency.sweep_csv(case.query or {}, text)
     if path == "/v1/sweeps" and media == "text/csv":

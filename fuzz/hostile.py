@@ -23,7 +23,6 @@ to ``out``/hostile/ with a curl line that sends it again.
 from __future__ import annotations
 
 import json
-import math
 import os
 import threading
 import time
@@ -112,14 +111,9 @@ def _parse(case, out):
             return consistency.strict_json(out.body), None
         text = out.body.decode("utf-8")
         if media == "text/csv":
-            return consistency.csv_table(text), None
+            return consistency.csv_table(text, *consistency.door_marks(case.query)), None
         if media == "text/plain" and case.path in GET_DOORS:
-            if out.status == 200:
-                value = float(text.strip())
-                if not math.isfinite(value):
-                    raise ValueError(f"the quote is {text.strip()!r}")
-                return value, None
-            return text, None
+            return (consistency.door_number(text, consistency.door_marks(case.query)[0]) if out.status == 200 else text), None
     except (UnicodeDecodeError, ValueError, RecursionError) as err:
         return None, f"{media} body is not strict: {str(err)[:200]}"
     return None, f"status {out.status} answered as {media or 'no media type'}: {out.body[:120]!r}"

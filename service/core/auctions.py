@@ -33,12 +33,16 @@ from .models import Reflected
 from .topvalues import finite
 
 RULES = ("first_price", "second_price", "ascending", "descending", "all_pay")
-ASSUMPTIONS = [
-    "independent private values drawn from the stated value model",
+_COMMON_ASSUMPTIONS = [
     "symmetric, risk-neutral bidders",
     "symmetric equilibrium play (truthful bidding where it is dominant)",
     "a single indivisible item or contract, no entry costs, no collusion",
 ]
+#: The assumptions under which the figures hold, in the caller's direction.
+ASSUMPTIONS = {
+    "forward": ["independent private values drawn from the stated value model", *_COMMON_ASSUMPTIONS],
+    "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
+}
 _GL = os_.GAUSS_RULES
 #: Below this chance that one value beats the reserve, the rank quadratures' windows
 #: (which stop at s = 1e-300) cannot hold the weight below the cut; the price is then the
@@ -1097,7 +1101,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
     return audit.revenue({
         "direction": direction,
-        "assumptions": ASSUMPTIONS,
+        "assumptions": ASSUMPTIONS[direction],
         "bidders": bidders,
         "reserve": reserve,
         "results": results,
@@ -1193,7 +1197,7 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
         warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
     warnings += _no_sale_note(auc, direction)
     return audit.bids({"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
-                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS, "warnings": warnings}, model, reserve)
+                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS[direction], "warnings": warnings}, model, reserve)
 
 
 def _sp_payoff(model, n, r, v0):
@@ -1271,7 +1275,9 @@ def reserve_report(model, direction, bidders, own_value):
                     .replace("over reserves", "over maximum prices"))
     _check_price_exists(fmodel, bidders)
     payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
-    _, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
+    payoff0, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
+    # the buyer's payoff, own_value P(award) - payment, from the forward twin's revenue + v0 P(no sale)
+    to_payoff = (lambda x: x) if direction == "forward" else (lambda x: x + own_value)
     sign = 1.0 if direction == "forward" else -1.0
     word, chance = ("revenue", "sale") if direction == "forward" else ("payment", "award")
     out = {
@@ -1281,10 +1287,11 @@ def reserve_report(model, direction, bidders, own_value):
         f"expected_{word}_at_optimum": finite(sign * rev),
         f"expected_{word}_without_reserve": finite(None if rev0 is None else sign * rev0),
         f"probability_of_{chance}_at_optimum": finite(p_sale),
-        "expected_payoff_at_optimum": finite(payoff if direction == "forward" else payoff + own_value),
+        "expected_payoff_at_optimum": finite(to_payoff(payoff)),
+        "expected_payoff_without_reserve": finite(None if payoff0 is None else to_payoff(payoff0)),
         "regular": regular,
         "note": note,
-        "assumptions": ASSUMPTIONS,
+        "assumptions": ASSUMPTIONS[direction],
         "warnings": [],
     }
     return audit.reserve_price(out, model, own_value)

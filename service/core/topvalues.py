@@ -9,6 +9,7 @@ import numpy as np
 from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
+from .models import Reflected
 
 #: Points of the joint density evaluated at once.
 _CHUNK = 512
@@ -67,7 +68,26 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
         out["expected_gap"] = finite(gap)
     out["numerics"] = _numerics(summaries, gap_error)
     out["warnings"] = warnings
+    out["ranks_counted_from"] = "highest"
     return audit.top_values(out, model)
+
+
+def lowest_costs(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
+    """The same report for costs, rank k counted from the lowest: the k-th lowest of n costs C
+    is the k-th highest of the values X = -C (``models.Reflected``), so each figure is the
+    values' report mapped back: means and quantiles negated (cost quantile p is minus the
+    value quantile 1 - p), the curve mirrored, the sds and the expected gap unchanged."""
+    out = top_values(Reflected(model), bidders, ranks, [1.0 - p for p in quantiles], curve_points)
+    for item in out["results"]:
+        item["mean"] = finite(None if item["mean"] is None else -item["mean"])
+        item["quantiles"] = [{"p": float(p), "value": finite(None if q["value"] is None else -q["value"])}
+                             for p, q in zip(quantiles, item["quantiles"])]
+        if "curve" in item:
+            c = item["curve"]
+            item["curve"] = {"x": [finite(None if x is None else -x) for x in c["x"][::-1]], "pdf": c["pdf"][::-1],
+                             "cdf": [finite(None if y is None else 1.0 - y) for y in c["cdf"][::-1]]}
+    out["ranks_counted_from"] = "lowest"
+    return out
 
 
 def _triangle_mass(log_dens, axis):

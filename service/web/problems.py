@@ -4,7 +4,7 @@ from __future__ import annotations
 import json
 import logging
 
-from flask import Response
+from flask import Response, request
 from marshmallow import ValidationError
 from werkzeug.exceptions import HTTPException
 
@@ -90,8 +90,18 @@ def register(app):
 
     @app.errorhandler(HTTPException)
     def _http(err):
-        resp = problem(err.code, err.name, err.description or err.name)
-        if err.code == 405 and hasattr(err, "valid_methods") and err.valid_methods:
+        allowed = [m for m in getattr(err, "valid_methods", None) or () if m not in ("HEAD", "OPTIONS")]
+        detail = err.description or err.name
+        if err.code == 405 and allowed:
+            how = ("POST with a JSON body (Content-Type: application/json)" if "POST" in allowed
+                   else "GET with the inputs as query parameters")
+            detail = f"{request.path} answers {' and '.join(allowed)}: send {how}."
+        accept = request.accept_mimetypes
+        if max(accept["text/plain"], accept["text/csv"]) > accept["application/json"]:  # a text caller: one plain line
+            resp = Response(f"error: {err.name}: {detail}\n", status=err.code, mimetype="text/plain")
+        else:
+            resp = problem(err.code, err.name, detail)
+        if err.code == 405 and allowed:
             resp.headers["Allow"] = ", ".join(err.valid_methods)
         return resp
 

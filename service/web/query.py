@@ -1,8 +1,9 @@
-"""Flat query strings for the GET doors (spreadsheets): numbers, the value model
-and error lines. The query becomes the body of a POST resource, loaded by that
-resource's own schema, so the rules and caps stay in one place."""
+"""Flat query strings for the GET doors (spreadsheets): numbers in either decimal mark,
+the value model, and error lines a cell can show. The query becomes the body of a POST
+resource, loaded by that resource's own schema, so the rules and caps stay in one place."""
 from __future__ import annotations
 
+import difflib
 import re
 
 from flask import Response
@@ -12,26 +13,74 @@ from ..core import models as M
 from .problems import flatten
 
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
+#: A list item that no one writes as a number of its own: digits with a leading 0, as the
+#: thousands groups of "40,000" or "1,050" are when a thousands separator splits them off.
+_THOUSANDS_GROUP = re.compile(r"^0\d+$")
 MODEL_KEYS = sorted({k for cls in M.PARAMETRIC.values() for k in cls.parameters} | {"truncate_low", "truncate_high"})
+#: Parameters every GET door takes: how numbers are written and how errors are answered.
+FORMAT_KEYS = ("decimal", "errors")
 
 
-def number(key, raw, errors):
-    """A query value as a JSON number: digits, '.', an exponent; nothing else."""
-    if not _NUMBER.match(raw):
-        errors[key] = [f"Must be a number written with digits and '.', not {raw!r}."]
-        return None
-    x = float(raw)
-    return int(x) if x.is_integer() and "." not in raw and "e" not in raw.lower() else x
+class Door:
+    """How one GET request writes its numbers and wants its errors: ``decimal`` is the mark
+    in single numbers ('.' or ','); list items are separated by ';' when it is ',' (as
+    comma-decimal spreadsheets do), else by ','; ``inline`` answers an error as 200 text."""
 
+    def __init__(self, args, errors):
+        self.decimal = args.get("decimal", ".")
+        if self.decimal not in (".", ","):
+            errors["decimal"] = ["Must be '.' (the default) or ','."]
+            self.decimal = "."
+        self.items = ";" if self.decimal == "," else ","
+        mode = args.get("errors", "status")
+        if mode not in ("status", "inline"):
+            errors["errors"] = ["Must be status (the default: a 4xx answer) or inline (a 200 answer whose text is the error line)."]
+        self.inline = mode == "inline"
 
-def number_list(key, raw, errors):
-    """A comma-separated list of numbers."""
-    out, bad = [], {}
-    for i, part in enumerate(raw.split(",")):
-        out.append(number(f"{key}.{i}", part.strip(), bad))
-    if bad:
-        errors[key] = [msg for msgs in bad.values() for msg in msgs]
-    return out
+    def number(self, key, raw, errors):
+        """A query value as a JSON number: digits, the decimal mark, an exponent; nothing else."""
+        text = raw.strip()
+        other = "," if self.decimal == "." else "."
+        if other in text:
+            hint = ("set decimal=, to write it with a comma" if other == "," else "with decimal=, write the decimal mark as ','")
+            errors[key] = [f"{raw!r} is not a number here: {hint}, and drop any thousands separator."]
+            return None
+        text = text.replace(",", ".") if self.decimal == "," else text
+        if not _NUMBER.match(text):
+            errors[key] = [f"Must be a number written with digits and {self.decimal!r}, not {raw!r}."]
+            return None
+        x = float(text)
+        return int(x) if x.is_integer() and "." not in text and "e" not in text.lower() else x
+
+    def number_list(self, key, raw, errors):
+        """A list of numbers separated by ``items``; an item that can only be a thousands group
+        split off by a thousands separator is refused, rather than read as a number of its own."""
+        parts = [p.strip() for p in raw.split(self.items)]
+        for i, part in enumerate(parts):
+            if _THOUSANDS_GROUP.match(part):
+                whole = (parts[i - 1] + self.items if i else "") + part
+                errors[key] = [f"{whole!r} looks like one number written with a thousands separator, which splits it into "
+                               f"two items: write numbers without thousands separators ({whole.replace(self.items, '')!r})."]
+                return None
+        out, bad = [], {}
+        for i, part in enumerate(parts):
+            out.append(self.number(f"{key}.{i}", part, bad))
+        if bad:
+            errors[key] = [msg for msgs in bad.values() for msg in msgs]
+        return out
+
+    def names(self, raw):
+        """A list of names (rules, metrics): separated by ',' or ';' alike."""
+        return [x.strip() for x in re.split(r"[,;]", raw)]
+
+    def format(self, x):
+        """A number as text with this door's decimal mark, at full precision."""
+        text = repr(float(x))
+        return text.replace(".", ",") if self.decimal == "," else text
+
+    def error(self, err, status=422):
+        """The error line: as a 200 answer with ``inline``, else with the error's status."""
+        return text_error(err, 200 if self.inline else status)
 
 
 def direction(args, errors):
@@ -41,7 +90,7 @@ def direction(args, errors):
     return d
 
 
-def case_body(args, errors, keys):
+def case_body(args, door, errors, keys):
     """The value model (flattened in the query) under its direction's name, plus ``keys``."""
     family = args.get("family")
     if family not in M.PARAMETRIC:
@@ -50,7 +99,7 @@ def case_body(args, errors, keys):
     model = {"family": family}
     for key in MODEL_KEYS:
         if key in args:
-            value = number(key, args[key], errors)
+            value = door.number(key, args[key], errors)
             if key.startswith("truncate_"):
                 model.setdefault("truncate", {})[key.removeprefix("truncate_")] = value
             else:
@@ -58,21 +107,31 @@ def case_body(args, errors, keys):
     body = {("bidder_values" if direction(args, errors) == "forward" else "bidder_costs"): model}
     for key in keys:
         if key in args:
-            body[key] = number(key, args[key], errors)
+            body[key] = door.number(key, args[key], errors)
     return body
 
 
 def unknown(args, known, errors):
-    """Unknown names, and names given more than once (which value was meant is unknowable)."""
+    """Unknown names (with the closest known one, or the right case), and names given more
+    than once (which value was meant is unknowable)."""
+    known = set(known) | set(FORMAT_KEYS)
+    by_lower = {k.lower(): k for k in known}
     for key in args:
         if key not in known:
-            errors[key] = ["Unknown parameter (mixtures, tables and samples need POST)."]
+            if key.lower() in by_lower:
+                errors[key] = [f"Parameter names are lower case: write {by_lower[key.lower()]!r}."]
+                continue
+            close = difflib.get_close_matches(key, sorted(known), n=1, cutoff=0.6)
+            hint = f"; did you mean {close[0]!r}?" if close else " (mixtures, tables and samples need POST)."
+            errors[key] = ["Unknown parameter" + hint]
         elif len(args.getlist(key)) > 1:
             errors[key] = [f"Given {len(args.getlist(key))} times; give each parameter once."]
 
 
 def flat_errors(err):
-    """Query parameters are flat: report ``median``, not ``bidder_values.median``."""
+    """Query parameters are flat: report ``median``, not ``bidder_values.median``, and a
+    range's ``reserves_steps``, not ``reserves.steps``; a list's item errors under the
+    list's own name."""
     messages = err.messages
     if not isinstance(messages, dict):
         return err
@@ -85,6 +144,11 @@ def flat_errors(err):
                         out[f"truncate_{tk}"] = tv
                 else:
                     out[k] = v
+        elif isinstance(val, dict) and all(isinstance(k, str) and k != "_schema" for k in val):
+            for k, v in val.items():
+                out[f"{key}_{k}"] = v
+        elif isinstance(val, dict):
+            out[key] = [m for e in flatten(val) for m in [e["message"]]]
         else:
             out[key] = val
     return ValidationError(out)

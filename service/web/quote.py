@@ -11,9 +11,10 @@ import math
 from flask import Blueprint, Response, request
 from marshmallow import ValidationError
 
+from ..core.budget import BudgetSpent
 from . import auctions, query, top_values
 from .io import json_response
-from .problems import validation_problem
+from .problems import spent_error, validation_problem
 
 bp = Blueprint("quote", __name__)
 
@@ -28,20 +29,32 @@ METRICS = {
 _CASE_KEYS = ("bidders", "reserve", "seller_value", "buyer_value")
 
 
-def _body_from_query(args):
+def _rule(args, door, errors):
+    """The one rule a quote is for: ``rule`` or ``rules`` (as on the other doors), one name."""
+    given = [k for k in ("rule", "rules") if k in args]
+    if len(given) > 1:
+        errors["rules"] = ["Give rule or rules, not both."]
+    names = door.names(args[given[0]]) if given else ["second_price"]
+    if len(names) != 1:
+        errors[given[0]] = ["A quote is one number: give one rule (a sweep takes several)."]
+    return names[0]
+
+
+def _body_from_query(args, door):
     """(metric, direction, rule, POST body) from the query, or ValidationError."""
     errors = {}
-    query.unknown(args, {"metric", "rule", "direction", "family", *_CASE_KEYS, *query.MODEL_KEYS}, errors)
+    query.unknown(args, {"metric", "rule", "rules", "direction", "family", *_CASE_KEYS, *query.MODEL_KEYS}, errors)
     metric = args.get("metric")
     if metric not in METRICS:
         errors["metric"] = [f"One of: {', '.join(METRICS)}."]
-    body = query.case_body(args, errors, _CASE_KEYS)
+    rule = _rule(args, door, errors)
+    body = query.case_body(args, door, errors, _CASE_KEYS)
     direction = query.direction(args, {})
     if "metric" not in errors and METRICS.get(metric) not in (None, direction) and "direction" not in errors:
         errors["metric"] = [f"{metric} belongs to a {METRICS[metric]} auction; set direction={METRICS[metric]} or pick another metric."]
     if errors:
         raise ValidationError(errors)
-    return metric, direction, args.get("rule", "second_price"), body
+    return metric, direction, rule, body
 
 
 def _value(metric, direction, rule, body):
@@ -62,15 +75,10 @@ def _value(metric, direction, rule, body):
         body.pop("buyer_value", None)
         if "reserve" in body:
             raise ValidationError({"reserve": ["Not used by this metric."]})
-        costs = body.pop("bidder_costs")
-        # For costs the lowest rank k from the bottom is rank n-k+1 from the top.
-        n = body.get("bidders")
-        ranks = {1: n, 2: n - 1} if isinstance(n, int) and n >= 2 else {1: n}
-        out = top_values.top_values_handler({"bidder_values": costs, **body, "ranks": sorted(set(ranks.values())), "quantiles": []})
+        out = top_values.top_values_handler({**body, "quantiles": []})
         by_rank = {r["rank"]: r["mean"] for r in out["results"]}
-        low1, low2 = by_rank.get(ranks.get(1)), by_rank.get(ranks.get(2))
-        gap = None if low1 is None or low2 is None else low2 - low1
-        return {"mean_lowest": low1, "mean_second_lowest": low2, "expected_gap": gap}[metric], out["warnings"]
+        value = {"mean_lowest": by_rank.get(1), "mean_second_lowest": by_rank.get(2), "expected_gap": out.get("expected_gap")}[metric]
+        return value, out["warnings"]
     body["rules"] = [rule]
     out = auctions.revenue_handler(body)
     return out["results"][0][metric], out["warnings"]
@@ -83,18 +91,23 @@ def _wants_json():
 
 @bp.get("/v1/quote")
 def get_quote():
-    as_json = wants_json()
+    as_json, errors = wants_json(), {}
+    door = query.Door(request.args, errors)
     try:
-        metric, direction, rule, body = _body_from_query(request.args)
+        if errors:
+            raise ValidationError(errors)
+        metric, direction, rule, body = _body_from_query(request.args, door)
         value, warnings = _value(metric, direction, rule, body)
         if value is None or not math.isfinite(value):
             raise ValidationError({"metric": ["This figure does not exist for the model given: " + "; ".join(warnings or ["no value"])]})
+    except BudgetSpent:
+        return validation_problem(spent_error()) if as_json and not door.inline else door.error(spent_error())
     except ValidationError as err:
         err = query.flat_errors(err)
-        return validation_problem(err) if as_json else query.text_error(err)
+        return validation_problem(err) if as_json and not door.inline else door.error(err)
     if as_json:
         return json_response({"metric": metric, "value": value, "direction": direction, "rule": rule, "warnings": warnings})
-    return Response(repr(float(value)), mimetype="text/plain")
+    return Response(door.format(value), mimetype="text/plain")
 
 
 def wants_json():

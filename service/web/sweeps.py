@@ -10,28 +10,43 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 
 from .. import settings
 from ..core import auctions, sweeps
+from ..core.budget import BudgetSpent
 from . import query
 from . import admission
 from .auctions import _AuctionRequest, _case, _model_work
 from .fields import CappedList, StrictFloat, StrictInteger
 from .io import json_body, json_response, load
-from .problems import validation_problem
+from .problems import spent_error, validation_problem
 from .top_values import core_call
 
 bp = Blueprint("sweeps", __name__)
 CAPS = settings.CAPS
 
 
-class IntRange(Schema):
+class _Range(Schema):
+    """A range from ``from`` to ``to``, both included, by ``step`` (the increment) or
+    ``steps`` (the number of points), not both."""
+
+    @validates_schema
+    def _one_spacing(self, data, **kw):
+        if "step" in data and "steps" in data:
+            raise ValidationError({"steps": ["Give step (the increment) or steps (the number of points), not both."]})
+        if data.get("to", 0) < data.get("from_", 0):
+            raise ValidationError({"to": ["Must be at least from."]})
+
+
+class IntRange(_Range):
     from_ = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True, data_key="from")
     to = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
-    step = StrictInteger(minimum=1, load_default=1)
+    step = StrictInteger(minimum=1)
+    steps = StrictInteger(minimum=1, maximum=CAPS.sweep_axis)
 
 
-class FloatRange(Schema):
+class FloatRange(_Range):
     from_ = StrictFloat(required=True, data_key="from")
     to = StrictFloat(required=True)
-    steps = StrictInteger(minimum=1, maximum=CAPS.sweep_axis, required=True)
+    step = StrictFloat()
+    steps = StrictInteger(minimum=1, maximum=CAPS.sweep_axis)
 
 
 class _ListOrRange(fields.Field):
@@ -59,22 +74,44 @@ class _ListOrRange(fields.Field):
         raise ValidationError("Must be a list or a range object.")
 
 
-def _int_range(r):
-    if r["to"] < r["from_"]:
-        raise ValidationError({"to": ["Must be at least from."]})
-    count = (r["to"] - r["from_"]) // r["step"] + 1
+def _count_of(r, what):
+    """The number of points of a range given by its ``step``, within the axis cap."""
+    count = int((r["to"] - r["from_"]) / r["step"] * (1.0 + 1e-12)) + 1
     if count > CAPS.sweep_axis:
-        raise ValidationError({"step": [f"The range holds {count} bidder counts; the cap is {CAPS.sweep_axis} (BIDSTATS_MAX_SWEEP_AXIS)."]})
-    return list(range(r["from_"], r["to"] + 1, r["step"]))
+        raise ValidationError({"step": [f"The range holds {count} {what}; the cap is {CAPS.sweep_axis} (BIDSTATS_MAX_SWEEP_AXIS)."]})
+    return count
+
+
+def _single(r):
+    if r["to"] != r["from_"]:
+        raise ValidationError({"steps": ["One point cannot hold both ends of the range: give steps of at least 2."]})
+    return [r["from_"]]
+
+
+def _int_range(r):
+    if "steps" in r:
+        if r["steps"] == 1:
+            return _single(r)
+        step, left = divmod(r["to"] - r["from_"], r["steps"] - 1)
+        if left or not step:
+            raise ValidationError({"steps": [f"{r['steps']} points from {r['from_']} to {r['to']} do not fall on whole numbers of "
+                                             "bidders: give another number of steps, or step (the increment)."]})
+        return list(range(r["from_"], r["to"] + 1, step))
+    step = r.get("step", 1)
+    return list(range(r["from_"], r["from_"] + _count_of({**r, "step": step}, "bidder counts") * step, step))
 
 
 def _float_range(r):
-    if r["to"] < r["from_"]:
-        raise ValidationError({"to": ["Must be at least from."]})
-    if r["steps"] == 1:
-        return [r["from_"]]
-    width = (r["to"] - r["from_"]) / (r["steps"] - 1)
-    return [r["from_"] + i * width for i in range(r["steps"] - 1)] + [r["to"]]
+    if "steps" in r:
+        if r["steps"] == 1:
+            return _single(r)
+        width = (r["to"] - r["from_"]) / (r["steps"] - 1)
+        return [r["from_"] + i * width for i in range(r["steps"] - 1)] + [r["to"]]
+    if "step" not in r or not r["step"] > 0:
+        raise ValidationError({"step": ["Give step (a positive increment) or steps (the number of points)."]})
+    count = _count_of(r, "reserves")
+    points = [r["from_"] + i * r["step"] for i in range(count)]
+    return points[:-1] + [r["to"]] if abs(points[-1] - r["to"]) <= 1e-9 * abs(r["step"]) else points
 
 
 class SweepRequest(_AuctionRequest):
@@ -111,13 +148,14 @@ def sweeps_handler(body):
 HANDLERS = {"/v1/sweeps": sweeps_handler}
 
 
-def to_csv(table):
-    """The table as CSV: a header row, numbers at full precision, null as empty."""
+def to_csv(table, decimal=".", separator=","):
+    """The table as CSV: a header row, numbers at full precision with the ``decimal`` mark,
+    null as empty, fields separated by ``separator``."""
     buf = _io.StringIO()
-    w = csv.writer(buf, lineterminator="\r\n")
+    w = csv.writer(buf, delimiter=separator, lineterminator="\r\n")
     w.writerow(table["columns"])
     for row in table["rows"]:
-        w.writerow(["" if x is None else (repr(x) if isinstance(x, float) else x) for x in row])
+        w.writerow(["" if x is None else (repr(x).replace(".", decimal) if isinstance(x, float) else x) for x in row])
     return Response(buf.getvalue(), mimetype="text/csv")
 
 
@@ -132,33 +170,49 @@ def post_sweeps():
     return to_csv(table) if _wants_csv() else json_response(table)
 
 
-_LIST_KEYS = ("bidders", "reserves", "rules", "metrics")
-_RANGE_KEYS = ("bidders_from", "bidders_to", "bidders_step", "reserves_from", "reserves_to", "reserves_steps")
+_RANGE = ("from", "to", "step", "steps")
+SEPARATOR_NAMES = {",": ",", ";": ";", "tab": "\t"}
+_KNOWN = {"direction", "family", "seller_value", "buyer_value", "rule", "rules", "metrics", "separator", "bidders", "reserves",
+          *query.MODEL_KEYS, *(f"{axis}_{k}" for axis in ("bidders", "reserves") for k in _RANGE)}
+
+
+def _axes(args, door, body, errors):
+    """Each axis from its list (items separated as ``door`` says) or its range keys, not both."""
+    for axis in ("bidders", "reserves"):
+        ranged = [f"{axis}_{k}" for k in _RANGE if f"{axis}_{k}" in args]
+        if axis in args and ranged:
+            errors[axis] = [f"Give either the list {axis} or the range {', '.join(ranged)}, not both."]
+        elif axis in args:
+            body[axis] = door.number_list(axis, args[axis], errors)
+        elif ranged:
+            body[axis] = {k: door.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors) for k in _RANGE if f"{axis}_{k}" in args}
 
 
 @bp.get("/v1/sweeps.csv")
 def get_sweeps_csv():
-    """The same sweep from flat query parameters: lists comma-separated, or
-    bidders_from/_to/_step and reserves_from/_to/_steps."""
+    """The same sweep from flat query parameters: lists, or bidders_from/_to/_step(s) and
+    reserves_from/_to/_step(s); numbers and the CSV in the ``decimal`` mark asked for."""
     args, errors = request.args, {}
-    query.unknown(args, {"direction", "family", "seller_value", "buyer_value", *query.MODEL_KEYS, *_LIST_KEYS, *_RANGE_KEYS}, errors)
-    body = query.case_body(args, errors, ("seller_value", "buyer_value"))
-    for axis, keys in (("bidders", ("from", "to", "step")), ("reserves", ("from", "to", "steps"))):
-        ranged = [f"{axis}_{k}" for k in keys if f"{axis}_{k}" in args]
-        if axis in args and ranged:
-            errors[axis] = [f"Give either the list {axis} or the range {', '.join(ranged)}, not both."]
-        elif axis in args:
-            body[axis] = query.number_list(axis, args[axis], errors)
-        elif ranged:
-            body[axis] = {k: query.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors) for k in keys if f"{axis}_{k}" in args}
-    for key in ("rules", "metrics"):
+    door = query.Door(args, errors)
+    query.unknown(args, _KNOWN, errors)
+    body = query.case_body(args, door, errors, ("seller_value", "buyer_value"))
+    _axes(args, door, body, errors)
+    if "rule" in args and "rules" in args:
+        errors["rules"] = ["Give rule or rules, not both."]
+    for key, name in (("rule", "rules"), ("rules", "rules"), ("metrics", "metrics")):
         if key in args:
-            body[key] = [x.strip() for x in args[key].split(",")]
+            body[name] = door.names(args[key])
+    separator = SEPARATOR_NAMES.get(args.get("separator", ";" if door.decimal == "," else ","))
+    if separator is None:
+        errors["separator"] = ["One of ',', ';' or tab."]
     try:
         if errors:
             raise ValidationError(errors)
         table = sweeps_handler(body)
+    except BudgetSpent:
+        return door.error(spent_error())
     except ValidationError as err:
         err = query.flat_errors(err)
-        return validation_problem(err) if request.accept_mimetypes["application/json"] > request.accept_mimetypes["text/csv"] else query.text_error(err)
-    return to_csv(table)
+        as_json = request.accept_mimetypes["application/json"] > request.accept_mimetypes["text/csv"]
+        return validation_problem(err) if as_json and not door.inline else door.error(err)
+    return to_csv(table, door.decimal, separator)

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 from flask import Blueprint
-from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from .. import settings
 from ..core import topvalues
@@ -29,7 +29,9 @@ def core_call(fn, field_prefix="bidder_values", **kw):
 
 
 class TopValuesRequest(Schema):
-    bidder_values = ValueModelField(required=True)
+    """Values (ranks from the highest) or costs (ranks from the lowest), one of the two."""
+    bidder_values = ValueModelField()
+    bidder_costs = ValueModelField()
     bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
     ranks = CappedList(StrictInteger(minimum=1), 1, CAPS.ranks, "BIDSTATS_MAX_RANKS", load_default=None)
     quantiles = CappedList(StrictFloat(bound="open_probability"), 0, CAPS.quantiles, "BIDSTATS_MAX_QUANTILES",
@@ -38,6 +40,9 @@ class TopValuesRequest(Schema):
 
     @validates_schema
     def _ranks_within(self, data, **kw):
+        if ("bidder_values" in data) == ("bidder_costs" in data):
+            raise ValidationError({"bidder_values": ["Give bidder_values (ranks counted from the highest) or bidder_costs "
+                                                     "(ranks counted from the lowest), one of the two."]})
         if data.get("ranks") and "bidders" in data:
             bad = {i: [f"Must be at most bidders ({data['bidders']})."] for i, r in enumerate(data["ranks"]) if r > data["bidders"]}
             if bad:
@@ -73,12 +78,13 @@ class JointDensityRequest(Schema):
 def top_values_handler(body):
     req = load(TopValuesRequest, body)
     ranks, curve = len(req["ranks"] or [1, 2]), req["curve_points"]
-    admission.admit(work=admission.model_work(body.get("bidder_values")) * ranks * (1 + curve / 200),
+    name = "bidder_values" if "bidder_values" in req else "bidder_costs"
+    admission.admit(work=admission.model_work(body.get(name)) * ranks * (1 + curve / 200),
                     numbers=ranks * (4 + 2 * len(req["quantiles"]) + 3 * curve),
                     field="curve_points" if curve else "ranks")
     return core_call(
-        topvalues.top_values,
-        model=req["bidder_values"], bidders=req["bidders"], ranks=req["ranks"],
+        topvalues.top_values if name == "bidder_values" else topvalues.lowest_costs, field_prefix=name,
+        model=req[name], bidders=req["bidders"], ranks=req["ranks"],
         quantiles=req["quantiles"], curve_points=req["curve_points"],
     )
 
