@@ -295,9 +295,11 @@ def _case(req):
 def top_values(req, ans):
     """Ranks in order, inside the support; the highest below the Hartley-David bound."""
     f = Findings("/v1/top-values: ")
-    model, _, (lo, hi) = _case(req)
+    model, direction, (lo, hi) = _case(req)
     n = int(req["bidders"])
     results = sorted(ans.get("results", []), key=lambda r: r["rank"])
+    if direction == "reverse":  # costs, ranks from the lowest: judged as the values X = -C, ranks from the highest
+        lo, hi, results = -hi, -lo, [_mirrored(r) for r in results]
     means = [_num(r.get("mean")) for r in results]
     tol = _tol(lo, hi, model_scale(model), *means, err=_num((ans.get("numerics") or {}).get("abs_error")))
     for r, mean in zip(results, means):
@@ -311,7 +313,7 @@ def top_values(req, ans):
         for v in values:
             _within(f, ("quantiles", f"rank {r['rank']}"), v, lo, hi, tol, f"rank {r['rank']} quantile")
         _curve(f, r, tol)
-        if r["rank"] == 1 and mean is not None and lo >= 0:
+        if r["rank"] == 1 and mean is not None and lo >= 0 and direction == "forward":
             bound = top_bound(model, n)
             f.need(mean <= bound + _tol(bound, mean), ("mean", "rank 1"),
                    f"rank 1 mean {mean!r} exceeds {bound!r}, the bound on E[highest of {n}] from the model's mean and sd")
@@ -320,6 +322,19 @@ def top_values(req, ans):
     gap = _num(ans.get("expected_gap"))
     f.need(gap is None or gap >= -tol, ("expected_gap",), f"expected_gap = {gap!r} is negative")
     return f.unflagged(ans.get("warnings"))
+
+
+def _mirrored(r):
+    """One rank of costs as the same rank of X = -C: means and quantiles negated (quantile p
+    of C is minus quantile 1 - p of X), the curve mirrored."""
+    neg = lambda x: None if _num(x) is None else -_num(x)  # noqa: E731
+    out = {**r, "mean": neg(r.get("mean")),
+           "quantiles": [{"p": 1.0 - q["p"], "value": neg(q.get("value"))} for q in r.get("quantiles") or []]}
+    if r.get("curve"):
+        c = r["curve"]
+        out["curve"] = {"x": [neg(x) for x in c["x"][::-1]], "pdf": c["pdf"][::-1],
+                        "cdf": [None if _num(y) is None else 1.0 - _num(y) for y in c["cdf"][::-1]]}
+    return out
 
 
 def _nonincreasing_means(f, results, means, tol):
@@ -645,11 +660,11 @@ def quote(query, value, warnings=None):
     """One quoted figure against the laws that bind it alone."""
     q = _first(query)
     f = Findings("/v1/quote: ")
+    value = _num(value)
+    if value is None:  # no figure (an inline error line): nothing to judge
+        return []
     metric, body = q.get("metric", ""), query_case(q)
     auc = Auction(body)
-    value = _num(value)
-    if value is None:
-        return []
     tol = _tol(auc.lo, auc.hi, auc.reserve, auc.scale, value)
     if metric.startswith("probability_of_"):
         _probability(f, (metric,), value)

@@ -200,3 +200,24 @@ def test_the_workbook_formulas_fetch_what_the_json_api_answers(client, decimal):
         assert got.status_code == 200, text(got)
         plain = url.replace(f"decimal={decimal}", "decimal=.").replace("sigma=0,35", "sigma=0.35")
         assert float(text(got).replace(",", ".")) == json_value(client, plain[len("http://sheets.example:8000"):])
+
+
+def test_a_range_whose_step_is_too_fine_to_count_is_refused(client):
+    body = {"bidder_values": {"family": "uniform", "low": 0, "high": 1}, "bidders": [2],
+            "reserves": {"from": 0.0, "step": 5e-324, "to": 7.7e15}}
+    resp = client.post("/v1/sweeps", json=body)
+    assert resp.status_code == 422 and resp.get_json()["errors"][0]["field"] == "reserves.step"
+
+
+def test_top_values_of_step_costs_count_from_the_lowest(client):
+    # With one atom each, the k-th lowest of n costs from a step model over sorted atoms
+    # a_1 < ... < a_N takes a_i with P(U_(k) in ((i-1)/N, i/N]), U_(k) ~ Beta(k, n - k + 1)
+    # (David and Nagaraja 2003, section 2.3); scipy.stats.beta gives the reference.
+    atoms = [3.0, 5.0, 8.0, 13.0, 21.0]
+    n = 3
+    out = client.post("/v1/top-values", json={"bidder_costs": {"family": "empirical", "sample": atoms, "smoothing": "none"},
+                                              "bidders": n, "ranks": [1, 2]}).get_json()
+    for k, r in zip((1, 2), out["results"]):
+        u = st.beta(k, n - k + 1)
+        want = sum(a * (u.cdf((i + 1) / 5) - u.cdf(i / 5)) for i, a in enumerate(atoms))
+        assert r["mean"] == pytest.approx(want, rel=1e-12)

@@ -1023,6 +1023,11 @@ class Reflected(ValueModel):
     def atoms(self):
         return -self.parent.atoms[::-1]
 
+    @property
+    def N(self):
+        """A step model's number of equally likely atoms, the same as its parent's."""
+        return self.parent.N
+
     def closed_rank_moments(self, n, r):
         """Rank r from the top of -X is minus rank n - r + 1 from the top of X."""
         closed = getattr(self.parent, "closed_rank_moments", None)

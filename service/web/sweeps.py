@@ -5,6 +5,8 @@ from __future__ import annotations
 import csv
 import io as _io
 
+import numpy as np
+
 from flask import Blueprint, Response, request
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
@@ -76,10 +78,11 @@ class _ListOrRange(fields.Field):
 
 def _count_of(r, what):
     """The number of points of a range given by its ``step``, within the axis cap."""
-    count = int((r["to"] - r["from_"]) / r["step"] * (1.0 + 1e-12)) + 1
-    if count > CAPS.sweep_axis:
-        raise ValidationError({"step": [f"The range holds {count} {what}; the cap is {CAPS.sweep_axis} (BIDSTATS_MAX_SWEEP_AXIS)."]})
-    return count
+    with np.errstate(over="ignore"):
+        span = (r["to"] - r["from_"]) / r["step"] * (1.0 + 1e-12)
+    if not span < CAPS.sweep_axis:
+        raise ValidationError({"step": [f"The range holds more than {CAPS.sweep_axis} {what}, the cap (BIDSTATS_MAX_SWEEP_AXIS)."]})
+    return int(span) + 1
 
 
 def _single(r):
