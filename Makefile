@@ -6,7 +6,7 @@ HOST    ?= 127.0.0.1
 PORT    ?= 8000
 WORKERS ?= 2
 
-.PHONY: serve test fuzz loadtest bench demo clean
+.PHONY: serve test fuzz loadtest spreadsheet-test bench demo clean
 
 $(VENV)/.installed-base: pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -41,6 +41,15 @@ loadtest: $(VENV)/.installed-test
 	PATH="$$PATH:/usr/sbin" sh -c 'command -v wrk && command -v nginx' >/dev/null || \
 	  { apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y -q wrk nginx; }
 	$(PY) -m pytest loadtest -s
+
+# The GET doors in a real spreadsheet: headless LibreOffice Calc, driven through UNO by Debian's
+# /usr/bin/python3, against gunicorn on a free loopback port (spreadsheet/run.py). LibreOffice Calc
+# and python3-uno are installed with apt-get when missing; where they cannot be, the run skips.
+spreadsheet-test: $(VENV)/.installed-test
+	{ command -v soffice && /usr/bin/python3 -c 'import uno'; } >/dev/null 2>&1 || \
+	  { apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends libreoffice-calc python3-uno; } || \
+	  echo "spreadsheet-test: apt-get could not install libreoffice-calc and python3-uno"
+	$(PY) spreadsheet/run.py
 
 bench: $(VENV)/.installed-test
 	$(PY) bench/run.py
