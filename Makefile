@@ -26,6 +26,7 @@ serve: $(VENV)/.installed-base
 	HOST=$(HOST) PORT=$(PORT) WORKERS=$(WORKERS) $(VENV)/bin/gunicorn -c gunicorn.conf.py 'service:create_app()'
 
 test: $(VENV)/.installed-test
+	$(VENV)/bin/ruff check .
 	$(PY) -m pytest
 
 # Requests generated from openapi.yaml, then hostile requests (deep nesting, extreme magnitudes,

@@ -45,7 +45,7 @@ LOGNORMAL6_ALL_RULES = {"bidder_values": {"family": "lognormal", "median": 62000
 
 # The invented stress mixture that the hostile fuzz part sends too (fuzz/hostile_cases.py: stdlib only).
 sys.path.insert(0, str(ROOT / "fuzz"))
-from hostile_cases import mixture as stress_mixture  # noqa: E402
+from hostile_cases import mixture as stress_mixture  # noqa: E402, F401  (re-exported for the load tests)
 
 
 def free_port():

@@ -95,8 +95,8 @@ class BidstatsClient:
     api_key:
         When given (or, if not, when the environment variable
         ``BIDSTATS_API_KEY`` is set), every request carries
-        ``Authorization: Bearer <key>``. The service itself does not check keys;
-        this is for a gateway in front of it.
+        ``Authorization: Bearer <key>``. The service checks it when it is started
+        with BIDSTATS_API_KEYS (README, "Access"), as a gateway in front of it may.
     session:
         A ``requests.Session`` to send through (for connection pooling, proxies
         or test adapters). The client makes its own when none is given.

@@ -115,7 +115,7 @@ def _example_cases(where_filter):
         for where in wheres:
             if not where_filter(where):
                 continue
-            for mt, (pointer, media) in _media(path, method, where).items():
+            for mt, (_, media) in _media(path, method, where).items():
                 for name in media.get("examples", {}):
                     cases.append(pytest.param(path, method, where, mt, name, id=f"{method} {path} {where} {mt} {name}"))
     return cases

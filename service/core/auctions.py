@@ -108,8 +108,7 @@ class ForwardAuction:
         self.origin = self._origin()
         self.reserve_binds = reserve is not None and self.reserve > model.lower
         self.s_r = _neg_log_cdf(model, self.floor) if self.reserve_binds else math.inf
-        self.u_cut = math.exp(-self.s_r) if self.reserve_binds else 0.0
-        self.f_r = self.u_cut  # F(floor)
+        self.f_r = math.exp(-self.s_r) if self.reserve_binds else 0.0  # F(floor)
         self.p_sale = -math.expm1(-self.n * self.s_r) if math.isfinite(self.s_r) else 1.0
         # The price under every rule when at most one bidder can be above the floor: a lone
         # bidder, or a reserve so near the top that each value beats it with chance below

@@ -116,9 +116,7 @@ class RankQuadrature:
         return len(self.a)
 
     w_hi = property(lambda self: self.w[:, :RULE_SPLIT])
-    w_lo = property(lambda self: self.w[:, RULE_SPLIT:])
     values_hi = property(lambda self: self.values[:, :RULE_SPLIT])
-    values_lo = property(lambda self: self.values[:, RULE_SPLIT:])
 
     def kept(self, key, build):
         """``build()``, a function of the nodes alone (never of a model's values), built
@@ -265,7 +263,7 @@ _RULE_CACHE_SIZE = 256
 _RULE_CACHE_KINKS = 16  # a model with more kinks (a long quantile table) builds its rule each time
 
 
-def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
+def rank_quadrature(n, r, *, kinks_u=(), s_cut=None, upper_growth=0.0, lower_growth=0.0, model=None, power=0,
                     fine=False, splits_s=(), s_top=0.0, checked=False):
     """Quadrature for rank r of n (see ``_build_rank_quadrature``); ``splits_s`` are extra
     panel edges, given as s = -log u so that they keep their digits near the top, and no
@@ -284,10 +282,10 @@ def rank_quadrature(n, r, *, kinks_u=(), u_cut=0.0, s_cut=None, upper_growth=0.0
     if model is not None and not (model.upper_tail_index == model.lower_tail_index == math.inf):
         model = None  # a power-law tail's growth is known in closed form; its far values overflow
     probe = model is not None and power and getattr(model, "cheap_quantiles", False)
-    shape = (n, r, kinks, u_cut, s_cut, upper_growth, lower_growth)
+    shape = (n, r, kinks, s_cut, upper_growth, lower_growth)
     if (probe and not checked) or len(kinks) > _RULE_CACHE_KINKS:
         return _build_rank_quadrature(*shape, model, power, fine, splits, s_top)
-    rule = copy.copy(_cached_rule(n, r, kinks, float(u_cut), None if s_cut is None else float(s_cut),
+    rule = copy.copy(_cached_rule(n, r, kinks, None if s_cut is None else float(s_cut),
                                   float(upper_growth), float(lower_growth), bool(fine), splits, float(s_top)))
     if probe and _ends_matter(rule, model, power):
         return _build_rank_quadrature(*shape, model, power, fine, splits, s_top)
@@ -315,16 +313,16 @@ def _ends_matter(q, model, power):
 
 
 @functools.lru_cache(maxsize=_RULE_CACHE_SIZE)
-def _cached_rule(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, fine, splits_s=(), s_top=0.0):
-    q = _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, None, 0, fine, splits_s, s_top)
+def _cached_rule(n, r, kinks_u, s_cut, upper_growth, lower_growth, fine, splits_s=(), s_top=0.0):
+    q = _build_rank_quadrature(n, r, kinks_u, s_cut, upper_growth, lower_growth, None, 0, fine, splits_s, s_top)
     for name in ("a", "b", "u", "v", "w"):
         getattr(q, name).flags.writeable = False
     return q
 
 
-def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_growth, model, power, fine, splits_s=(), s_top=0.0):
-    """Quadrature for rank r of n, restricted to cumulative probability >= u_cut
-    (or to s = -log u <= s_cut, which keeps its digits when u_cut rounds to 1).
+def _build_rank_quadrature(n, r, kinks_u, s_cut, upper_growth, lower_growth, model, power, fine, splits_s=(), s_top=0.0):
+    """Quadrature for rank r of n, restricted to s = -log u <= s_cut (the cut written in s
+    keeps its digits where u itself rounds to 1).
 
     ``upper_growth``/``lower_growth`` are p/alpha for an integrand |x|^p over a
     tail of power-law index alpha, so that the panels reach far enough out.
@@ -337,8 +335,6 @@ def _build_rank_quadrature(n, r, kinks_u, u_cut, s_cut, upper_growth, lower_grow
     m = float(n - r + 1)
     r = float(r)
     lognorm = math.log(m) + log_beta(r, m)
-    if s_cut is None and u_cut > 0.0:
-        s_cut = -math.log(u_cut) if u_cut < 1.0 else 0.0
     t_floor = math.log(m * max(_TINY, s_top))
     window = _rank_window(n, m, r, s_cut, upper_growth, lower_growth, fine, t_floor)
     if window is None:

@@ -12,8 +12,7 @@ from .. import settings
 from ..core import auctions
 from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
 from . import admission
-from .io import load, register_posts
-from .top_values import core_call
+from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
 CAPS = settings.CAPS

@@ -8,6 +8,7 @@ from marshmallow import ValidationError
 from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMediaType
 
 from .. import settings
+from ..core.errors import ParameterError
 
 
 def _no_constants(name):
@@ -78,3 +79,16 @@ def register_posts(bp, handlers):
         def view(handler=handler):
             return json_response(handler(json_body()))
         bp.add_url_rule(path, endpoint=handler.__name__, view_func=view, methods=["POST"])
+
+
+# Core errors about the value model itself (not a request field) carry these names.
+_MODEL_FIELDS = {"smoothing", "sample", "components", "truncate"}
+
+
+def core_call(fn, field_prefix="bidder_values", **kw):
+    """One call into the core; its parameter errors become 422s at their field."""
+    try:
+        return fn(**kw)
+    except ParameterError as e:
+        field = f"{field_prefix}.{e.field}" if e.field.split(".")[0] in _MODEL_FIELDS else e.field
+        raise ValidationError({field: [e.message]}) from None

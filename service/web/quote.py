@@ -84,11 +84,6 @@ def _value(metric, direction, rule, body):
     return out["results"][0][metric], out["warnings"]
 
 
-def _wants_json():
-    best = request.accept_mimetypes.best_match(["text/plain", "application/json"], default="text/plain")
-    return best == "application/json" and request.accept_mimetypes["application/json"] > request.accept_mimetypes["text/plain"]
-
-
 @bp.get("/v1/quote")
 def get_quote():
     as_json, errors = wants_json(), {}

@@ -17,9 +17,8 @@ from . import query
 from . import admission
 from .auctions import _AuctionRequest, _case, _model_work
 from .fields import CappedList, StrictFloat, StrictInteger
-from .io import json_body, json_response, load
+from .io import core_call, json_body, json_response, load
 from .problems import spent_error, validation_problem
-from .top_values import core_call
 
 bp = Blueprint("sweeps", __name__)
 CAPS = settings.CAPS

@@ -6,26 +6,12 @@ from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from .. import settings
 from ..core import topvalues
-from ..core.errors import ParameterError
 from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
 from . import admission
-from .io import load, register_posts
+from .io import core_call, load, register_posts
 
 bp = Blueprint("top_values", __name__)
 CAPS = settings.CAPS
-
-
-# Core errors about the value model itself (not a request field) carry these names.
-_MODEL_FIELDS = {"smoothing", "sample", "components", "truncate"}
-
-
-def core_call(fn, field_prefix="bidder_values", **kw):
-    """One call into the core; its parameter errors become 422s at their field."""
-    try:
-        return fn(**kw)
-    except ParameterError as e:
-        field = f"{field_prefix}.{e.field}" if e.field.split(".")[0] in _MODEL_FIELDS else e.field
-        raise ValidationError({field: [e.message]}) from None
 
 
 class TopValuesRequest(Schema):
