@@ -19,13 +19,16 @@ class BidStats(Flask):
 
 
 def create_app(config=None):
-    """Build the WSGI app; ``config`` updates Flask's config (tests use it)."""
+    """Build the WSGI app; ``config`` updates Flask's config, and sets any cap by its
+    variable's name (``{"BIDSTATS_MAX_BIDDERS": 100}``) over the environment's."""
     app = BidStats(__name__)
-    app.config["MAX_CONTENT_LENGTH"] = settings.CAPS.body_bytes
+    caps = settings.Caps.from_settings(config=config)
+    app.extensions["bidstats.caps"] = caps
+    app.config["MAX_CONTENT_LENGTH"] = caps.body_bytes
     app.json.sort_keys = False
     if config:
         app.config.update(config)
-    app.extensions["bidstats.slots"] = admission.Slots(settings.CAPS.heavy_slots, os.environ.get("BIDSTATS_SLOT_DIR"))
+    app.extensions["bidstats.slots"] = admission.Slots(caps.heavy_slots, os.environ.get("BIDSTATS_SLOT_DIR"))
     problems.register(app)
     for module in (meta, top_values, auctions, batch, quote, sweeps, workbook):
         app.register_blueprint(module.bp)

@@ -25,8 +25,10 @@ def client():
     return create_app().test_client()
 
 
-def _caps(monkeypatch, **changes):
-    monkeypatch.setattr(settings, "CAPS", dataclasses.replace(settings.CAPS, **changes))
+def _caps(client, **changes):
+    """The client's app with some caps changed (each app holds its own, see create_app)."""
+    app = client.application
+    app.extensions["bidstats.caps"] = dataclasses.replace(app.extensions["bidstats.caps"], **changes)
 
 
 def _fields(resp):
@@ -67,7 +69,7 @@ def test_a_problem_lists_at_most_fifty_field_errors(client):
 
 def test_the_answer_size_is_refused_before_the_work(client, monkeypatch):
     # 401 x 401 cells at 24 bytes a number is about 3.9 MB: over a 1 MB cap.
-    _caps(monkeypatch, response_bytes=1_000_000)
+    _caps(client, response_bytes=1_000_000)
     body = {"bidder_values": UNIFORM, "bidders": 3, "grid_points": 401}
     resp = client.post("/v1/top-values/joint-density", json=body)
     assert resp.status_code == 422
@@ -76,7 +78,7 @@ def test_the_answer_size_is_refused_before_the_work(client, monkeypatch):
 
 def test_a_batch_counts_every_item_towards_the_answer_size(client, monkeypatch):
     # Each 111 x 111 grid is estimated at about 300 KB: three fit in 1 MB, the fourth and later do not.
-    _caps(monkeypatch, response_bytes=1_000_000)
+    _caps(client, response_bytes=1_000_000)
     item = {"path": "/v1/top-values/joint-density", "body": {"bidder_values": UNIFORM, "bidders": 3, "grid_points": 111}}
     resp = client.post("/v1/batch", json={"requests": [{"id": i, **item} for i in range(6)]})
     assert resp.status_code == 200
@@ -88,7 +90,7 @@ def test_a_batch_counts_every_item_towards_the_answer_size(client, monkeypatch):
 def test_a_spent_budget_answers_every_later_batch_item_at_once(client, monkeypatch):
     # Four mixtures of 50 kernel samples take far longer than 0.2 s together; the
     # items after the budget is spent are answered 422 without being computed.
-    _caps(monkeypatch, seconds=0.2, heavy_after=60.0)
+    _caps(client, seconds=0.2, heavy_after=60.0)
     sample = [10.0 + 0.37 * k for k in range(200)]
     mix = {"family": "mixture", "components": [{"weight": 0.02, "model": {"family": "empirical", "sample": [x + i for x in sample]}}
                                                for i in range(50)]}
@@ -135,7 +137,7 @@ def test_a_request_over_the_heavy_threshold_needs_a_free_slot(client, monkeypatc
 
 
 def test_a_request_that_runs_long_is_moved_to_a_heavy_slot(client, monkeypatch):
-    _caps(monkeypatch, heavy_after=0.0)  # every request is past the threshold at its first check
+    _caps(client, heavy_after=0.0)  # every request is past the threshold at its first check
     mine = client.application.extensions["bidstats.slots"]
     slots = admission.Slots(mine.count, mine.directory)
     held = slots.acquire()
@@ -203,7 +205,7 @@ def test_a_key_list_with_no_key_stops_start_up(monkeypatch):
 
 def test_an_answer_over_the_size_cap_is_refused_even_when_the_estimate_missed(client, monkeypatch):
     # The estimate for one rule without quantiles is 24 numbers (576 bytes); the answer holds about 650.
-    _caps(monkeypatch, response_bytes=600)
+    _caps(client, response_bytes=600)
     resp = client.post("/v1/revenue", json={"bidder_values": UNIFORM, "bidders": 3, "rules": ["second_price"], "quantiles": []})
     assert resp.status_code == 422
     assert json.loads(resp.get_data())["errors"][0]["field"] == "(request)"
@@ -220,3 +222,13 @@ def test_a_batch_that_turns_heavy_with_every_slot_taken_is_a_503_not_item_500s(c
         assert resp.get_json()["type"] == "urn:bidstats:problem:busy"
     finally:
         slots.release(held)
+
+
+def test_create_app_sets_a_cap_by_its_variables_name():
+    # The same request under two apps: the config's cap binds only in its own app.
+    body = {"bidder_values": UNIFORM, "bidders": 6}
+    small = create_app({"BIDSTATS_MAX_BIDDERS": 5}).test_client().post("/v1/top-values", json=body)
+    assert small.status_code == 422 and "BIDSTATS_MAX_BIDDERS" in _fields(small)["bidders"]
+    assert create_app().test_client().post("/v1/top-values", json=body).status_code == 200
+    with pytest.raises(SystemExit):
+        create_app({"BIDSTATS_MAX_SECONDS": "soon"})

@@ -26,7 +26,7 @@ import tempfile
 
 from marshmallow import ValidationError
 
-from .. import settings
+from .fields import caps
 from ..core import budget
 
 #: Bytes one number takes in a JSON answer: 17 significant digits, an exponent and a separator.
@@ -57,7 +57,7 @@ class _RequestState:
                 raise Busy()
 
     def checkpoint(self, spent):
-        if self.fd is None and spent > settings.CAPS.heavy_after:
+        if self.fd is None and spent > caps().heavy_after:
             self.promote()
 
 
@@ -96,7 +96,7 @@ def request_scope(slots):
     state = _RequestState(slots)
     token = _state.set(state)
     try:
-        with budget.within(settings.CAPS.seconds, checkpoint=state.checkpoint):
+        with budget.within(caps().seconds, checkpoint=state.checkpoint):
             yield state
     finally:
         _state.reset(token)
@@ -113,7 +113,7 @@ def admit(work, numbers, field):
         return
     state.numbers += int(numbers)
     state.work += work
-    size, cap = state.numbers * BYTES_PER_NUMBER, settings.CAPS.response_bytes
+    size, cap = state.numbers * BYTES_PER_NUMBER, caps().response_bytes
     if size > cap:
         raise ValidationError({field: [f"The answer would hold about {size:,} bytes; the cap is {cap:,} "
                                        "(BIDSTATS_MAX_RESPONSE_BYTES). Ask for fewer points, rows or items."]})

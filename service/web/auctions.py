@@ -8,14 +8,12 @@ from __future__ import annotations
 from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
-from .. import settings
 from ..core import auctions
 from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
 from . import admission
 from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
-CAPS = settings.CAPS
 RULE = validate.OneOf(auctions.RULES)
 
 
@@ -24,7 +22,7 @@ class _AuctionRequest(Schema):
 
     bidder_values = ValueModelField(load_default=None)
     bidder_costs = ValueModelField(load_default=None)
-    bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
+    bidders = StrictInteger(minimum=1, maximum="bidders", required=True)
     seller_value = StrictFloat(load_default=None)
     buyer_value = StrictFloat(load_default=None)
 
@@ -54,7 +52,7 @@ def _case(req):
 class RevenueRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
     rules = CappedList(fields.String(validate=RULE), 1, len(auctions.RULES), load_default=lambda: list(auctions.RULES))
-    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, CAPS.quantiles, "BIDSTATS_MAX_QUANTILES",
+    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
 
     @validates_schema
@@ -67,8 +65,8 @@ class RevenueRequest(_AuctionRequest):
 class BidStrategyRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
     rule = fields.String(load_default="first_price", validate=RULE)
-    points = StrictInteger(minimum=2, maximum=CAPS.curve_points, load_default=None)
-    at = CappedList(StrictFloat(), 1, CAPS.points, "BIDSTATS_MAX_POINTS", load_default=None)
+    points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
+    at = CappedList(StrictFloat(), 1, "points", load_default=None)
 
     @validates_schema
     def _grid(self, data, **kw):

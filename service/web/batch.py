@@ -7,7 +7,6 @@ import logging
 from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validate
 
-from .. import settings
 from ..core import budget
 from ..core.budget import BudgetSpent
 from . import auctions, sweeps, top_values
@@ -35,7 +34,7 @@ class BatchItem(Schema):
 class BatchRequest(Schema):
     """The envelope; each item is checked on its own so one bad item cannot sink the rest."""
 
-    requests = CappedList(fields.Raw(allow_none=True), 1, settings.CAPS.batch_items, "BIDSTATS_MAX_BATCH_ITEMS", required=True)
+    requests = CappedList(fields.Raw(allow_none=True), 1, "batch_items", required=True)
 
 
 def _answer(raw):

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 
+from flask import current_app, has_app_context
 from marshmallow import Schema, ValidationError, fields, validate
 
 from .. import settings
@@ -17,6 +18,19 @@ from ..core.errors import ParameterError
 
 #: Largest magnitude of any number in a request: its square must stay finite.
 MAX_MAGNITUDE = 1e150
+
+
+def caps():
+    """The running app's caps (create_app's config over the environment), or the
+    environment's outside an app."""
+    return current_app.extensions["bidstats.caps"] if has_app_context() else settings.CAPS
+
+
+def _limit(bound):
+    """(the bound, its cap's variable or None): a number, or a cap named by its field."""
+    if isinstance(bound, str):
+        return getattr(caps(), bound), settings.ENV_NAMES[bound]
+    return bound, None
 
 
 class StrictFloat(fields.Field):
@@ -49,7 +63,7 @@ class StrictFloat(fields.Field):
 
 
 class StrictInteger(fields.Field):
-    """An integral JSON number within [minimum, maximum]."""
+    """An integral JSON number within [minimum, maximum]; ``maximum`` may name a cap."""
 
     def __init__(self, minimum=None, maximum=None, **kw):
         super().__init__(**kw)
@@ -63,25 +77,26 @@ class StrictInteger(fields.Field):
         n = int(value)
         if self.minimum is not None and n < self.minimum:
             raise ValidationError(f"Must be at least {self.minimum}.")
-        if self.maximum is not None and n > self.maximum:
-            raise ValidationError(f"Must be at most {self.maximum} (the service's cap).")
+        maximum, cap = _limit(self.maximum)
+        if maximum is not None and n > maximum:
+            raise ValidationError(f"Must be at most {maximum}" + (f" (the service's cap, {cap})." if cap else "."))
         return n
 
 
 class CappedList(fields.List):
     """A list whose length is checked on the raw JSON, before any element is loaded,
-    so that an over-long list costs nothing to refuse."""
+    so that an over-long list costs nothing to refuse; ``maximum`` may name a cap."""
 
-    def __init__(self, inner, minimum=None, maximum=None, cap=None, **kw):
+    def __init__(self, inner, minimum=None, maximum=None, **kw):
         super().__init__(inner, **kw)
-        self.minimum, self.maximum, self.cap = minimum, maximum, cap
+        self.minimum, self.maximum = minimum, maximum
 
     def _deserialize(self, value, attr, data, **kw):
         if isinstance(value, list):
             n = len(value)
-            if self.maximum is not None and n > self.maximum:
-                cap = f" (the service's cap, {self.cap})" if self.cap else ""
-                raise ValidationError(f"Holds {n} items; at most {self.maximum}{cap}.")
+            maximum, cap = _limit(self.maximum)
+            if maximum is not None and n > maximum:
+                raise ValidationError(f"Holds {n} items; at most {maximum}" + (f" (the service's cap, {cap})." if cap else "."))
             if self.minimum is not None and n < self.minimum:
                 raise ValidationError(f"Must hold at least {self.minimum} item(s)." if self.minimum != self.maximum
                                       else f"Must hold exactly {self.minimum} items.")
@@ -120,7 +135,7 @@ class QuantileTableSchema(Schema):
 
 class EmpiricalSchema(Schema):
     family = fields.String(required=True)
-    sample = CappedList(StrictFloat(), maximum=settings.CAPS.sample, cap="BIDSTATS_MAX_SAMPLE", required=True)
+    sample = CappedList(StrictFloat(), maximum="sample", required=True)
     smoothing = fields.String(load_default="kernel", validate=validate.OneOf(["kernel", "none"]))
     low = StrictFloat(load_default=None)
     high = StrictFloat(load_default=None)
@@ -133,7 +148,7 @@ class ComponentSchema(Schema):
 
 class MixtureSchema(Schema):
     family = fields.String(required=True)
-    components = CappedList(fields.Nested(ComponentSchema), 1, settings.CAPS.components, "BIDSTATS_MAX_COMPONENTS", required=True)
+    components = CappedList(fields.Nested(ComponentSchema), 1, "components", required=True)
 
 
 _SCHEMAS = {name: _parametric_schema(cls)() for name, cls in M.PARAMETRIC.items()}

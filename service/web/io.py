@@ -7,7 +7,7 @@ from flask import Response, current_app, request
 from marshmallow import ValidationError
 from werkzeug.exceptions import BadRequest, RequestEntityTooLarge, UnsupportedMediaType
 
-from .. import settings
+from .fields import caps
 from ..core.errors import ParameterError
 
 
@@ -66,8 +66,8 @@ def json_response(payload, status=200):
     """Strict JSON: a NaN or infinity here is a bug and fails loudly. An answer over
     BIDSTATS_MAX_RESPONSE_BYTES (the admission estimate missed it) is refused."""
     text = json.dumps(payload, allow_nan=False, separators=(",", ":"))
-    if len(text) > settings.CAPS.response_bytes:
-        raise ValidationError({"(request)": [f"The answer holds {len(text):,} bytes; the cap is {settings.CAPS.response_bytes:,} "
+    if len(text) > caps().response_bytes:
+        raise ValidationError({"(request)": [f"The answer holds {len(text):,} bytes; the cap is {caps().response_bytes:,} "
                                              "(BIDSTATS_MAX_RESPONSE_BYTES). Ask for fewer points, rows or items."]})
     return Response(text, status=status, mimetype="application/json")
 

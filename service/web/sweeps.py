@@ -10,18 +10,16 @@ import numpy as np
 from flask import Blueprint, Response, request
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
-from .. import settings
 from ..core import auctions, sweeps
 from ..core.budget import BudgetSpent
 from . import query
 from . import admission
 from .auctions import _AuctionRequest, _case, _model_work
-from .fields import CappedList, StrictFloat, StrictInteger
+from .fields import CappedList, StrictFloat, StrictInteger, caps
 from .io import core_call, json_body, json_response, load
 from .problems import spent_error, validation_problem
 
 bp = Blueprint("sweeps", __name__)
-CAPS = settings.CAPS
 
 
 class _Range(Schema):
@@ -37,17 +35,17 @@ class _Range(Schema):
 
 
 class IntRange(_Range):
-    from_ = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True, data_key="from")
-    to = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
+    from_ = StrictInteger(minimum=1, maximum="bidders", required=True, data_key="from")
+    to = StrictInteger(minimum=1, maximum="bidders", required=True)
     step = StrictInteger(minimum=1)
-    steps = StrictInteger(minimum=1, maximum=CAPS.sweep_axis)
+    steps = StrictInteger(minimum=1, maximum="sweep_axis")
 
 
 class FloatRange(_Range):
     from_ = StrictFloat(required=True, data_key="from")
     to = StrictFloat(required=True)
     step = StrictFloat()
-    steps = StrictInteger(minimum=1, maximum=CAPS.sweep_axis)
+    steps = StrictInteger(minimum=1, maximum="sweep_axis")
 
 
 class _ListOrRange(fields.Field):
@@ -59,8 +57,8 @@ class _ListOrRange(fields.Field):
 
     def _deserialize(self, value, attr, data, **kw):
         if isinstance(value, list):
-            if not 1 <= len(value) <= CAPS.sweep_axis:
-                raise ValidationError(f"Give 1 to {CAPS.sweep_axis} values (the cap BIDSTATS_MAX_SWEEP_AXIS).")
+            if not 1 <= len(value) <= caps().sweep_axis:
+                raise ValidationError(f"Give 1 to {caps().sweep_axis} values (the cap BIDSTATS_MAX_SWEEP_AXIS).")
             out, errors = [], {}
             for i, v in enumerate(value):
                 try:
@@ -79,8 +77,8 @@ def _count_of(r, what):
     """The number of points of a range given by its ``step``, within the axis cap."""
     with np.errstate(over="ignore"):
         span = (r["to"] - r["from_"]) / r["step"] * (1.0 + 1e-12)
-    if not span < CAPS.sweep_axis:
-        raise ValidationError({"step": [f"The range holds more than {CAPS.sweep_axis} {what}, the cap (BIDSTATS_MAX_SWEEP_AXIS)."]})
+    if not span < caps().sweep_axis:
+        raise ValidationError({"step": [f"The range holds more than {caps().sweep_axis} {what}, the cap (BIDSTATS_MAX_SWEEP_AXIS)."]})
     return int(span) + 1
 
 
@@ -117,7 +115,7 @@ def _float_range(r):
 
 
 class SweepRequest(_AuctionRequest):
-    bidders = _ListOrRange(StrictInteger(minimum=1, maximum=CAPS.bidders), IntRange, _int_range, required=True)
+    bidders = _ListOrRange(StrictInteger(minimum=1, maximum="bidders"), IntRange, _int_range, required=True)
     reserves = _ListOrRange(StrictFloat(), FloatRange, _float_range, required=True)
     rules = CappedList(fields.String(validate=validate.OneOf(auctions.RULES)), 1, len(auctions.RULES),
                        load_default=lambda: ["first_price", "second_price"])
@@ -129,8 +127,8 @@ class SweepRequest(_AuctionRequest):
             raise ValidationError({"rules": ["Each rule at most once."]})
         if all(k in data for k in ("bidders", "reserves", "rules")):
             rows = len(data["bidders"]) * len(data["reserves"]) * len(data["rules"])
-            if rows > CAPS.sweep_rows:
-                raise ValidationError({"bidders": [f"The sweep has {rows} rows; the cap is {CAPS.sweep_rows} (BIDSTATS_MAX_SWEEP_ROWS)."]})
+            if rows > caps().sweep_rows:
+                raise ValidationError({"bidders": [f"The sweep has {rows} rows; the cap is {caps().sweep_rows} (BIDSTATS_MAX_SWEEP_ROWS)."]})
 
 
 def sweeps_handler(body):

@@ -4,25 +4,23 @@ from __future__ import annotations
 from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validates_schema
 
-from .. import settings
 from ..core import topvalues
 from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
 from . import admission
 from .io import core_call, load, register_posts
 
 bp = Blueprint("top_values", __name__)
-CAPS = settings.CAPS
 
 
 class TopValuesRequest(Schema):
     """Values (ranks from the highest) or costs (ranks from the lowest), one of the two."""
     bidder_values = ValueModelField()
     bidder_costs = ValueModelField()
-    bidders = StrictInteger(minimum=1, maximum=CAPS.bidders, required=True)
-    ranks = CappedList(StrictInteger(minimum=1), 1, CAPS.ranks, "BIDSTATS_MAX_RANKS", load_default=None)
-    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, CAPS.quantiles, "BIDSTATS_MAX_QUANTILES",
+    bidders = StrictInteger(minimum=1, maximum="bidders", required=True)
+    ranks = CappedList(StrictInteger(minimum=1), 1, "ranks", load_default=None)
+    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
-    curve_points = StrictInteger(minimum=0, maximum=CAPS.curve_points, load_default=0)
+    curve_points = StrictInteger(minimum=0, maximum="curve_points", load_default=0)
 
     @validates_schema
     def _ranks_within(self, data, **kw):
@@ -44,10 +42,10 @@ class JointPoint(Schema):
 
 class JointDensityRequest(Schema):
     bidder_values = ValueModelField(required=True)
-    bidders = StrictInteger(minimum=2, maximum=CAPS.bidders, required=True)
+    bidders = StrictInteger(minimum=2, maximum="bidders", required=True)
     ranks = CappedList(StrictInteger(minimum=1), 2, 2, load_default=lambda: [1, 2])
-    grid_points = StrictInteger(minimum=2, maximum=CAPS.grid_points, load_default=None)
-    points = CappedList(fields.Nested(JointPoint), 1, CAPS.points, "BIDSTATS_MAX_POINTS", load_default=None)
+    grid_points = StrictInteger(minimum=2, maximum="grid_points", load_default=None)
+    points = CappedList(fields.Nested(JointPoint), 1, "points", load_default=None)
 
     @validates_schema
     def _one_of(self, data, **kw):
