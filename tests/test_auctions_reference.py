@@ -28,11 +28,12 @@ import pytest
 from scipy import integrate, optimize, stats
 
 from service.core import auctions as A
+from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O
 from service.core.errors import ParameterError
 
-RULES = A.RULES
+RULES = core_rules.names()
 WINNER_PAYS = ("first_price", "second_price", "ascending", "descending")
 U01 = M.Uniform(0.0, 1.0)
 mp.mp.dps = 30

@@ -10,12 +10,13 @@ import numpy as np
 import pytest
 
 from service.core import auctions as A
+from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O
 from service.core import sweeps as S
 
 mp.mp.dps = 30
-RULES = list(A.RULES)
+RULES = list(core_rules.names())
 U01 = {"family": "uniform", "low": 0, "high": 1}
 BID_RULES = ["first_price", "descending", "all_pay"]
 

@@ -22,7 +22,7 @@ from referencing import Registry
 from referencing.jsonschema import DRAFT202012
 
 from service import create_app, settings
-from service.core import auctions as core_auctions
+from service.core import rules as core_rules
 from service.web import auctions as web_auctions
 from service.web import fields as web_fields
 from service.web import top_values as web_top_values
@@ -292,8 +292,8 @@ def test_caps_in_the_spec_are_the_service_caps():
 
 def test_auction_rules_are_the_code_rules():
     spec = SPEC["components"]["schemas"]
-    assert spec["AuctionRule"]["enum"] == list(core_auctions.RULES)
-    assert spec["RevenueRequest"]["properties"]["rules"]["default"] == list(core_auctions.RULES)
+    assert spec["AuctionRule"]["enum"] == list(core_rules.names())
+    assert spec["RevenueRequest"]["properties"]["rules"]["default"] == list(core_rules.names())
 
 
 def test_value_model_families_are_the_code_families():

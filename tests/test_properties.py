@@ -69,12 +69,13 @@ from scipy import integrate
 from scipy import special as sp
 
 from service.core import auctions as A
+from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O
 from service.core import topvalues as T
 from service.core.errors import ParameterError
 
-RULES = A.RULES
+RULES = core_rules.names()
 WINNER_PAYS = ("first_price", "second_price", "ascending", "descending")
 
 

@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from service.core import auctions as A
+from service.core import rules as core_rules
 from service.core import models as M
 from service.core import sweeps as S
 
@@ -28,7 +29,7 @@ def krishna(n, r):
 
 def test_uniform_revenue_grid_is_krishna(client):
     body = {"bidder_values": UNIFORM, "bidders": {"from": 1, "to": 30, "step": 1},
-            "reserves": {"from": -0.2, "to": 1.2, "steps": 29}, "rules": list(A.RULES), "metrics": ["expected_revenue"]}
+            "reserves": {"from": -0.2, "to": 1.2, "steps": 29}, "rules": list(core_rules.names()), "metrics": ["expected_revenue"]}
     resp = client.post("/v1/sweeps", json=body)
     assert resp.status_code == 200
     table = resp.get_json()
@@ -74,7 +75,7 @@ def test_sweep_agrees_with_single_scenarios(model, direction):
     reserves = model.ppf(np.array([0.05, 0.3, 0.6, 0.95]))
     own = 0.0 if direction == "forward" else float(model.ppf(0.99))
     metrics = list(S.METRICS[direction][:5]) + ["efficiency"]
-    out = S.sweep(model, direction, [1, 2, 7, 60], reserves, list(A.RULES), metrics, own)
+    out = S.sweep(model, direction, [1, 2, 7, 60], reserves, list(core_rules.names()), metrics, own)
     scale = float(abs(model.ppf(0.5))) + 1.0
     for row in out["rows"]:
         n, r, rule = row[:3]

@@ -28,11 +28,11 @@ from scipy import optimize
 
 from . import audit, budget
 from . import orderstats as os_
+from . import rules as R
 from .errors import ParameterError
 from .models import Reflected
 from .topvalues import finite
 
-RULES = ("first_price", "second_price", "ascending", "descending", "all_pay")
 _COMMON_ASSUMPTIONS = [
     "symmetric, risk-neutral bidders",
     "symmetric equilibrium play (truthful bidding where it is dominant)",
@@ -835,13 +835,27 @@ def all_pay_winner_payment(auc):
     return _bid_outer(auc, lambda nb: nb.top * nb.rivals * nb.bids)[0]
 
 
-ROUTES = {
-    "first_price": first_price_revenue,
-    "second_price": second_price_revenue,
-    "ascending": ascending_revenue,
-    "descending": descending_revenue,
-    "all_pay": all_pay_revenue,
+_BID_NOTES = {
+    "forward": "symmetric equilibrium bid b(v) = E[max(Y, r) | Y < v], Y the highest rival value (Krishna 2009, ch. 2)",
+    "reverse": "symmetric equilibrium ask b(c) = E[min(Y, p) | Y > c], Y the lowest rival cost, p the maximum price "
+               "(the mirror of Krishna 2009, ch. 2)",
 }
+_TRUTHFUL_NOTES = {
+    "forward": "bidding one's own value is a dominant strategy under this rule (Vickrey 1961)",
+    "reverse": "bidding one's own cost is a dominant strategy under this rule (Vickrey 1961)",
+}
+for _rule in (
+    R.AuctionRule("first_price", R.FIRST, first_price_revenue, _BID_NOTES),
+    R.AuctionRule("second_price", R.SECOND, second_price_revenue, _TRUTHFUL_NOTES),
+    R.AuctionRule("ascending", R.SECOND, ascending_revenue, _TRUTHFUL_NOTES),
+    R.AuctionRule("descending", R.FIRST, descending_revenue, {
+        "forward": _BID_NOTES["forward"] + "; the descending clock is strategically the same as first-price",
+        "reverse": _BID_NOTES["reverse"] + "; the rising clock is strategically the same as first-price"}),
+    R.AuctionRule("all_pay", R.ALL_PAY, all_pay_revenue, {
+        "forward": "all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)",
+        "reverse": "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)"}),
+):
+    R.register(_rule)
 
 
 def _no_sale_note(auc, direction):
@@ -879,8 +893,9 @@ def forward_figures(auc, rules, quantiles):
             "efficiency": None if eff is None else eff[0],
             "_err": max([err, sd_err] + [g[1] for g in (winner, bidder, eff) if g is not None]),
         }
-    if "all_pay" in rules and auc.single_price is None and auc.p_sale > 0:
-        warnings.append("all_pay: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
+    for name in rules:
+        if R.get(name).pricing is R.ALL_PAY and auc.single_price is None and auc.p_sale > 0:
+            warnings.append(f"{name}: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
     return out, warnings
 
 
@@ -897,20 +912,24 @@ def _price_figures(auc, rule, quantiles, shared, warnings):
         return 0.0, 0.0, 0.0, 0.0, np.zeros(len(quantiles))
     if auc.single_price is not None:
         return _single_price_stats(auc, quantiles)
-    if rule not in ("second_price", "ascending"):
+    pricing = R.get(rule).pricing
+    if pricing is not R.SECOND:
         if _out_of_reach(auc, rule, 1, warnings):
-            return None, 0.0, None, 0.0, (None if rule == "all_pay" else _bid_price_quantiles(auc, quantiles))
+            return None, 0.0, None, 0.0, (None if pricing is R.ALL_PAY else _bid_price_quantiles(auc, quantiles))
         has_var = has_var and not _out_of_reach(auc, rule, 2, warnings)
-    mean, err = ROUTES[rule](auc)
-    if rule == "all_pay":
+    mean, err = R.get(rule).revenue(auc)
+    if pricing is R.ALL_PAY:
         sd, sd_err = _all_pay_stats(auc) if has_var else (None, 0.0)
         return mean, err, sd, sd_err, None
-    pair = "second" if rule in ("second_price", "ascending") else "bid"
-    if pair not in shared:
-        stats, price_quantiles = (_price_stats_second, _price_quantiles_second) if pair == "second" else (_bid_price_stats, _bid_price_quantiles)
-        shared[pair] = (stats(auc) if has_var else (None, 0.0)), price_quantiles(auc, quantiles)
-    (sd, sd_err), qs = shared[pair]
+    if pricing.name not in shared:
+        stats, price_quantiles = _PRICE_DISTRIBUTION[pricing.name]
+        shared[pricing.name] = (stats(auc) if has_var else (None, 0.0)), price_quantiles(auc, quantiles)
+    (sd, sd_err), qs = shared[pricing.name]
     return mean, err, sd, sd_err, qs
+
+
+#: Each winner-pays pricing's (sd and its error, quantiles) of the revenue.
+_PRICE_DISTRIBUTION = {"second": (_price_stats_second, _price_quantiles_second), "first": (_bid_price_stats, _bid_price_quantiles)}
 
 
 def _single_price_stats(auc, quantiles):
@@ -1006,13 +1025,14 @@ def _winner_gains(auc, rule, sp_surplus):
     the winner keeps X1 - a(X1) = (X1 - b(X1)) + (1 - F(X1)^(n-1)) b(X1)."""
     if auc.p_sale == 0.0:
         return (0.0, 0.0), (0.0, 0.0)
-    if auc.n == 1 or rule in ("second_price", "ascending"):
+    pricing = R.get(rule).pricing
+    if auc.n == 1 or pricing is R.SECOND:
         return sp_surplus, sp_surplus
     shade = auc.node_shade()
     if auc._bidders_surplus is None:  # kept on the auction: every bid rule asks for it
         auc._bidders_surplus = _bid_outer(auc, lambda nb: nb.top * shade)
     bidders = auc._bidders_surplus
-    if rule != "all_pay":
+    if pricing is not R.ALL_PAY:
         return bidders, bidders
     k = auc.n - 1.0
     return _bid_outer(auc, lambda nb: nb.top * (shade - np.expm1(-k * nb.s) * nb.bids)), bidders
@@ -1067,9 +1087,11 @@ _NAMES = {
 }
 
 
-def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=RULES,
+def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=None,
                    quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
-    """Revenue (forward) or payment (reverse) figures for each rule asked."""
+    """Revenue (forward) or payment (reverse) figures for each rule asked (default: every
+    registered rule)."""
+    rules = R.names() if rules is None else rules
     fmodel, freserve, v0 = _forward_case(model, direction, reserve, own_value)
     if direction == "forward" and v0 is None:
         v0 = 0.0
@@ -1127,10 +1149,11 @@ def price_moment_exists(model, n, rule, p, floor=-math.inf):
     if n == 1:
         return math.isfinite(floor)
     a, a_low = model.upper_tail_index, model.lower_tail_index
-    if rule in ("second_price", "ascending"):
+    pricing = R.get(rule).pricing
+    if pricing is R.SECOND:
         upper, lower = 2.0 * a > p, (n - 1) * a_low > p
     else:
-        upper, lower = a >= 1.0 or a / (1.0 - a) > p, rule == "all_pay" or n * a_low > p
+        upper, lower = a >= 1.0 or a / (1.0 - a) > p, pricing is R.ALL_PAY or n * a_low > p
     return upper and (lower or math.isfinite(floor))
 
 
@@ -1153,7 +1176,8 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     """Equilibrium bids on a grid of values (forward) or costs (reverse)."""
     fmodel, freserve, _ = _forward_case(model, direction, reserve, None)
     auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
-    if rule not in ("second_price", "ascending") and bidders > 1 and not auc.reserve_binds \
+    pricing = R.get(rule).pricing
+    if not pricing.truthful and bidders > 1 and not auc.reserve_binds \
             and not (bidders - 1) * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
         raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
                                         "(the value model's tail is too heavy); give a reserve")
@@ -1161,30 +1185,22 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     v = grid if direction == "forward" else -grid
     inside = (v >= fmodel.lower) & (v <= fmodel.upper)
     takes_part = inside & (v >= auc.floor)
-    if rule in ("second_price", "ascending"):
+    note = R.get(rule).note[direction]
+    if pricing.truthful:
         bids = v.copy()
-        note = ("bidding one's own " + ("value" if direction == "forward" else "cost")
-                + " is a dominant strategy under this rule (Vickrey 1961)")
     else:
         s_q = fmodel.neg_log_cdf(v)
         s_q = np.minimum(s_q, auc.s_r)
         b = np.full(v.shape, auc.lone_price if bidders == 1 else auc.floor)
         live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
         b[live] = auc.bids_at_s(s_q[live])
-        fwd = direction == "forward"
-        if rule == "all_pay":
+        if pricing is R.ALL_PAY:
             # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
             win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
             with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
                 bids = np.where(win > 0.0, win * b, 0.0)
-            note = ("all-pay equilibrium bid a(v) = F(v)^(n-1) b(v), b the first-price bid (Krishna 2009, ch. 2)" if fwd else
-                    "all-pay equilibrium ask a(c) = S(c)^(n-1) b(c), b the first-price ask (the mirror of Krishna 2009, ch. 2)")
         else:
             bids = b
-            note = ("symmetric equilibrium bid b(v) = E[max(Y, r) | Y < v], Y the highest rival value (Krishna 2009, ch. 2)" if fwd else
-                    "symmetric equilibrium ask b(c) = E[min(Y, p) | Y > c], Y the lowest rival cost, p the maximum price (the mirror of Krishna 2009, ch. 2)")
-            if rule == "descending":
-                note += "; the " + ("descending" if fwd else "rising") + " clock is strategically the same as first-price"
     if direction == "reverse":
         bids = -bids
     out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]

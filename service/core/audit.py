@@ -20,6 +20,8 @@ import math
 
 import numpy as np
 
+from . import rules as R
+
 #: How far, in units in the last place of the figures compared, rounding can carry a
 #: figure across a bound that holds exactly (sums of a few rounded terms).
 ULPS = 32
@@ -140,7 +142,11 @@ def joint_density(report):
 
 # ---- auctions ----------------------------------------------------------------------
 
-_WINNER_PAYS = ("first_price", "second_price", "ascending", "descending")
+def _winner_pays(rule):
+    """Whether only the winner pays under the rule (so it pays at least the floor)."""
+    return R.get(rule).pricing.only_winner_pays
+
+
 #: Revenue equivalence holds exactly under the stated assumptions (Myerson 1981; Riley and
 #: Samuelson 1981); the routes agree to about 1e-13, so a wider gap is a lost digit, not a law.
 EQUIVALENCE_RTOL = 1e-8
@@ -183,7 +189,7 @@ def revenue(report, model, reserve, own_value):
                  "efficiency is a share of the largest gains from trade")
         a.at_least(res, sd_k, 0.0, f"{path}.{sd_k}", "an sd is never negative")
         _surpluses(a, res, mean_k, path, floor, reverse)
-        if p is not None and math.isfinite(floor) and (res["rule"] in _WINNER_PAYS or report["bidders"] == 1):
+        if p is not None and math.isfinite(floor) and (_winner_pays(res["rule"]) or report["bidders"] == 1):
             if reverse:
                 a.at_most(res, mean_k, floor * p, f"{path}.{mean_k}", "the winner is paid at most the maximum price")
             else:
@@ -208,7 +214,7 @@ def _surpluses(a, holder, mean_k, path, floor, reverse):
     scale = (holder.get(mean_k),)
     a.at_least(holder, "expected_bidder_surplus", 0.0, f"{path}.expected_bidder_surplus",
                "no bidder expects to lose by taking part", scale)
-    if holder["rule"] in _WINNER_PAYS or (-floor if reverse else floor) >= 0.0:
+    if _winner_pays(holder["rule"]) or (-floor if reverse else floor) >= 0.0:
         a.at_least(holder, "expected_winner_surplus", 0.0, f"{path}.expected_winner_surplus",
                    "the winner pays at most its value", scale)
 
@@ -243,7 +249,7 @@ def bids(report, model, reserve):
     floor = sign * _floor(model, reserve, report["bidders"], reverse)
     twin = [None if b is None else sign * b for b in report["bids"]]  # forward bids
     word = "cost" if reverse else "value"
-    winner_pays = report["rule"] in _WINNER_PAYS or report["bidders"] == 1
+    winner_pays = _winner_pays(report["rule"]) or report["bidders"] == 1
     for i, x in enumerate(at):
         if twin[i] is None or x is None:
             continue
@@ -304,8 +310,7 @@ def sweep(report, model, own_value=None):
     scale = table.array(mean_k) if mean_k in table else None
     table.bound(a, "expected_bidder_surplus", 0.0, None, "no bidder expects to lose by taking part", scale)
     if "expected_winner_surplus" in table:
-        rule = np.array([c for c in table.column("rule")])
-        pays = np.isin(rule, _WINNER_PAYS) | ((-floor if reverse else floor) >= 0.0)
+        pays = np.array([_winner_pays(c) for c in table.column("rule")]) | ((-floor if reverse else floor) >= 0.0)
         table.bound(a, "expected_winner_surplus", np.where(pays, 0.0, np.nan), None, "the winner pays at most its value", scale)
     if "efficiency" in table:
         gains = _trades_gain_array(model, reserve, own_value, reverse)

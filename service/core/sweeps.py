@@ -19,6 +19,7 @@ import math
 import numpy as np
 
 from . import audit, auctions, budget
+from . import rules as R
 from . import orderstats as os_
 from .auctions import FAR_RESERVE, ForwardAuction, _check_price_exists, _forward_case, price_moment_exists
 from .errors import ParameterError
@@ -30,8 +31,6 @@ METRICS = {
     "reverse": ("expected_payment", "payment_sd", "probability_of_award", "expected_winner_surplus",
                 "expected_bidder_surplus", "efficiency", "expected_payoff"),
 }
-_ROUTE = {"second_price": "sp", "ascending": "sp", "first_price": "fp", "descending": "fp", "all_pay": "ap"}
-_RULE_OF = {"sp": "second_price", "fp": "first_price", "ap": "all_pay"}
 
 
 def _t_of(s, k):
@@ -79,7 +78,7 @@ def _block(model, n, reserves, v0):
         with np.errstate(invalid="ignore"):
             rev = np.where(p_sale > 0, reserves * p_sale, 0.0)
             sd = np.where(p_sale > 0, np.abs(reserves) * np.sqrt(p_sale * (1.0 - p_sale)), 0.0)
-        for key in ("sp", "fp", "ap"):
+        for key in ("second", "first", "all_pay"):
             out[key] = (rev, sd, rev)
         out["e1"] = _weigh(W, dens * v)
         gains = _gains(model, q, dens, W, s_r, 1.0, v0)
@@ -87,7 +86,7 @@ def _block(model, n, reserves, v0):
             gains = (gains[0] + (floor - reserves) * p_sale, *gains[1:])
         out["gains"] = gains
         return out
-    out["sp"], loose = _second_price_block(model, n, floor, binds, s_r, p_sale)
+    out["second"], loose = _second_price_block(model, n, floor, binds, s_r, p_sale)
     auc = ForwardAuction(model, n, None, v0)
     q1 = auc._inner_quadrature()
     W1 = q1.cut_weights(_t_of(s_r, n - 1.0))
@@ -116,16 +115,22 @@ def _beyond_nodes(q, binds, s_r, k):
 
 
 def _single_scenario(model, n, reserve, v0, out, j):
-    """Cell j of every route recomputed with the reserve in place, as /v1/revenue does; its
-    gains are those of /v1/revenue too (kept in ``out["cells"]``)."""
+    """Cell j of every pricing recomputed with the reserve in place, as /v1/revenue does (by
+    the first rule registered with each pricing); its gains are those of /v1/revenue too
+    (kept in ``out["cells"]``)."""
     auc = ForwardAuction(model, n, reserve, v0)
-    figures, _ = auctions.forward_figures(auc, ["second_price", "first_price", "all_pay"], [])
-    sp, fp, ap = figures["second_price"], figures["first_price"], figures["all_pay"]
-    winner_ap = ap["expected_revenue"] if auc.single_price is not None else auctions.all_pay_winner_payment(auc)
-    for key, f, paid in (("sp", sp, sp["expected_revenue"]), ("fp", fp, fp["expected_revenue"]), ("ap", ap, winner_ap)):
+    by_pricing = {}
+    for name in R.names():
+        by_pricing.setdefault(R.get(name).pricing.name, name)
+    figures, _ = auctions.forward_figures(auc, list(by_pricing.values()), [])
+    for key, name in by_pricing.items():
+        f = figures[name]
+        paid = f["expected_revenue"]
+        if key == R.ALL_PAY.name and auc.single_price is None:
+            paid = auctions.all_pay_winner_payment(auc)
         for arr, x in zip(out[key], (f["expected_revenue"], f["revenue_sd"], paid)):
             arr[j] = math.nan if x is None else x
-    out.setdefault("cells", {})[j] = figures
+    out.setdefault("cells", {})[j] = {key: figures[name] for key, name in by_pricing.items()}
     got = auctions.winner_value(auc)
     out["e1"][j] = math.nan if got is None else got
 
@@ -186,7 +191,7 @@ def _second_price_block(model, n, floor, binds, s_r, p_sale):
 
 
 def _bid_block(auc, W1, floor, binds, s_r, p_sale):
-    """({"fp": ..., "ap": ..., "e1": ...}, cells that lost their digits): first price and
+    """({"first": ..., "all_pay": ..., "e1": ...}, cells that lost their digits): first price and
     all-pay, each (revenue, sd, the winner's payment), on the nodes of the highest rival value. With g = G(r)/G(v) = e^(-(n-1)(s_r - s)), b_r = b_0 + g delta,
     delta = r - b_0(r); the terms in g are integrated in closed form or with g's growth folded
     into a smooth integrand, never by interpolating g itself across a cut panel."""
@@ -215,7 +220,7 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
         b_off, du = (b_off - c) / unit, delta / unit
         first = _weigh(W1, outer * b_off) + du * n * g_r * sx
         second = _weigh(W1, outer * b_off**2) + 2.0 * du * g_r * (_weigh(W1, n * single * b_off)) + du**2 * i3
-        out = {"fp": (rev_fp, _conditional_sd(p_sale, _weigh(W1, outer), ref + c, first, second, unit), rev_fp)}
+        out = {"first": (rev_fp, _conditional_sd(p_sale, _weigh(W1, outer), ref + c, first, second, unit), rev_fp)}
         a0 = nb.first_rule(nb.rivals) * b0  # a_r(v) = F(v)^(n-1) b_0(v) + G(r) delta
         lift = g_r * delta
         ea0, paid = _weigh(W1, single * a0), _weigh(W1, outer * a0)
@@ -226,7 +231,7 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
         a0u, liftu = a0 / unit, lift / unit
         ea0u = _weigh(W1, single * a0u)
         eau, ea2u = ea0u + liftu * sx, _weigh(W1, single * a0u * a0u) + 2.0 * liftu * ea0u + liftu**2 * sx
-        out["ap"] = (n * ea, unit * np.sqrt(n * np.maximum(ea2u - eau * eau, 0.0)), winner_pays)
+        out["all_pay"] = (n * ea, unit * np.sqrt(n * np.maximum(ea2u - eau * eau, 0.0)), winner_pays)
     values = nb.first_rule(nb.values)
     out["e1"] = _weigh(W1, outer * values)
     # floor <= a bid <= the value, so |revenue| <= P(sale) |floor| + E[|X1|; sale], and each
@@ -291,20 +296,20 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
     """One row's figures from its bidder count's block: reserve j, ``rule``. The surpluses
     and the efficiency come from the gains integrated directly (``_gains``); a figure that
     does not exist is None."""
-    route = _ROUTE[rule]
+    route = R.get(rule).pricing.name
     rev, sd, winner_pays = (x[j] for x in blk[route])
     p_sale, gains = blk["p_sale"][j], blk["gains"]
     has_var = has_var or p_sale == 0.0
     bidders = winner = efficiency = None
     recomputed = blk.get("cells", {}).get(j)
     if recomputed is not None:  # the single-scenario route's own gains (see ``_single_scenario``)
-        f = recomputed[_RULE_OF[route]]
+        f = recomputed[route]
         winner, bidders, efficiency = f["expected_winner_surplus"], f["expected_bidder_surplus"], f["efficiency"]
     elif gains is not None:
         surplus, best, lost = gains
         # without a precise S / f, E[X1; sale] less the revenue
         bidders = surplus[j] if surplus is not None else blk["e1"][j] - rev
-        winner = bidders if rule != "all_pay" or n == 1 else blk["e1"][j] - winner_pays
+        winner = bidders if R.get(rule).pricing is not R.ALL_PAY or n == 1 else blk["e1"][j] - winner_pays
         efficiency = None if best is None or not best > 0 else 1.0 - lost[j] / best
     return {
         names[0]: sign * rev,
@@ -354,7 +359,7 @@ def _note_nulls(blk, has_var, rules, n, warnings):
     """Say why figures of this bidder count are null where the mathematics has them."""
     if not all(has_var.values()):
         warnings.append(f"{n} bidders: some sds are null (the price's variance does not exist: the value model's tail is too heavy)")
-    if any(not np.all(np.isfinite(blk[_ROUTE[rule]][1])) for rule in rules if has_var[rule, 1]):
+    if any(not np.all(np.isfinite(blk[R.get(rule).pricing.name][1])) for rule in rules if has_var[rule, 1]):
         warnings.append(f"{n} bidders: some sds are null (beyond double precision, about 1e308)")
     far = (blk["p_sale"] > 0.0) & (blk["p_sale"] < n * FAR_RESERVE)
     if np.any(far & ~np.isfinite(blk["e1"])):

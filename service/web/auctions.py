@@ -6,15 +6,15 @@ Each request names the value model as ``bidder_values`` (forward: a sale) or
 from __future__ import annotations
 
 from flask import Blueprint
-from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import Schema, ValidationError, validates_schema
 
 from ..core import auctions
-from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
+from ..core import rules as core_rules
+from .fields import CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
 from . import admission
 from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
-RULE = validate.OneOf(auctions.RULES)
 
 
 class _AuctionRequest(Schema):
@@ -51,20 +51,14 @@ def _case(req):
 
 class RevenueRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
-    rules = CappedList(fields.String(validate=RULE), 1, len(auctions.RULES), load_default=lambda: list(auctions.RULES))
+    rules = rule_list(load_default=lambda: list(core_rules.names()))
     quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
-
-    @validates_schema
-    def _unique_rules(self, data, **kw):
-        rules = data.get("rules") or []
-        if len(set(rules)) != len(rules):
-            raise ValidationError({"rules": ["Each rule at most once."]})
 
 
 class BidStrategyRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
-    rule = fields.String(load_default="first_price", validate=RULE)
+    rule = RuleName(load_default="first_price")
     points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
     at = CappedList(StrictFloat(), 1, "points", load_default=None)
 

@@ -13,6 +13,7 @@ from marshmallow import Schema, ValidationError, fields, validate
 
 from .. import settings
 from ..core import models as M
+from ..core import rules
 from ..core.errors import ParameterError
 
 
@@ -27,10 +28,31 @@ def caps():
 
 
 def _limit(bound):
-    """(the bound, its cap's variable or None): a number, or a cap named by its field."""
+    """(the bound, its cap's variable or None): a number, a cap named by its field, or a
+    function giving the bound when a request loads."""
     if isinstance(bound, str):
         return getattr(caps(), bound), settings.ENV_NAMES[bound]
-    return bound, None
+    return (bound() if callable(bound) else bound), None
+
+
+class RuleName(fields.String):
+    """The name of a registered auction rule (``core.rules``), read when a request loads."""
+
+    def _deserialize(self, value, attr, data, **kw):
+        name = super()._deserialize(value, attr, data, **kw)
+        if name not in rules.names():
+            raise ValidationError(f"Must be one of: {', '.join(rules.names())}.")
+        return name
+
+
+def rule_list(**kw):
+    """A list of rule names, each at most once, at most as many as there are rules."""
+    return CappedList(RuleName(), 1, lambda: len(rules.names()), validate=_once, **kw)
+
+
+def _once(names):
+    if len(set(names)) != len(names):
+        raise ValidationError("Each rule at most once.")
 
 
 class StrictFloat(fields.Field):

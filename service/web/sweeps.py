@@ -8,14 +8,14 @@ import io as _io
 import numpy as np
 
 from flask import Blueprint, Response, request
-from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import Schema, ValidationError, fields, validates_schema
 
-from ..core import auctions, sweeps
+from ..core import sweeps
 from ..core.budget import BudgetSpent
 from . import query
 from . import admission
 from .auctions import _AuctionRequest, _case, _model_work
-from .fields import CappedList, StrictFloat, StrictInteger, caps
+from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
 from .io import core_call, json_body, json_response, load
 from .problems import spent_error, validation_problem
 
@@ -117,14 +117,11 @@ def _float_range(r):
 class SweepRequest(_AuctionRequest):
     bidders = _ListOrRange(StrictInteger(minimum=1, maximum="bidders"), IntRange, _int_range, required=True)
     reserves = _ListOrRange(StrictFloat(), FloatRange, _float_range, required=True)
-    rules = CappedList(fields.String(validate=validate.OneOf(auctions.RULES)), 1, len(auctions.RULES),
-                       load_default=lambda: ["first_price", "second_price"])
+    rules = rule_list(load_default=lambda: ["first_price", "second_price"])
     metrics = CappedList(fields.String(), 1, len(sweeps.METRICS["forward"]), load_default=None)
 
     @validates_schema
     def _size(self, data, **kw):
-        if len(set(data.get("rules") or [])) != len(data.get("rules") or []):
-            raise ValidationError({"rules": ["Each rule at most once."]})
         if all(k in data for k in ("bidders", "reserves", "rules")):
             rows = len(data["bidders"]) * len(data["reserves"]) * len(data["rules"])
             if rows > caps().sweep_rows:
