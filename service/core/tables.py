@@ -170,7 +170,11 @@ class LogTable:
     def log_values(self, x):
         """(log F or log S, which) at points that ``covers``: which is True for log F."""
         p = self._panel(x)
-        return clenshaw(self.coeffs[:, p], (x - self.mid[p]) / self.half[p]), self.lower[p]
+        # Clipped: on a panel a few ulps wide (seeds that nearly coincide, such as a kink
+        # and a probe value next to it), rounding x - mid puts its ends outside [-1, 1],
+        # where the series would be extrapolated.
+        s = np.clip((x - self.mid[p]) / self.half[p], -1.0, 1.0)
+        return clenshaw(self.coeffs[:, p], s), self.lower[p]
 
     def cdf_sf(self, x):
         """(F, S) at points that ``covers``."""
