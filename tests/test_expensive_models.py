@@ -334,6 +334,28 @@ def test_kernel_quantiles_against_brute_force(kernel_sample):
         assert np.all(np.abs(got[which] - target) <= 1e-13 * target + slack)
 
 
+def test_kernel_sample_over_many_decades_against_brute_force():
+    # Invented: 2,000 values spread over some 30 decades (lognormal, sigma 10), dense near 1
+    # and far apart in the tails, so that the windowed sums' blocks of points are wide in
+    # the bulk and narrow in the tails. The brute-force sums over all N terms are the
+    # reference for F, S and f at the sample's values and between them, and for quantiles.
+    sample = np.exp(np.random.default_rng(20261203).normal(0.0, 10.0, 2000))
+    model = M.empirical(sample, "kernel")
+    h = model.h
+    x = np.unique(np.concatenate((np.linspace(sample.min() - 12 * h, 40 * h, 300), sample[::5] + 0.7 * h,
+                                  np.geomspace(h, sample.max() + 12 * h, 300))))
+    F, Sv, f = _brute(sample, h, x)
+    slack = 4e-16 * np.abs(x) * f
+    for got, want in ((model.cdf(x), F), (model.sf(x), Sv)):
+        live = want > 1e-300
+        assert np.all(np.abs(got[live] - want[live]) <= 1e-13 * want[live] + slack[live])
+    assert np.allclose(model.pdf(x), f, rtol=1e-13, atol=0.0)
+    u = np.concatenate((np.geomspace(1e-20, 0.5, 100), np.linspace(0.5, 0.999, 30)))
+    for xq, which in ((model.value_at(u, 1.0 - u), 0), (model.value_at(1.0 - u, u), 1)):
+        got = _brute(sample, h, xq)
+        assert np.all(np.abs(got[which] - u) <= 1e-13 * u + 4e-16 * np.abs(xq) * got[2])
+
+
 def test_kernel_ten_thousand_values_revenue_against_quad(kernel_sample):
     # scipy.integrate.quad of E[second-highest of 10] over the brute-force kernel sums;
     # every rule's revenue equals it (revenue equivalence, Myerson 1981).

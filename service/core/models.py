@@ -1359,13 +1359,14 @@ class KernelSmoothed(_Tabulated):
         xs = flat[order]
         i0, i1, ones = self._window(xs, kind)
         out = ones.astype(float)
-        n, start = len(self.c), 0
-        width = max(int(np.max(i1 - i0, initial=0)), 1)
-        k = np.arange(width)
+        n, start, widths = len(self.c), 0, np.maximum(i1 - i0, 1)
         while start < len(xs):
             budget.check()
-            stop = min(len(xs), start + max(1, _CHUNK // width))
-            idx = i0[start:stop, None] + k
+            # A block of neighbouring points, padded to its widest window: where the sample
+            # is sparse (a long tail) the windows are narrow, and so are its blocks.
+            stop = min(len(xs), start + max(1, _CHUNK // int(widths[start])))
+            stop = min(stop, start + max(1, _CHUNK // int(widths[start:stop].max())))
+            idx = i0[start:stop, None] + np.arange(int(widths[start:stop].max()))
             z = (xs[start:stop, None] - self.c[np.minimum(idx, n - 1)]) / self.h
             term = sp.ndtr(z) if kind == "cdf" else sp.ndtr(-z) if kind == "sf" else np.exp(-0.5 * z * z)
             out[start:stop] += np.sum(np.where(idx < i1[start:stop, None], term, 0.0), axis=1)
