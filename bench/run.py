@@ -466,18 +466,28 @@ def section_sweeps(ctx):
 # --------------------------------------------------------------------------
 # The core before the work on expensive requests (git revision; BENCH_BASELINE
 # overrides, "none" skips the comparison), and how long it may run per request.
-BASELINE = os.environ.get("BENCH_BASELINE", "2d6b124")
+BASELINE = os.environ.get("BENCH_BASELINE", "5cd6ddc")
 BASELINE_CAP_S = 20.0
-_BASELINE_SCRIPT = """
+# Runs one request in a fresh interpreter on the service package found first on
+# PYTHONPATH, after the same request on a lognormal model (not timed); with tables off,
+# mixtures and kernel densities use their exact sums only.
+_SUBPROCESS_SCRIPT = """
 import contextlib, json, os, sys, time
+path, body, tables = json.loads(sys.stdin.read())
+if not tables:
+    from service.core import models
+    models._Tabulated.tabulate = False
 from service import create_app
-path, body = json.loads(sys.stdin.read())
 client = create_app().test_client()
-t = time.perf_counter()
 with open(os.devnull, "w") as sink, contextlib.redirect_stderr(sink):
+    # A light request first, so that the modules it loads on first use are not timed.
+    client.post(path, json={**body, next(k for k in body if k.startswith("bidder_")):
+                            {"family": "lognormal", "median": 1.0, "sigma": 0.5}})
+    t = time.perf_counter()
     r = client.post(path, json=body)
 print(json.dumps({"seconds": time.perf_counter() - t, "status": r.status_code, "body": r.get_json()}))
 """
+ROOT = Path(__file__).resolve().parents[1]
 
 
 def _stress_component(i):
@@ -501,28 +511,30 @@ def _normal_pair(mean_low, mean_high, sd=5.0):
                                                for m in (mean_low, mean_high)]}
 
 
-def _kernel_body(n):
+def _kernel_values(n):
     sample = np.round(np.random.default_rng(7).lognormal(math.log(62000.0), 0.35, n), 2).tolist()  # invented
-    return {"bidder_values": {"family": "empirical", "sample": sample, "smoothing": "kernel"}, "bidders": 10}
+    return {"family": "empirical", "sample": sample, "smoothing": "kernel"}
 
 
 def expensive_cases():
-    """(label, path, body): the requests that ran into the time budget before."""
+    """(label, path, body, also with tables off): the requests that ran into the time budget before."""
     nested = {"family": "mixture", "components": [{"weight": 1.0 / 50, "model": _stress_mixture(50, j)} for j in range(50)]}
     return [
         ("irregular reserve: normals at 100 and 140, 7 bidders", "/v1/reserve-price",
-         {"bidder_values": _normal_pair(100.0, 140.0), "bidders": 7}),
+         {"bidder_values": _normal_pair(100.0, 140.0), "bidders": 7}, False),
         ("irregular reserve: normals at 100 and 183.6, seller 105.7", "/v1/reserve-price",
-         {"bidder_values": _normal_pair(100.0, 183.6), "bidders": 7, "seller_value": 105.7}),
-        ("kernel model of 1,000 values, 10 bidders, revenue", "/v1/revenue", _kernel_body(1000)),
-        ("kernel model of 3,000 values, 10 bidders, revenue", "/v1/revenue", _kernel_body(3000)),
-        ("kernel model of 10,000 values, 10 bidders, revenue", "/v1/revenue", _kernel_body(10000)),
-        ("50-component mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 6}),
-        ("50 x 50 nested mixture, bids at 2,001 points", "/v1/bid-strategy",
-         {"bidder_values": nested, "bidders": 6, "points": 2001}),
-        ("50 x 50 nested mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": nested, "bidders": 6}),
+         {"bidder_values": _normal_pair(100.0, 183.6), "bidders": 7, "seller_value": 105.7}, False),
+        ("kernel model of 1,000 values, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _kernel_values(1000), "bidders": 10}, False),
+        ("kernel model of 10,000 values, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
+        ("kernel model of 1,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(1000), "bidders": 10}, False),
+        ("kernel model of 10,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
+        ("50-component mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 6}, True),
+        ("50-component mixture, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 10}, False),
+        ("50 x 50 nested mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": nested, "bidders": 6}, True),
         ("50 x 50 nested mixture, sweep of 10 counts x 11 reserves", "/v1/sweeps",
-         {"bidder_values": nested, "bidders": {"from": 2, "to": 11}, "reserves": {"from": 30000, "to": 80000, "steps": 11}}),
+         {"bidder_values": nested, "bidders": {"from": 2, "to": 11}, "reserves": {"from": 30000, "to": 80000, "steps": 11}}, False),
+        ("50 x 50 nested mixture, bids at 2,001 points", "/v1/bid-strategy",
+         {"bidder_values": nested, "bidders": 6, "points": 2001}, False),
     ]
 
 
@@ -532,6 +544,8 @@ def _figures(path, body):
         return [body["expected_payoff_at_optimum"]]
     if path == "/v1/revenue":
         return [r["expected_revenue"] for r in body["results"]]
+    if path == "/v1/top-values":
+        return [r[k] for r in body["results"] for k in ("mean", "sd") if isinstance(r.get(k), float)]
     if path == "/v1/bid-strategy":
         return [b for b in body["bids"] if b is not None]
     return [c for row in body["rows"] for c in row[3:] if isinstance(c, float)]
@@ -542,9 +556,8 @@ def _baseline_tree(tmp):
     revision is not at hand (a container image, a shallow clone)."""
     if BASELINE == "none":
         return None
-    root = Path(__file__).resolve().parents[1]
     try:
-        tar = subprocess.run(["git", "-C", str(root), "archive", "--format=tar", BASELINE, "service"],
+        tar = subprocess.run(["git", "-C", str(ROOT), "archive", "--format=tar", BASELINE, "service"],
                              capture_output=True, check=True).stdout
     except (OSError, subprocess.CalledProcessError):
         return None
@@ -553,12 +566,14 @@ def _baseline_tree(tmp):
     return tmp
 
 
-def _run_baseline(tree, path, body):
-    """(seconds, answer) of the previous core, or (None, note) past the cap."""
-    env = {**os.environ, "PYTHONPATH": tree, "PYTHONDONTWRITEBYTECODE": "1", "BIDSTATS_MAX_SECONDS": str(int(BASELINE_CAP_S * 10))}
+def _run_apart(tree, path, body, tables=True):
+    """(seconds, answer) of the request on the core in ``tree``, in a fresh subprocess,
+    or (None, note) past the cap."""
+    env = {**os.environ, "PYTHONPATH": str(tree), "PYTHONDONTWRITEBYTECODE": "1",
+           "BIDSTATS_MAX_SECONDS": str(int(BASELINE_CAP_S * 10))}
     try:
-        done = subprocess.run([sys.executable, "-c", _BASELINE_SCRIPT], input=json.dumps([path, body]), text=True,
-                              capture_output=True, env=env, cwd=tree, timeout=BASELINE_CAP_S + 10.0)
+        done = subprocess.run([sys.executable, "-c", _SUBPROCESS_SCRIPT], input=json.dumps([path, body, tables]), text=True,
+                              capture_output=True, env=env, cwd=str(tree), timeout=BASELINE_CAP_S + 10.0)
         out = json.loads(done.stdout.strip().splitlines()[-1])
     except subprocess.TimeoutExpired:
         return None, f"stopped after {BASELINE_CAP_S:g} s"
@@ -569,37 +584,63 @@ def _run_baseline(tree, path, body):
     return out["seconds"], out["body"] if out["status"] == 200 else None
 
 
+def _agreement(path, ours, answer):
+    if answer is None:
+        return "-"
+    got, want = _figures(path, ours), _figures(path, answer)
+    if len(got) != len(want):
+        return "differ"
+    return fmt_err(max(abs(g - w) / max(abs(w), 1e-300) for g, w in zip(got, want)))
+
+
+def _versus(seconds, note, ours):
+    """The time column and the ratio column of a reference run."""
+    if seconds is not None:
+        return fmt_time(seconds), fmt_ratio(seconds, ours)
+    stopped = note.startswith(("stopped", "over"))
+    return note, (f"> {BASELINE_CAP_S / ours:.0f}x" if stopped else "-")
+
+
 def section_expensive(ctx):
     heading("Expensive requests: irregular reserve, kernel models, large and nested mixtures")
-    print("ours:     the request in-process through app.test_client(), median of 3 (each builds its model anew)")
-    print(f"previous: the same request on the core at git revision {BASELINE} (before this work), in a fresh")
-    print(f"          subprocess, once, stopped after {BASELINE_CAP_S:g} s; agreement = largest relative difference of the answers' numbers")
+    print("ours:       the request in-process through app.test_client(), median of 3 (each builds its model anew)")
+    print(f"previous:   the same request on the core at git revision {BASELINE} (before this work), in a fresh")
+    print(f"            subprocess, once, stopped after {BASELINE_CAP_S:g} s")
+    print("tables off: the same request on this core with the log F / log S tables off (exact sums only),")
+    print("            likewise, for the kernel and mixture requests marked; agreement = largest relative")
+    print("            difference of the answers' numbers from ours")
     print()
     client = create_app().test_client()
     rows, ours_all = [], {}
     with tempfile.TemporaryDirectory() as tmp:
         tree = _baseline_tree(tmp)
-        for label, path, body in expensive_cases():
+        for label, path, body, tables_off in expensive_cases():
             resp = client.post(path, json=body)
             ours = statistics.median(timeit.repeat(lambda: client.post(path, json=body), number=1, repeat=3))
             ours_all[label] = ours
-            before, answer = _run_baseline(tree, path, body) if tree else (None, "not run")
-            agree = "-"
-            if before is not None and answer is not None and resp.status_code == 200:
-                got, want = _figures(path, resp.get_json()), _figures(path, answer)
-                agree = fmt_err(max(abs(g - w) / max(abs(w), 1e-300) for g, w in zip(got, want)))
-            stopped = before is None and answer.startswith(("stopped", "over"))
-            rows.append([label, str(resp.status_code), fmt_time(ours), fmt_time(before) if before else answer,
-                         fmt_ratio(before, ours) if before else (f"> {BASELINE_CAP_S / ours:.0f}x" if stopped else "-"), agree])
+            mine = resp.get_json() if resp.status_code == 200 else None
+            before, answer = _run_apart(tree, path, body) if tree else (None, "not run")
+            row = [label, str(resp.status_code), fmt_time(ours), *_versus(before, answer, ours),
+                   _agreement(path, mine, answer) if before and mine else "-"]
             if before:
                 ctx["expensive_ratio_min"] = min(ctx.get("expensive_ratio_min", math.inf), before / ours)
-    print(table(["request", "status", "ours", "previous", "previous/ours", "agreement"], rows))
+            if tables_off:
+                plain, answer = _run_apart(ROOT, path, body, tables=False)
+                row += [*_versus(plain, answer, ours), _agreement(path, mine, answer) if plain and mine else "-"]
+                ctx["tables_ratio_min"] = min(ctx.get("tables_ratio_min", math.inf), (plain or BASELINE_CAP_S) / ours)
+            else:
+                row += ["", "", ""]
+            rows.append(row)
+    print(table(["request", "status", "ours", "previous", "previous/ours", "agreement",
+                 "tables off", "off/ours", "agreement"], rows))
     if tree is None:
         print(f"note: the previous core (git revision {BASELINE}) is not at hand, so it was not run")
     ctx["expensive_max"] = max(ours_all.values())
-    kernel = [t for label, t in ours_all.items() if label.startswith("kernel")]
-    ctx["kernel_scaling"] = kernel[-1] / kernel[0]
-    print(f"kernel model: our time at 10,000 values / at 1,000 = {ctx['kernel_scaling']:.2f}x (a cost linear in the sample would be 10x)")
+    for kind in ("revenue", "top values"):
+        small, large = (ours_all[f"kernel model of {n} values, 10 bidders, {kind}"] for n in ("1,000", "10,000"))
+        ctx[f"kernel_scaling_{kind}"] = large / small
+        print(f"kernel model, {kind}: our time at 10,000 values / at 1,000 = {large / small:.2f}x "
+              "(a cost linear in the sample would be 10x)")
 
 
 def section_http(ctx):
@@ -654,10 +695,14 @@ def section_summary(ctx):
         rows.append(row("sweep of 20,000 rows through HTTP (worst model)", fmt_time(get("sweep_max")), "< 1 s", get("sweep_max") < 1.0))
         rows.append(row("cell-by-cell time / sweep time (worst model)", f"{get('sweep_cells_ratio_min'):.1f}x", "(reported)", None))
     if get("expensive_max") is not None:
-        rows.append(row("expensive requests: our slowest, in-process", fmt_time(get("expensive_max")), "< 5 s", get("expensive_max") < 5.0))
+        rows.append(row("expensive requests: our slowest, in-process", fmt_time(get("expensive_max")), "< 4 s", get("expensive_max") < 4.0))
         if get("expensive_ratio_min") is not None:
             rows.append(row("expensive requests: previous core / ours (least, finished)", f"{get('expensive_ratio_min'):.1f}x", "(reported)", None))
-        rows.append(row("kernel model: time at 10,000 values / at 1,000", f"{get('kernel_scaling'):.2f}x", "< 10x", get("kernel_scaling") < 10))
+        if get("tables_ratio_min") is not None:
+            rows.append(row("expensive requests: tables off / on (least)", f"{get('tables_ratio_min'):.1f}x", "> 1x", get("tables_ratio_min") > 1.0))
+        for kind in ("revenue", "top values"):
+            ratio = get(f"kernel_scaling_{kind}")
+            rows.append(row(f"kernel model, {kind}: time at 10,000 values / at 1,000", f"{ratio:.2f}x", "< 10x", ratio < 10))
     if get("http_ratios") is not None:
         for name, ratio in get("http_ratios").items():
             target = get("http_targets")[name]
