@@ -1099,13 +1099,19 @@ class _Tabulated(ValueModel):
         return np.where(v <= 0.0, self.upper, x).reshape(shape)
 
     def _exact_quantiles(self, table, p, u, v):
-        """Newton on the exact sums: inside a panel marked exact, or beyond the table's ends."""
+        """Newton on the exact sums: inside a panel marked exact, or beyond the table's ends.
+        Beyond an end, the table's end is one side of every bracket, and the model's bracket
+        of the most extreme target there the other (quantiles are monotone, so it holds all
+        of them; Newton's steps in log x make up the looseness in a step or two), so that a
+        mixture takes its leaves' quantiles at one point rather than at each."""
         lo, hi = table.a[np.maximum(p, 0)], table.b[np.maximum(p, 0)]
-        off = p < 0
-        if off.any():
-            blo, bhi = self._bracket(u[off], v[off])
-            lo[off] = np.where(p[off] == -2, np.broadcast_to(blo, u[off].shape), table.hi)
-            hi[off] = np.where(p[off] == -2, table.lo, np.broadcast_to(bhi, u[off].shape))
+        below, above = p == -2, p == -1
+        if below.any():
+            j = np.nonzero(below)[0][np.argmin(u[below])]
+            lo[below], hi[below] = float(np.min(self._bracket(u[j:j + 1], v[j:j + 1])[0])), table.lo
+        if above.any():
+            j = np.nonzero(above)[0][np.argmin(v[above])]
+            lo[above], hi[above] = table.hi, float(np.max(self._bracket(u[j:j + 1], v[j:j + 1])[1]))
         x = np.empty(u.shape)
         for use_sf in (False, True):
             pick = (v < 0.5) == use_sf
