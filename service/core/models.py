@@ -1213,6 +1213,7 @@ class Mixture(_Tabulated):
                 continue
             step = max(1, _CHUNK // len(ws))
             for i in range(0, len(flat), step):
+                budget.check()
                 vals = getattr(m, method)(flat[None, i:i + step])
                 out[i:i + step] += ws @ vals if vals.shape[0] == len(ws) else ws.sum() * vals[0]
         return out.reshape(x.shape)
