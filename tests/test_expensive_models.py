@@ -475,6 +475,19 @@ def test_irregular_reserve_against_brute_force(spec, n, v0, winner):
     assert rep["expected_payoff_at_optimum"] == pytest.approx(payoff(r_ours), rel=1e-10)
 
 
+@pytest.mark.parametrize("spec", [
+    {"family": "beta", "alpha": 1e-310, "beta": 1e-310},  # quantiles that all round to 0.5: a degenerate grid
+    _normals((0.5, 100.0, 5.0), (0.5, 140.0, 5.0)),
+    _normals((0.7, 100.0, 5.0), (0.3, 150.0, 10.0)),
+], ids=["beta-near-zero-shapes", "100-140", "two-interior-first"])
+def test_reserve_is_never_worse_than_none(spec):
+    # Setting no reserve is always a choice open to the seller (Krishna 2009, ch. 2), so
+    # with a seller's value of 0 the payoff at the optimum is at least the revenue without
+    # one, whatever the search's grid looks like.
+    rep = A.reserve_report(build_value_model(spec), "forward", 6, 0.0)
+    assert rep["expected_payoff_at_optimum"] >= rep["expected_revenue_without_reserve"] * (1.0 - 1e-14)
+
+
 def test_irregular_reserve_reverse_against_brute_force():
     # Procurement: costs from the mixture, the buyer's value B. The buyer's payoff with
     # maximum price p is B P(award) - E[payment], P(award) = 1 - S(p)^n and, under

@@ -1080,6 +1080,10 @@ def optimal_reserve(model, bidders, v0):
             r_star = optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200)
     else:
         r_star = _best_reserve(model, bidders, v0, x, lo, hi, scale)
+        # No reserve is always a choice: a guard for a grid the model's quantiles make
+        # degenerate (a Beta of shapes near 0, whose quantiles all round to one value).
+        if r_star != lo and _sp_payoff(model, bidders, lo, v0)[0] > _sp_payoff(model, bidders, r_star, v0)[0]:
+            r_star = lo
         note = ("the virtual value is not increasing over the support (an irregular model), so every local maximum of "
                 "the expected payoff over reserves was found, and the highest taken")
     return r_star, regular, note
