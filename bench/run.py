@@ -18,6 +18,8 @@ from __future__ import annotations
 import contextlib
 import datetime
 import functools
+import io
+import json
 import math
 import os
 import platform
@@ -26,6 +28,7 @@ import shutil
 import statistics
 import subprocess
 import sys
+import tarfile
 import tempfile
 import time
 import timeit
@@ -458,6 +461,188 @@ def section_sweeps(ctx):
     print("target: well under 1 s for the 20,000 rows")
 
 
+# --------------------------------------------------------------------------
+# Expensive requests: each against the previous core, run in a subprocess
+# --------------------------------------------------------------------------
+# The core before the work on expensive requests (git revision; BENCH_BASELINE
+# overrides, "none" skips the comparison), and how long it may run per request.
+BASELINE = os.environ.get("BENCH_BASELINE", "5cd6ddc")
+BASELINE_CAP_S = 20.0
+# Runs one request in a fresh interpreter on the service package found first on
+# PYTHONPATH, after the same request on a lognormal model (not timed); with tables off,
+# mixtures and kernel densities use their exact sums only.
+_SUBPROCESS_SCRIPT = """
+import contextlib, json, os, sys, time
+path, body, tables = json.loads(sys.stdin.read())
+if not tables:
+    from service.core import models
+    models._Tabulated.tabulate = False
+from service import create_app
+client = create_app().test_client()
+with open(os.devnull, "w") as sink, contextlib.redirect_stderr(sink):
+    # A light request first, so that the modules it loads on first use are not timed.
+    client.post(path, json={**body, next(k for k in body if k.startswith("bidder_")):
+                            {"family": "lognormal", "median": 1.0, "sigma": 0.5}})
+    t = time.perf_counter()
+    r = client.post(path, json=body)
+print(json.dumps({"seconds": time.perf_counter() - t, "status": r.status_code, "body": r.get_json()}))
+"""
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _stress_component(i):
+    """Six families over a wide range, as in the load test's stress mixture (invented)."""
+    return [
+        {"family": "lognormal", "median": 40000 + 1000 * i, "sigma": 0.2 + 0.02 * (i % 40)},
+        {"family": "gamma", "shape": 2 + i % 50, "scale": 3000},
+        {"family": "pareto", "shape": 3.5 + 0.1 * (i % 50), "minimum": 20000 + 500 * i},
+        {"family": "weibull", "shape": 1.5 + 0.1 * (i % 50), "scale": 50000},
+        {"family": "triangular", "low": 10000 * (i % 50), "mode": 10000 * (i % 50) + 5000, "high": 10000 * (i % 50) + 20000},
+        {"family": "uniform", "low": 1000 * i, "high": 1000 * i + 30000},
+    ][i % 6]
+
+
+def _stress_mixture(k, offset=0):
+    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": _stress_component(i + offset)} for i in range(k)]}
+
+
+def _normal_pair(mean_low, mean_high, sd=5.0):
+    return {"family": "mixture", "components": [{"weight": 0.5, "model": {"family": "normal", "mean": m, "sd": sd}}
+                                               for m in (mean_low, mean_high)]}
+
+
+def _kernel_values(n):
+    sample = np.round(np.random.default_rng(7).lognormal(math.log(62000.0), 0.35, n), 2).tolist()  # invented
+    return {"family": "empirical", "sample": sample, "smoothing": "kernel"}
+
+
+def expensive_cases():
+    """(label, path, body, also with tables off): the requests that ran into the time budget before."""
+    nested = {"family": "mixture", "components": [{"weight": 1.0 / 50, "model": _stress_mixture(50, j)} for j in range(50)]}
+    return [
+        ("irregular reserve: normals at 100 and 140, 7 bidders", "/v1/reserve-price",
+         {"bidder_values": _normal_pair(100.0, 140.0), "bidders": 7}, False),
+        ("irregular reserve: normals at 100 and 183.6, seller 105.7", "/v1/reserve-price",
+         {"bidder_values": _normal_pair(100.0, 183.6), "bidders": 7, "seller_value": 105.7}, False),
+        ("kernel model of 1,000 values, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _kernel_values(1000), "bidders": 10}, False),
+        ("kernel model of 10,000 values, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
+        ("kernel model of 1,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(1000), "bidders": 10}, False),
+        ("kernel model of 10,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
+        ("50-component mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 6}, True),
+        ("50-component mixture, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 10}, False),
+        ("50 x 50 nested mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": nested, "bidders": 6}, True),
+        ("50 x 50 nested mixture, sweep of 10 counts x 11 reserves", "/v1/sweeps",
+         {"bidder_values": nested, "bidders": {"from": 2, "to": 11}, "reserves": {"from": 30000, "to": 80000, "steps": 11}}, False),
+        ("50 x 50 nested mixture, bids at 2,001 points", "/v1/bid-strategy",
+         {"bidder_values": nested, "bidders": 6, "points": 2001}, False),
+    ]
+
+
+def _figures(path, body):
+    """The numbers of an answer, for the agreement of two cores."""
+    if path == "/v1/reserve-price":
+        return [body["expected_payoff_at_optimum"]]
+    if path == "/v1/revenue":
+        return [r["expected_revenue"] for r in body["results"]]
+    if path == "/v1/top-values":
+        return [r[k] for r in body["results"] for k in ("mean", "sd") if isinstance(r.get(k), float)]
+    if path == "/v1/bid-strategy":
+        return [b for b in body["bids"] if b is not None]
+    return [c for row in body["rows"] for c in row[3:] if isinstance(c, float)]
+
+
+def _baseline_tree(tmp):
+    """The previous core's service package, from git, in tmp; None where git or the
+    revision is not at hand (a container image, a shallow clone)."""
+    if BASELINE == "none":
+        return None
+    try:
+        tar = subprocess.run(["git", "-C", str(ROOT), "archive", "--format=tar", BASELINE, "service"],
+                             capture_output=True, check=True).stdout
+    except (OSError, subprocess.CalledProcessError):
+        return None
+    with tarfile.open(fileobj=io.BytesIO(tar)) as archive:
+        archive.extractall(tmp)
+    return tmp
+
+
+def _run_apart(tree, path, body, tables=True):
+    """(seconds, answer) of the request on the core in ``tree``, in a fresh subprocess,
+    or (None, note) past the cap."""
+    env = {**os.environ, "PYTHONPATH": str(tree), "PYTHONDONTWRITEBYTECODE": "1",
+           "BIDSTATS_MAX_SECONDS": str(int(BASELINE_CAP_S * 10))}
+    try:
+        done = subprocess.run([sys.executable, "-c", _SUBPROCESS_SCRIPT], input=json.dumps([path, body, tables]), text=True,
+                              capture_output=True, env=env, cwd=str(tree), timeout=BASELINE_CAP_S + 10.0)
+        out = json.loads(done.stdout.strip().splitlines()[-1])
+    except subprocess.TimeoutExpired:
+        return None, f"stopped after {BASELINE_CAP_S:g} s"
+    except (ValueError, IndexError):
+        return None, "failed: " + (done.stderr.strip().splitlines() or ["no output"])[-1][:40]
+    if out["seconds"] > BASELINE_CAP_S:
+        return None, f"over {BASELINE_CAP_S:g} s ({out['seconds']:.0f} s)"
+    return out["seconds"], out["body"] if out["status"] == 200 else None
+
+
+def _agreement(path, ours, answer):
+    if answer is None:
+        return "-"
+    got, want = _figures(path, ours), _figures(path, answer)
+    if len(got) != len(want):
+        return "differ"
+    return fmt_err(max(abs(g - w) / max(abs(w), 1e-300) for g, w in zip(got, want)))
+
+
+def _versus(seconds, note, ours):
+    """The time column and the ratio column of a reference run."""
+    if seconds is not None:
+        return fmt_time(seconds), fmt_ratio(seconds, ours)
+    stopped = note.startswith(("stopped", "over"))
+    return note, (f"> {BASELINE_CAP_S / ours:.0f}x" if stopped else "-")
+
+
+def section_expensive(ctx):
+    heading("Expensive requests: irregular reserve, kernel models, large and nested mixtures")
+    print("ours:       the request in-process through app.test_client(), median of 3 (each builds its model anew)")
+    print(f"previous:   the same request on the core at git revision {BASELINE} (before this work), in a fresh")
+    print(f"            subprocess, once, stopped after {BASELINE_CAP_S:g} s")
+    print("tables off: the same request on this core with the log F / log S tables off (exact sums only),")
+    print("            likewise, for the kernel and mixture requests marked; agreement = largest relative")
+    print("            difference of the answers' numbers from ours")
+    print()
+    client = create_app().test_client()
+    rows, ours_all = [], {}
+    with tempfile.TemporaryDirectory() as tmp:
+        tree = _baseline_tree(tmp)
+        for label, path, body, tables_off in expensive_cases():
+            resp = client.post(path, json=body)
+            ours = statistics.median(timeit.repeat(lambda: client.post(path, json=body), number=1, repeat=3))
+            ours_all[label] = ours
+            mine = resp.get_json() if resp.status_code == 200 else None
+            before, answer = _run_apart(tree, path, body) if tree else (None, "not run")
+            row = [label, str(resp.status_code), fmt_time(ours), *_versus(before, answer, ours),
+                   _agreement(path, mine, answer) if before and mine else "-"]
+            if before:
+                ctx["expensive_ratio_min"] = min(ctx.get("expensive_ratio_min", math.inf), before / ours)
+            if tables_off:
+                plain, answer = _run_apart(ROOT, path, body, tables=False)
+                row += [*_versus(plain, answer, ours), _agreement(path, mine, answer) if plain and mine else "-"]
+                ctx["tables_ratio_min"] = min(ctx.get("tables_ratio_min", math.inf), (plain or BASELINE_CAP_S) / ours)
+            else:
+                row += ["", "", ""]
+            rows.append(row)
+    print(table(["request", "status", "ours", "previous", "previous/ours", "agreement",
+                 "tables off", "off/ours", "agreement"], rows))
+    if tree is None:
+        print(f"note: the previous core (git revision {BASELINE}) is not at hand, so it was not run")
+    ctx["expensive_max"] = max(ours_all.values())
+    for kind in ("revenue", "top values"):
+        small, large = (ours_all[f"kernel model of {n} values, 10 bidders, {kind}"] for n in ("1,000", "10,000"))
+        ctx[f"kernel_scaling_{kind}"] = large / small
+        print(f"kernel model, {kind}: our time at 10,000 values / at 1,000 = {large / small:.2f}x "
+              "(a cost linear in the sample would be 10x)")
+
+
 def section_http(ctx):
     """Requests per second under wrk, each shape next to GET /healthz of the same gunicorn,
     by the load test's own measurement (loadtest/harness.py)."""
@@ -509,6 +694,15 @@ def section_summary(ctx):
     if get("sweep_max") is not None:
         rows.append(row("sweep of 20,000 rows through HTTP (worst model)", fmt_time(get("sweep_max")), "< 1 s", get("sweep_max") < 1.0))
         rows.append(row("cell-by-cell time / sweep time (worst model)", f"{get('sweep_cells_ratio_min'):.1f}x", "(reported)", None))
+    if get("expensive_max") is not None:
+        rows.append(row("expensive requests: our slowest, in-process", fmt_time(get("expensive_max")), "< 4 s", get("expensive_max") < 4.0))
+        if get("expensive_ratio_min") is not None:
+            rows.append(row("expensive requests: previous core / ours (least, finished)", f"{get('expensive_ratio_min'):.1f}x", "(reported)", None))
+        if get("tables_ratio_min") is not None:
+            rows.append(row("expensive requests: tables off / on (least)", f"{get('tables_ratio_min'):.1f}x", "> 1x", get("tables_ratio_min") > 1.0))
+        for kind in ("revenue", "top values"):
+            ratio = get(f"kernel_scaling_{kind}")
+            rows.append(row(f"kernel model, {kind}: time at 10,000 values / at 1,000", f"{ratio:.2f}x", "< 10x", ratio < 10))
     if get("http_ratios") is not None:
         for name, ratio in get("http_ratios").items():
             target = get("http_targets")[name]
@@ -518,9 +712,10 @@ def section_summary(ctx):
 
 
 # Sections that send requests to the app in-process.
-IN_PROCESS = {"section_request", "section_sweeps"}
+IN_PROCESS = {"section_request", "section_sweeps", "section_expensive"}
 
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
+            section_expensive,
             section_http, section_summary]
 
 

@@ -1222,17 +1222,27 @@ def _sp_payoff(model, n, r, v0):
     return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
 
 
+_RESERVE_U = np.concatenate(([1e-9, 1e-6, 1e-4], np.linspace(0.002, 0.998, 499), [1 - 1e-4, 1 - 1e-6, 1 - 1e-9]))
+
+
+def _reserve_grid(model):
+    """Values on a grid in quantile space, with the model's kinks and density dips
+    inside the support (where the virtual value can jump or turn)."""
+    x = model.value_at(_RESERVE_U, 1.0 - _RESERVE_U)
+    kinks = [k for k in model.kink_values() if model.lower < k < model.upper]
+    return np.unique(np.concatenate((x, kinks)))
+
+
 def optimal_reserve(model, bidders, v0):
     """Myerson (1981): the reserve where the virtual value v - S(v)/f(v) equals v0;
-    for an irregular model, a direct search of the payoff over reserves."""
+    for an irregular model, the best of the payoff's local maxima (:func:`_best_reserve`)."""
     if model.discrete:
         raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
-    u = np.concatenate(([1e-9, 1e-6, 1e-4], np.linspace(0.002, 0.998, 499), [1 - 1e-4, 1 - 1e-6, 1 - 1e-9]))
-    x = model.value_at(u, 1.0 - u)
+    x = _reserve_grid(model)
     with np.errstate(all="ignore"):
         psi = x - model.sf(x) / model.pdf(x)
     good = np.isfinite(psi) & np.isfinite(x)
-    if not np.any(good):  # no virtual value can be evaluated: search the payoff directly
+    if not np.any(good):  # no virtual value can be evaluated: the payoff's slope still can
         good = np.isfinite(x)
         psi = np.full(x.shape, np.nan)
     x, psi = x[good], psi[good]
@@ -1267,15 +1277,57 @@ def optimal_reserve(model, bidders, v0):
             a, b = float(x[i - 1]), float(x[i])
             r_star = optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200)
     else:
-        pay = np.array([_sp_payoff(model, bidders, float(r), v0)[0] for r in x])
-        i = int(np.argmax(pay))
-        a, b = float(x[max(i - 1, 0)]), float(x[min(i + 1, len(x) - 1)])
-        res = optimize.minimize_scalar(lambda r: -_sp_payoff(model, bidders, r, v0)[0], bounds=(a, b),
-                                       method="bounded", options={"xatol": 1e-12 * max(abs(a), abs(b), 1.0)})
-        r_star = float(res.x) if -res.fun >= pay[i] else float(x[i])
-        note = ("the virtual value is not increasing over the support (an irregular model), so the reserve was found by "
-                "direct search of the expected payoff over reserves")
+        r_star = _best_reserve(model, bidders, v0, x, lo, hi, scale)
+        # No reserve is always a choice: a guard for a grid the model's quantiles make
+        # degenerate (a Beta of shapes near 0, whose quantiles all round to one value).
+        if r_star != lo and _sp_payoff(model, bidders, lo, v0)[0] > _sp_payoff(model, bidders, r_star, v0)[0]:
+            r_star = lo
+        note = ("the virtual value is not increasing over the support (an irregular model), so every local maximum of "
+                "the expected payoff over reserves was found, and the highest taken")
     return r_star, regular, note
+
+
+def _payoff_slope(model, r, v0):
+    """(v0 - r) f(r) + S(r) = f(r) (v0 - virtual value): the seller's payoff's slope in the
+    reserve r, divided by n F(r)^(n-1) (Myerson 1981). Finite where f = 0 (a gap
+    between clusters of values, where raising the reserve loses no sale)."""
+    with np.errstate(all="ignore"):
+        return (v0 - r) * model.pdf(r) + model.sf(r)
+
+
+def _best_reserve(model, n, v0, x, lo, hi, scale):
+    """The global maximum of the payoff over reserves. Its local maxima are where the
+    slope turns from positive to negative between grid points (refined by brentq), and
+    the ends where the slope points out of the support. The payoff differences between
+    them are integrals of the slope itself, n F^(n-1) ((v0 - r) f + S), in value space."""
+    g = _payoff_slope(model, x, v0)
+    ok = np.isfinite(g)
+    xs, g = x[ok], g[ok]
+    if len(xs) < 2:
+        raise ParameterError("bidder_values", "the value model is too concentrated to search for a reserve")
+    peaks = [lo] if g[0] <= 0.0 else []
+    for i in np.nonzero((g[:-1] > 0.0) & (g[1:] <= 0.0))[0]:
+        a, b = float(xs[i]), float(xs[i + 1])
+        peaks.append(b if g[i + 1] == 0.0 else optimize.brentq(
+            lambda r: float(_payoff_slope(model, r, v0)), a, b,
+            xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200))
+    if g[-1] > 0.0:
+        peaks.append(hi)
+    if len(peaks) == 1:
+        return peaks[0]
+
+    def slope(r):
+        with np.errstate(all="ignore"):
+            rivals = np.exp(-(n - 1.0) * model.neg_log_cdf(r)) if n > 1 else 1.0
+            return n * np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
+
+    gains = [0.0]
+    for a, b in zip(peaks[:-1], peaks[1:]):
+        edges = np.concatenate(([a], x[(x > a) & (x < b)], [b]))
+        flat = np.zeros(len(edges) - 1, bool)
+        rise, _ = _refined_value_integral(edges[:-1], edges[1:], flat, np.ones(len(flat)), slope, scale)
+        gains.append(gains[-1] + rise)
+    return peaks[int(np.argmax(gains))]
 
 
 def reserve_report(model, direction, bidders, own_value):
