@@ -490,20 +490,13 @@ print(json.dumps({"seconds": time.perf_counter() - t, "status": r.status_code, "
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def _stress_component(i):
-    """Six families over a wide range, as in the load test's stress mixture (invented)."""
-    return [
-        {"family": "lognormal", "median": 40000 + 1000 * i, "sigma": 0.2 + 0.02 * (i % 40)},
-        {"family": "gamma", "shape": 2 + i % 50, "scale": 3000},
-        {"family": "pareto", "shape": 3.5 + 0.1 * (i % 50), "minimum": 20000 + 500 * i},
-        {"family": "weibull", "shape": 1.5 + 0.1 * (i % 50), "scale": 50000},
-        {"family": "triangular", "low": 10000 * (i % 50), "mode": 10000 * (i % 50) + 5000, "high": 10000 * (i % 50) + 20000},
-        {"family": "uniform", "low": 1000 * i, "high": 1000 * i + 30000},
-    ][i % 6]
+def _stress_specs():
+    """(mixture_spec, nested_spec): the expensive-model tests' invented stress mixtures
+    (tests/test_expensive_models.py), one definition for both."""
+    sys.path.insert(0, str(ROOT / "tests"))
+    from test_expensive_models import mixture_spec, nested_spec
 
-
-def _stress_mixture(k, offset=0):
-    return {"family": "mixture", "components": [{"weight": 1.0 / k, "model": _stress_component(i + offset)} for i in range(k)]}
+    return mixture_spec, nested_spec
 
 
 def _normal_pair(mean_low, mean_high, sd=5.0):
@@ -518,7 +511,8 @@ def _kernel_values(n):
 
 def expensive_cases():
     """(label, path, body, also with tables off): the requests that ran into the time budget before."""
-    nested = {"family": "mixture", "components": [{"weight": 1.0 / 50, "model": _stress_mixture(50, j)} for j in range(50)]}
+    mixture_spec, nested_spec = _stress_specs()
+    nested = nested_spec(50, 50)
     return [
         ("irregular reserve: normals at 100 and 140, 7 bidders", "/v1/reserve-price",
          {"bidder_values": _normal_pair(100.0, 140.0), "bidders": 7}, False),
@@ -528,8 +522,8 @@ def expensive_cases():
         ("kernel model of 10,000 values, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
         ("kernel model of 1,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(1000), "bidders": 10}, False),
         ("kernel model of 10,000 values, 10 bidders, top values", "/v1/top-values", {"bidder_values": _kernel_values(10000), "bidders": 10}, True),
-        ("50-component mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 6}, True),
-        ("50-component mixture, 10 bidders, revenue", "/v1/revenue", {"bidder_values": _stress_mixture(50), "bidders": 10}, False),
+        ("50-component mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": mixture_spec(50), "bidders": 6}, True),
+        ("50-component mixture, 10 bidders, revenue", "/v1/revenue", {"bidder_values": mixture_spec(50), "bidders": 10}, False),
         ("50 x 50 nested mixture, 6 bidders, revenue", "/v1/revenue", {"bidder_values": nested, "bidders": 6}, True),
         ("50 x 50 nested mixture, sweep of 10 counts x 11 reserves", "/v1/sweeps",
          {"bidder_values": nested, "bidders": {"from": 2, "to": 11}, "reserves": {"from": 30000, "to": 80000, "steps": 11}}, False),
