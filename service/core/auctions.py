@@ -1234,8 +1234,10 @@ def _reserve_grid(model):
 
 
 def optimal_reserve(model, bidders, v0):
-    """Myerson (1981): the reserve where the virtual value v - S(v)/f(v) equals v0;
-    for an irregular model, the best of the payoff's local maxima (:func:`_best_reserve`)."""
+    """(reserve, regular, outcome): Myerson (1981), the reserve where the virtual value
+    v - S(v)/f(v) equals v0 (outcome "root", or "none_binds" / "kept" where it lies at an end
+    of the support); for an irregular model, the best of the payoff's local maxima
+    (:func:`_best_reserve`, outcome "irregular")."""
     if model.discrete:
         raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
     x = _reserve_grid(model)
@@ -1260,18 +1262,16 @@ def optimal_reserve(model, bidders, v0):
         with np.errstate(all="ignore"):
             return float(r - model.sf(r) / model.pdf(r)) - v0
 
-    note = "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend on the number of bidders"
+    outcome = "root"
     if regular:
         if psi[0] >= v0 and v0 <= lo:
-            r_star = lo
-            note += "; here every value's virtual value already exceeds it, so no reserve binds"
+            r_star, outcome = lo, "none_binds"
         elif psi[0] >= v0:  # the virtual value is at most the value, so the root lies in [v0, the lowest probe]
             a, b = v0, float(x[0])
             r_star = a if vv(a) >= 0.0 else optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300),
                                                             rtol=1e-15, maxiter=200)
         elif psi[-1] <= v0:
-            r_star = hi
-            note += "; here no value's virtual value reaches it, so the item is best kept"
+            r_star, outcome = hi, "kept"
         else:
             i = int(np.argmax(psi > v0))
             a, b = float(x[i - 1]), float(x[i])
@@ -1282,9 +1282,8 @@ def optimal_reserve(model, bidders, v0):
         # degenerate (a Beta of shapes near 0, whose quantiles all round to one value).
         if r_star != lo and _sp_payoff(model, bidders, lo, v0)[0] > _sp_payoff(model, bidders, r_star, v0)[0]:
             r_star = lo
-        note = ("the virtual value is not increasing over the support (an irregular model), so every local maximum of "
-                "the expected payoff over reserves was found, and the highest taken")
-    return r_star, regular, note
+        outcome = "irregular"
+    return r_star, regular, outcome
 
 
 def _payoff_slope(model, r, v0):
@@ -1330,16 +1329,36 @@ def _best_reserve(model, n, v0, x, lo, hi, scale):
     return peaks[int(np.argmax(gains))]
 
 
+_MYERSON = {
+    "forward": "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend "
+               "on the number of bidders",
+    "reverse": "Myerson (1981): the reserve where the virtual cost c + F(c)/f(c) equals the buyer's value; it does not "
+               "depend on the number of bidders",
+}
+#: What the optimum means, by direction and by how ``optimal_reserve`` found it.
+_RESERVE_NOTES = {
+    "forward": {
+        "root": _MYERSON["forward"],
+        "none_binds": _MYERSON["forward"] + "; here every value's virtual value already exceeds it, so no reserve binds",
+        "kept": _MYERSON["forward"] + "; here no value's virtual value reaches it, so the item is best kept",
+        "irregular": "the virtual value is not increasing over the support (an irregular model), so every local maximum "
+                     "of the expected payoff over reserves was found, and the highest taken",
+    },
+    "reverse": {
+        "root": _MYERSON["reverse"],
+        "none_binds": _MYERSON["reverse"] + "; here every cost's virtual cost is already below it, so no maximum price binds",
+        "kept": _MYERSON["reverse"] + "; here no cost's virtual cost is below it, so the contract is best not awarded",
+        "irregular": "the virtual cost c + F(c)/f(c) is not increasing over the support (an irregular model), so every "
+                     "local maximum of the expected payoff over maximum prices was found, and the highest taken",
+    },
+}
+
+
 def reserve_report(model, direction, bidders, own_value):
-    """The revenue-maximising reserve (forward) or maximum price (reverse)."""
+    """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's) expected payoff."""
     fmodel, _, v0 = _forward_case(model, direction, None, own_value)
-    r_star, regular, note = optimal_reserve(fmodel, bidders, v0)
-    if direction == "reverse":
-        note = (note.replace("virtual value is", "virtual cost c + F(c)/f(c) is")
-                    .replace("the virtual value equals the auctioneer's own value", "the virtual cost c + F(c)/f(c) equals the buyer's value")
-                    .replace("every value's virtual value already exceeds it, so no reserve binds", "every cost's virtual cost is already below it, so no maximum price binds")
-                    .replace("no value's virtual value reaches it, so the item is best kept", "no cost's virtual cost is below it, so the contract is best not awarded")
-                    .replace("over reserves", "over maximum prices"))
+    r_star, regular, outcome = optimal_reserve(fmodel, bidders, v0)
+    note = _RESERVE_NOTES[direction][outcome]
     _check_price_exists(fmodel, bidders)
     payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
     payoff0, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)

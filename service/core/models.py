@@ -12,6 +12,8 @@ that tie parameters together, raising :class:`ParameterError` with the field.
 """
 from __future__ import annotations
 
+import functools
+import inspect
 import math
 from dataclasses import dataclass
 
@@ -56,6 +58,9 @@ def _check_width(low, high):
         raise ParameterError("high", f"must exceed low by at least {MIN_SCALE:g}: narrower ranges are not reliable")
 
 
+_init_signature = functools.lru_cache(maxsize=None)(inspect.signature)
+
+
 class ValueModel:
     """A continuous (or, for the step empirical, discrete) distribution of values.
 
@@ -64,8 +69,28 @@ class ValueModel:
     """
 
     family = "abstract"
+    #: The family's parameters, each a Param (a parametric family declares its own).
+    parameters: dict = {}
     lower = -INF
     upper = INF
+
+    def __new__(cls, *args, **kwargs):
+        # The constructor's arguments, kept as given, so that ``to_params`` can write the
+        # model back as the JSON a user would send; ``_given`` holds them by name.
+        self = super().__new__(cls)
+        try:
+            bound = _init_signature(cls.__init__).bind(None, *args, **kwargs)
+        except TypeError:  # a copy (copy.copy calls __new__ with no arguments, then restores the state)
+            return self
+        bound.apply_defaults()
+        self._given = {k: v for k, v in bound.arguments.items() if k != "self"}
+        return self
+
+    def to_params(self):
+        """The JSON object a user would send to build this model (a parametric family: its
+        parameters as given, defaults included; derived models say how to write them)."""
+        return {"family": self.family, **{k: _plain(v) for k, v in self._given.items()
+                                          if k in self.parameters and v is not None}}
     #: Power-law index of each tail (P(X > x) ~ x^-alpha); inf for lighter tails.
     upper_tail_index = INF
     lower_tail_index = INF
@@ -964,6 +989,16 @@ class Truncated(ValueModel):
         self.upper_tail_index = parent.upper_tail_index if high == INF else INF
         self.lower_tail_index = parent.lower_tail_index if low == -INF else INF
 
+
+    def to_params(self):
+        """The parent's JSON with the truncation: top-level low/high for an empirical sample
+        (how its JSON bounds it), a ``truncate`` object otherwise."""
+        out = self.parent.to_params()
+        ends = {k: _plain(self._given[k]) for k in ("low", "high") if self._given.get(k) is not None}
+        if out["family"] == "empirical":
+            return {**out, **ends}
+        return {**out, "truncate": ends}
+
     def kink_values(self):
         return self.parent.kink_values()
 
@@ -1013,6 +1048,11 @@ class Reflected(ValueModel):
         self.lower_tail_index = parent.upper_tail_index
         self.discrete = parent.discrete
         self.closed_form_logs = getattr(parent, "closed_form_logs", False)
+
+
+    def to_params(self):
+        """The parent's JSON: a reflected model is a cost model sent as ``bidder_costs``."""
+        return self.parent.to_params()
 
     def kink_values(self):
         return [-k for k in self.parent.kink_values()]
@@ -1095,6 +1135,11 @@ class QuantileTable(ValueModel):
         self.x = np.array([x for _, x in pts])
         self.lower, self.upper = float(self.x[0]), float(self.x[-1])
         self.dens = np.diff(self.p) / np.diff(self.x)
+
+
+    def to_params(self):
+        out = {"family": self.family, "points": [{"p": _plain(p), "value": _plain(v)} for p, v in self._given["points"]]}
+        return {**out, **{k: _plain(self._given[k]) for k in ("low", "high") if self._given.get(k) is not None}}
 
     def kink_values(self):
         return list(self.x[1:-1])
@@ -1234,6 +1279,8 @@ def _signature(model):
         return None
     sig = [type(model)]
     for name, val in sorted(vars(model).items()):
+        if name == "_given":  # what the constructor was given (to_params), not what evaluates
+            continue
         if isinstance(val, ValueModel):
             inner = _signature(val)
             if inner is None:
@@ -1252,6 +1299,8 @@ def _stack(models):
     """One instance of the models' class whose numeric attributes are columns (K, 1)."""
     stacked = object.__new__(type(models[0]))
     for name, val in vars(models[0]).items():
+        if name == "_given":
+            continue
         vals = [vars(m)[name] for m in models]
         if isinstance(val, ValueModel):
             val = _stack(vals)
@@ -1294,6 +1343,11 @@ class Mixture(_Tabulated):
             groups.setdefault(_signature(m) or id(m), []).append((w, m))
         self._parts = [(np.array([w for w, _ in g]), _stack([m for _, m in g]) if len(g) > 1 else g[0][1], [m for _, m in g])
                        for g in groups.values()]
+
+
+    def to_params(self):
+        return {"family": self.family, "components": [{"weight": _plain(w), "model": m.to_params()}
+                                                      for w, m in self._given["components"]]}
 
     def _leaves(self):
         out = []
@@ -1419,6 +1473,11 @@ class KernelSmoothed(_Tabulated):
         self.wt = 1.0 / len(self.c)
         self._dips = None
 
+
+    def to_params(self):
+        """The sample with Gaussian-kernel smoothing (its bandwidth is Silverman's, from the sample)."""
+        return {"family": self.family, "sample": [_plain(x) for x in np.asarray(self._given["sample"], float)], "smoothing": "kernel"}
+
     def kink_values(self):
         """The dips of the density in the gaps between neighbouring sample values more
         than two bandwidths apart (two equal kernels 2h apart or closer make one mode,
@@ -1511,6 +1570,10 @@ class StepEmpirical(ValueModel):
         self.lower, self.upper = float(self.atoms[0]), float(self.atoms[-1])
         self.N = len(self.atoms)
 
+
+    def to_params(self):
+        return {"family": self.family, "sample": [_plain(x) for x in np.asarray(self._given["sample"], float)], "smoothing": "none"}
+
     def cdf(self, x):
         return np.searchsorted(self.atoms, np.asarray(x, float), side="right") / self.N
 
@@ -1538,6 +1601,11 @@ def silverman_bandwidth(sample):
     return 0.9 * spread * len(x) ** (-0.2)
 
 
+def _plain(x):
+    """A parameter as JSON holds it: a float for a numpy or Python number."""
+    return float(x) if isinstance(x, (int, float, np.floating, np.integer)) and not isinstance(x, bool) else x
+
+
 def empirical(sample, smoothing="kernel", low=None, high=None):
     """Build the empirical model of a sample of past values."""
     x = np.asarray(sample, float)
@@ -1557,7 +1625,16 @@ def empirical(sample, smoothing="kernel", low=None, high=None):
     return model
 
 
-PARAMETRIC = {
-    cls.family: cls
-    for cls in (Uniform, Normal, LogNormal, Exponential, Gamma, Weibull, BetaValues, Triangular, Pareto, Power)
-}
+#: The parametric families by name; ``register_family`` adds one.
+PARAMETRIC = {}
+
+
+def register_family(cls):
+    """Add a parametric family (a ValueModel subclass with ``family`` and ``parameters``):
+    every request schema and GET door reads this registry when a request loads."""
+    PARAMETRIC[cls.family] = cls
+    return cls
+
+
+for _cls in (Uniform, Normal, LogNormal, Exponential, Gamma, Weibull, BetaValues, Triangular, Pareto, Power):
+    register_family(_cls)

@@ -6,6 +6,7 @@ only integral values (2.5 bidders is an error, not 2).
 """
 from __future__ import annotations
 
+import functools
 import math
 
 from flask import current_app, has_app_context
@@ -173,9 +174,17 @@ class MixtureSchema(Schema):
     components = CappedList(fields.Nested(ComponentSchema), 1, "components", required=True)
 
 
-_SCHEMAS = {name: _parametric_schema(cls)() for name, cls in M.PARAMETRIC.items()}
+@functools.lru_cache(maxsize=None)
+def _schema_for(cls):
+    """A parametric family's schema, generated from its ``parameters`` once."""
+    return _parametric_schema(cls)()
+
+
+def families():
+    """Every family a request may name: the registered parametric ones and the three built
+    from data (read when a request loads, so a family registered later is accepted)."""
+    return sorted([*M.PARAMETRIC, "empirical", "quantile_table", "mixture"])
 _TABLE, _EMPIRICAL, _MIXTURE = QuantileTableSchema(), EmpiricalSchema(), MixtureSchema()
-FAMILIES = sorted([*_SCHEMAS, "empirical", "quantile_table", "mixture"])
 
 
 def _at(path, message):
@@ -196,11 +205,11 @@ def build_value_model(data, depth=0):
     family = data.get("family")
     if family is None:
         raise ValidationError({"family": ["Missing data for required field."]})
-    if family not in FAMILIES:
-        raise ValidationError({"family": [f"Unknown family; one of: {', '.join(FAMILIES)}."]})
+    if family not in families():
+        raise ValidationError({"family": [f"Unknown family; one of: {', '.join(families())}."]})
     try:
-        if family in _SCHEMAS:
-            d = _SCHEMAS[family].load(data)
+        if family in M.PARAMETRIC:
+            d = _schema_for(M.PARAMETRIC[family]).load(data)
             trunc = d.pop("truncate")
             d.pop("family")
             model = M.PARAMETRIC[family](**{k: v for k, v in d.items() if v is not None or M.PARAMETRIC[family].parameters[k].required})

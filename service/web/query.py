@@ -16,7 +16,9 @@ _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 #: A list item that no one writes as a number of its own: digits with a leading 0, as the
 #: thousands groups of "40,000" or "1,050" are when a thousands separator splits them off.
 _THOUSANDS_GROUP = re.compile(r"^0\d+$")
-MODEL_KEYS = sorted({k for cls in M.PARAMETRIC.values() for k in cls.parameters} | {"truncate_low", "truncate_high"})
+def model_keys():
+    """The query names of the parametric families' parameters (read when a request loads)."""
+    return sorted({k for cls in M.PARAMETRIC.values() for k in cls.parameters} | {"truncate_low", "truncate_high"})
 #: Parameters every GET door takes: how numbers are written and how errors are answered.
 FORMAT_KEYS = ("decimal", "errors")
 
@@ -97,7 +99,7 @@ def case_body(args, door, errors, keys):
         errors["family"] = [f"One of the parametric families: {', '.join(sorted(M.PARAMETRIC))} "
                             "(mixtures, tables and samples need POST)."]
     model = {"family": family}
-    for key in MODEL_KEYS:
+    for key in model_keys():
         if key in args:
             value = door.number(key, args[key], errors)
             if key.startswith("truncate_"):

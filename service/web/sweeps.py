@@ -169,8 +169,10 @@ def post_sweeps():
 
 _RANGE = ("from", "to", "step", "steps")
 SEPARATOR_NAMES = {",": ",", ";": ";", "tab": "\t"}
-_KNOWN = {"direction", "family", "seller_value", "buyer_value", "rule", "rules", "metrics", "separator", "bidders", "reserves",
-          *query.MODEL_KEYS, *(f"{axis}_{k}" for axis in ("bidders", "reserves") for k in _RANGE)}
+def _known():
+    """The query names this door takes (the families' parameters read when a request loads)."""
+    return {"direction", "family", "seller_value", "buyer_value", "rule", "rules", "metrics", "separator", "bidders", "reserves",
+            *query.model_keys(), *(f"{axis}_{k}" for axis in ("bidders", "reserves") for k in _RANGE)}
 
 
 def _axes(args, door, body, errors):
@@ -191,7 +193,7 @@ def get_sweeps_csv():
     reserves_from/_to/_step(s); numbers and the CSV in the ``decimal`` mark asked for."""
     args, errors = request.args, {}
     door = query.Door(args, errors)
-    query.unknown(args, _KNOWN, errors)
+    query.unknown(args, _known(), errors)
     body = query.case_body(args, door, errors, ("seller_value", "buyer_value"))
     _axes(args, door, body, errors)
     if "rule" in args and "rules" in args:
