@@ -150,7 +150,7 @@ def flat_errors(err):
             for k, v in val.items():
                 out[f"{key}_{k}"] = v
         elif isinstance(val, dict):
-            out[key] = [m for e in flatten(val) for m in [e["message"]]]
+            out[key] = [e["message"] for e in flatten(val)]
         else:
             out[key] = val
     return ValidationError(out)
