@@ -42,6 +42,7 @@ class AuctionRule:
 
 
 _REGISTRY: dict[str, AuctionRule] = {}
+_BUILTINS_LOADED = False
 
 
 def register(rule):
@@ -56,9 +57,13 @@ def unregister(name):
 
 def _with_builtins():
     """The registry, with the five built-in rules, which auctions.py registers beside their
-    revenue routes (imported here, not at the top, since auctions.py imports this module)."""
-    from . import auctions  # noqa: F401
+    revenue routes (imported here, not at the top, since auctions.py imports this module;
+    once, as sweeps look a rule up for every row)."""
+    global _BUILTINS_LOADED
+    if not _BUILTINS_LOADED:
+        from . import auctions  # noqa: F401
 
+        _BUILTINS_LOADED = True
     return _REGISTRY
 
 
