@@ -385,11 +385,11 @@ def krishna_uniform(n, r):
 
 
 def section_revenue(ctx):
-    from service.core import auctions
+    from service.core import reports
     from service.core.models import Gamma, Uniform
 
     heading("Expected revenue, all five rules (POST /v1/revenue core compute)")
-    print("ours:   auctions.revenue_report(...) with all five rules, each rule by its own route, model built once")
+    print("ours:   reports.revenue_report(...) with all five rules, each rule by its own route, model built once")
     print("naive:  nested scipy.integrate.quad for the first-price bid function and revenue (one rule only)")
     print("rel.err: uniform against Krishna's closed form; other families: ours (first-price) against naive,")
     print("         and 'equiv' = revenue_equivalence / revenue (the five routes' largest disagreement)")
@@ -402,9 +402,9 @@ def section_revenue(ctx):
     rows = []
     for name, model, dist, r in cases:
         for n in (2, 10, 100, 1000):
-            rep = auctions.revenue_report(model, "forward", n, r, 0.0)
+            rep = reports.revenue_report(model, "forward", n, r, 0.0)
             ours = rep["results"][0]["expected_revenue"]
-            t_ours = median_time(lambda: auctions.revenue_report(model, "forward", n, r, 0.0), repeats=7)
+            t_ours = median_time(lambda: reports.revenue_report(model, "forward", n, r, 0.0), repeats=7)
             nv, t_nv, note = capped(lambda: naive_first_price(dist, n, r))
             if name.startswith("uniform"):
                 ref = krishna_uniform(n, r)
@@ -423,12 +423,12 @@ def section_revenue(ctx):
 
 
 def section_sweeps(ctx):
-    from service.core import auctions, sweeps
+    from service.core import reports, sweeps
     from service.core.models import Gamma
 
     heading("Sweeps: 100 bidder counts x 100 reserves x 2 rules (20,000 rows)")
     print("ours:   sweeps.sweep(...) core, one vectorised pass per bidder count; HTTP: POST /v1/sweeps in-process, JSON out")
-    print("cells:  the same rows one at a time through auctions.revenue_report (the single-scenario route),")
+    print("cells:  the same rows one at a time through reports.revenue_report (the single-scenario route),")
     print("        timed on a 200-row sample and scaled to 20,000; agreement = largest relative difference on that sample")
     print()
     app = create_app()
@@ -449,7 +449,7 @@ def section_sweeps(ctx):
         t0 = time.perf_counter()
         worst = 0.0
         for n, r, rule, rev, sd, ps in sample:
-            ref = auctions.revenue_report(model, "forward", n, r, 0.0, [rule], [0.5])["results"][0]
+            ref = reports.revenue_report(model, "forward", n, r, 0.0, [rule], [0.5])["results"][0]
             for got, want in ((rev, ref["expected_revenue"]), (sd, ref["revenue_sd"]), (ps, ref["probability_of_sale"])):
                 if want:
                     worst = max(worst, abs(got - want) / abs(want))

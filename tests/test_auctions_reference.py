@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O

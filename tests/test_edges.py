@@ -9,7 +9,7 @@ import mpmath as mp
 import numpy as np
 import pytest
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O

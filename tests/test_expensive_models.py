@@ -37,7 +37,7 @@ import scipy.stats as st
 from scipy import integrate, optimize
 from scipy import special as sp
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import models as M
 from service.core import sweeps as S
 from service.core.tables import LogTable

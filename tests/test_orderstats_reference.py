@@ -27,7 +27,7 @@ from scipy import integrate, optimize
 from service.core import models as M
 from service.core import orderstats as O
 from service.core import topvalues as T
-from service.core.auctions import ForwardAuction
+from service.core.auction import ForwardAuction
 from service.core.errors import ParameterError
 
 INF = math.inf
@@ -804,7 +804,7 @@ def test_kept_standard_values_serve_each_model_its_own_values():
     # The bid route's node arrays are kept the same way: read-only, so no request can
     # change what the next one reads.
     with pytest.raises(ValueError):
-        ForwardAuction(M.LogNormal(median=3.0, sigma=0.5), 5).node_bids().rivals[0, 0] = 1.0
+        ForwardAuction(M.LogNormal(median=3.0, sigma=0.5), 5).bids.nodes().rivals[0, 0] = 1.0
 
 
 @pytest.mark.parametrize("rank", [1, 2])

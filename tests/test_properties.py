@@ -68,7 +68,7 @@ from hypothesis import strategies as st
 from scipy import integrate
 from scipy import special as sp
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O

@@ -19,7 +19,7 @@ import math
 import mpmath as mp
 import pytest
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import models as M
 from service.core import orderstats as O
 from service.core.errors import ParameterError

@@ -6,7 +6,8 @@ from __future__ import annotations
 import pytest
 
 from service import create_app
-from service.core import auctions as A
+import api_reports as A
+from service.core import revenue
 from service.core import models as M
 from service.core import rules as R
 from service.core.errors import ParameterError
@@ -17,7 +18,7 @@ UNIFORM = {"family": "uniform", "low": 0, "high": 1}
 @pytest.fixture()
 def toy_rule():
     """A sealed-bid second-price rule under its own name: the second-price pricing and route."""
-    rule = R.register(R.AuctionRule("sealed_vickrey", R.SECOND, A.second_price_revenue,
+    rule = R.register(R.AuctionRule("sealed_vickrey", R.SECOND, revenue.second_price_revenue,
                                     {"forward": "bid your value", "reverse": "ask your cost"}))
     yield rule
     R.unregister(rule.name)

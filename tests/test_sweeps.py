@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from service.core import auctions as A
+import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
 from service.core import sweeps as S

@@ -106,6 +106,10 @@ class ValueModel:
     def from_standard(self, z):
         raise NotImplementedError
 
+    def closed_rank_moments(self, n, r):
+        """(mean, variance) of rank r from the top of n in closed form; None where the family has none."""
+        return None
+
     def check_reliable(self, **values):
         """Refuse, naming the parameter, any value outside its declared reliable range."""
         for name, x in values.items():

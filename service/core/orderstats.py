@@ -422,6 +422,19 @@ def _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, mo
     return ta, min(scan[min(keep[-1] + 1, len(scan) - 1)], scan[keep[-1]] + 1.0)
 
 
+def filled_rank_quadrature(model, n, r, *, power=None, growth=None, fill=None, **rule):
+    """The one way a rank quadrature is set up for a model: the rank-r-of-n rule with the
+    model's kinks, its panels reaching as far into each tail as |X|^power needs (by default
+    2 where the variance exists, else 1; ``growth`` overrides the reach), filled with the
+    model's values (``fill``: the arguments of ``RankQuadrature.fill``). ``rule`` passes
+    on to :func:`rank_quadrature` (s_cut, fine, checked, splits_s, s_top)."""
+    if power is None:
+        power = 2 if moment_exists(model, n, r, 2) else 1
+    up, low = tail_growth(model, power) if growth is None else growth
+    q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low, model=model, power=power, **rule)
+    return q.fill(model, **(fill or {}))
+
+
 def tail_growth(model, p):
     """(p / alpha_up, p / alpha_low): how fast |x|^p grows into each power-law tail."""
     up = p / model.upper_tail_index if math.isfinite(model.upper_tail_index) else 0.0
@@ -498,9 +511,7 @@ def rank_summary(model, n, r, with_gap=False):
         mean, var = got
         sd = math.sqrt(max(var, 0.0)) if has_var and var is not None else None
         return RankSummary(r, mean, sd, closed_form_error(model, n, mean, sd or 0.0), "closed_form", warnings)
-    up, low = tail_growth(model, 2 if has_var else 1)
-    q = rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
-                        model=model, power=2 if has_var else 1).fill(model)
+    q = filled_rank_quadrature(model, n, r, power=2 if has_var else 1)
     with np.errstate(over="ignore", invalid="ignore"):
         mean, sd, err = quadrature_moments(q, has_var)
         gap = _spacing(model, q, _norm(q)) if with_gap and r == 1 and q.panels else None
@@ -586,8 +597,7 @@ def expected_gap(model, n, summaries=()):
     if top is not None and top.gap is not None:
         return top.gap
     if top is None or top.method != "quantile_gauss_legendre":
-        up, low = tail_growth(model, 1)
-        q = rank_quadrature(n, 1, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low, model=model, power=1).fill(model)
+        q = filled_rank_quadrature(model, n, 1, power=1)
         got = _spacing(model, q, _norm(q)) if q.panels else None
         if got is not None:
             return got

@@ -56,12 +56,12 @@ def unregister(name):
 
 
 def _with_builtins():
-    """The registry, with the five built-in rules, which auctions.py registers beside their
-    revenue routes (imported here, not at the top, since auctions.py imports this module;
+    """The registry, with the five built-in rules, which revenue.py registers beside their
+    revenue routes (imported here, not at the top, since revenue.py imports this module;
     once, as sweeps look a rule up for every row)."""
     global _BUILTINS_LOADED
     if not _BUILTINS_LOADED:
-        from . import auctions  # noqa: F401
+        from . import revenue  # noqa: F401
 
         _BUILTINS_LOADED = True
     return _REGISTRY

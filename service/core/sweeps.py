@@ -18,10 +18,11 @@ import math
 
 import numpy as np
 
-from . import audit, auctions, budget
+from . import audit, budget, gains, price, reports
 from . import rules as R
 from . import orderstats as os_
-from .auctions import FAR_RESERVE, ForwardAuction, _check_price_exists, _forward_case, price_moment_exists
+from .auction import FAR_RESERVE, ForwardAuction, forward_case
+from .price import check_price_exists, price_moment_exists
 from .errors import ParameterError
 from .topvalues import finite
 
@@ -36,13 +37,6 @@ METRICS = {
 def _t_of(s, k):
     with np.errstate(divide="ignore"):
         return np.log(k * s)
-
-
-def _filled(model, n, r):
-    p = 2 if os_.moment_exists(model, n, r, 2) else 1
-    up, low = os_.tail_growth(model, p)
-    return os_.rank_quadrature(n, r, kinks_u=model.kinks_u(), upper_growth=up, lower_growth=low,
-                               model=model, power=p, fine=True).fill(model)
 
 
 def _flat(q):
@@ -71,7 +65,7 @@ def _block(model, n, reserves, v0):
         p_sale = np.where(np.isfinite(s_r), -np.expm1(-n * s_r), 1.0)
     out = {"p_sale": p_sale}
     if n == 1:
-        q = _filled(model, 1, 1)
+        q = os_.filled_rank_quadrature(model, 1, 1, fine=True)
         v, dens, s = _flat(q)
         W = q.cut_weights(_t_of(s_r, 1.0))
         # a lone bidder pays the reserve itself, even one below the support, whenever it buys
@@ -88,11 +82,11 @@ def _block(model, n, reserves, v0):
         return out
     out["second"], loose = _second_price_block(model, n, floor, binds, s_r, p_sale)
     auc = ForwardAuction(model, n, None, v0)
-    q1 = auc._inner_quadrature()
+    q1 = auc.bids.inner_quadrature()
     W1 = q1.cut_weights(_t_of(s_r, n - 1.0))
     bids, loose_bid = _bid_block(auc, W1, floor, binds, s_r, p_sale)
     out.update(bids)
-    out["gains"] = _gains(model, q1, auc.node_bids().first_rule(auc.node_bids().top), W1, s_r, n - 1.0, v0)
+    out["gains"] = _gains(model, q1, auc.bids.nodes().first_rule(auc.bids.nodes().top), W1, s_r, n - 1.0, v0)
     far = binds & (s_r < FAR_RESERVE)
     for j in np.nonzero((loose | loose_bid | far | _beyond_nodes(q1, binds, s_r, n - 1.0)) & (p_sale > 0.0))[0]:
         budget.check()
@@ -122,16 +116,16 @@ def _single_scenario(model, n, reserve, v0, out, j):
     by_pricing = {}
     for name in R.names():
         by_pricing.setdefault(R.get(name).pricing.name, name)
-    figures, _ = auctions.forward_figures(auc, list(by_pricing.values()), [])
+    figures, _ = reports.forward_figures(auc, list(by_pricing.values()), [])
     for key, name in by_pricing.items():
         f = figures[name]
         paid = f["expected_revenue"]
         if key == R.ALL_PAY.name and auc.single_price is None:
-            paid = auctions.all_pay_winner_payment(auc)
+            paid = price.all_pay_winner_payment(auc)
         for arr, x in zip(out[key], (f["expected_revenue"], f["revenue_sd"], paid)):
             arr[j] = math.nan if x is None else x
     out.setdefault("cells", {})[j] = {key: figures[name] for key, name in by_pricing.items()}
-    got = auctions.winner_value(auc)
+    got = gains.winner_value(auc)
     out["e1"][j] = math.nan if got is None else got
 
 
@@ -171,7 +165,7 @@ def _second_price_block(model, n, floor, binds, s_r, p_sale):
     price: the price is max(X2, r) on a sale. Second moments are taken about the
     second-highest value's mean, from the values' offsets (``RankQuadrature.offsets``)."""
     k = n - 1.0
-    q2 = _filled(model, n, 2)
+    q2 = os_.filled_rank_quadrature(model, n, 2, fine=True)
     v2, d2, _ = _flat(q2)
     ref, o = q2.offsets()
     c = _finite_sum(q2.w_hi * o[:, :os_.RULE_SPLIT]) / q2.total()  # the centre, as an offset from ref
@@ -196,8 +190,8 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
     delta = r - b_0(r); the terms in g are integrated in closed form or with g's growth folded
     into a smooth integrand, never by interpolating g itself across a cut panel."""
     n, k = auc.n, auc.n - 1.0
-    nb = auc.node_bids()
-    q1 = auc._inner_quadrature()
+    nb = auc.bids.nodes()
+    q1 = auc.bids.inner_quadrature()
     b0 = nb.first_rule(nb.bids)
     delta = np.where(binds, floor - _bids_at_reserves(auc, q1, floor, s_r, binds), 0.0)
     with np.errstate(over="ignore", invalid="ignore"):
@@ -211,7 +205,7 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
     base_fp, lift_fp = _weigh(W1, outer * b0), delta * n * g_r * sx
     rev_fp = base_fp + lift_fp
     # second moments from the bids' offsets, about their mean without a reserve
-    ref, b_off = auc.node_bid_offsets()
+    ref, b_off = auc.bids.offsets()
     b_off = nb.first_rule(b_off)
     # a variance that does not exist (a heavy tail) may overflow here; the caller leaves it out
     with np.errstate(over="ignore", invalid="ignore"):
@@ -272,7 +266,7 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
     and a spectral partial panel, elsewhere by the standalone route."""
     k = auc.n - 1.0
     out = floor.copy()
-    tail = auc._bid_tail()
+    tail = auc.bids.tail()
     se, d = tail.nodes.se, tail.d[0]
     t_r = _t_of(s_r, k)
     inside = binds & (t_r >= q.a[0]) & (t_r < q.b[-1]) & (k * s_r <= k * se[-1] - 36.0)
@@ -283,12 +277,12 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
         # bid's shading r - b_0(r) is a small difference and needs every digit.
         sq = s_r[inside]
         shrink = np.exp(-k * (se[p + 1] - sq))
-        out[inside] = auc.origin + auc._sub_integral(tq, q.b[p]) + shrink * d[p + 1]
+        out[inside] = auc.bids.origin + auc.bids.sub_integral(tq, q.b[p]) + shrink * d[p + 1]
     # Beyond where the nodes reach, the standalone route; where G(r) = e^-(n-1)s_r is
     # below e^-40 the shading only enters multiplied by G(r), so it is left at 0.
     rest = binds & ~inside & (k * s_r < 40.0)
     if np.any(rest):
-        out[rest] = auc.bids_at_s(s_r[rest])
+        out[rest] = auc.bids.at_s(s_r[rest])
     return np.minimum(out, floor)  # a bid never exceeds the value
 
 
@@ -325,7 +319,7 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
 
 def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
     """A long table: one row per (bidders, reserve, rule), one column per metric."""
-    fmodel, _, v0 = _forward_case(model, direction, None, own_value)
+    fmodel, _, v0 = forward_case(model, direction, None, own_value)
     if direction == "forward" and v0 is None:
         v0 = 0.0
     if model.discrete:
@@ -335,7 +329,7 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
         if m not in names:
             raise ParameterError(f"metrics.{i}", f"one of {', '.join(names)} for a {direction} sweep")
     for n in sorted(set(bidders)):  # every row comes from the bids without a reserve, which must exist
-        _check_price_exists(fmodel, n)
+        check_price_exists(fmodel, n)
     res = np.asarray(reserves, float)
     fres = res if direction == "forward" else -res
     sign = 1.0 if direction == "forward" else -1.0

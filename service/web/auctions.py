@@ -8,7 +8,7 @@ from __future__ import annotations
 from flask import Blueprint
 from marshmallow import Schema, ValidationError, validates_schema
 
-from ..core import auctions
+from ..core import reports, reserve
 from ..core import rules as core_rules
 from .fields import CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
 from . import admission
@@ -81,7 +81,7 @@ def revenue_handler(body):
                     field="quantiles")
     model, direction, own = _case(req)
     return core_call(
-        auctions.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        reports.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], own_value=own,
         rules=req["rules"], quantiles=req["quantiles"],
     )
@@ -94,7 +94,7 @@ def bid_strategy_handler(body):
                     field="at" if req["at"] is not None else "points")
     model, direction, _ = _case(req)
     return core_call(
-        auctions.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        reports.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], rule=req["rule"],
         points=req["points"] or 51, at=req["at"],
     )
@@ -105,7 +105,7 @@ def reserve_price_handler(body):
     admission.admit(work=_model_work(body) * 20, numbers=16, field="bidders")
     model, direction, own = _case(req)
     return core_call(
-        auctions.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
+        reserve.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], own_value=own,
     )
 

@@ -1,0 +1,214 @@
+"""The reports the endpoints return: each rule's revenue figures, the equilibrium bids on
+a grid, computed on the forward twin of the caller's auction (:func:`auction.forward_case`).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import audit, bids, gains, price
+from . import rules as R
+from .auction import ForwardAuction, forward_case
+from .errors import ParameterError
+from .topvalues import finite
+
+
+_COMMON_ASSUMPTIONS = [
+    "symmetric, risk-neutral bidders",
+    "symmetric equilibrium play (truthful bidding where it is dominant)",
+    "a single indivisible item or contract, no entry costs, no collusion",
+]
+
+
+#: The assumptions under which the figures hold, in the caller's direction.
+ASSUMPTIONS = {
+    "forward": ["independent private values drawn from the stated value model", *_COMMON_ASSUMPTIONS],
+    "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
+}
+
+
+#: A bid route's figure whose integrand has more than this share beyond the nodes is null.
+_UNREACHED = 1e-12
+
+
+def _no_sale_note(auc, direction):
+    """Say so when the reserve (maximum price) lies where no value (cost) reaches it."""
+    if auc.p_sale > 0.0:
+        return []
+    if direction == "forward":
+        return ["the reserve is at or above the top of the value model's support: no bidder can beat it, so nothing is sold"]
+    return ["the maximum price is at or below the bottom of the cost model's support: no bidder can meet it, so nothing is awarded"]
+
+
+def forward_figures(auc, rules, quantiles):
+    """Each rule's forward figures: the expected revenue by the rule's own route; the sd,
+    the surpluses and the efficiency each integrated as one quantity, never as a
+    difference of two large figures; a figure that does not exist is None, with a warning."""
+    if auc.n == 1 and auc.p_sale > 0.0 and not math.isfinite(auc.lone_price):
+        raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
+    warnings = []
+    sp_surplus, eff = gains.top_gains(auc, warnings)
+    out, shared = {}, {}
+    for rule in rules:
+        mean, err, sd, sd_err, qs = _price_figures(auc, rule, quantiles, shared, warnings)
+        if sd is not None and not math.isfinite(sd):
+            sd = None
+            warnings.append(f"{rule}: the sd is null (it is beyond double precision, about 1e308)")
+        winner, bidder = (None, None) if sp_surplus is None else gains.winner_gains(auc, rule, sp_surplus)
+        out[rule] = {
+            "rule": rule,
+            "expected_revenue": mean,
+            "revenue_sd": sd,
+            "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),  # at ``quantiles``
+            "probability_of_sale": auc.p_sale,
+            "expected_winner_surplus": None if winner is None else winner[0],
+            "expected_bidder_surplus": None if bidder is None else bidder[0],
+            "efficiency": None if eff is None else eff[0],
+            "_err": max([err, sd_err] + [g[1] for g in (winner, bidder, eff) if g is not None]),
+        }
+    for name in rules:
+        if R.get(name).pricing is R.ALL_PAY and auc.single_price is None and auc.p_sale > 0:
+            warnings.append(f"{name}: the quantiles are null (the sum of n bids has no closed form here); the sd is exact")
+    return out, warnings
+
+
+def _price_figures(auc, rule, quantiles, shared, warnings):
+    """(mean, its error, sd or None, the sd's error, quantiles or None) of the revenue.
+    The sd and quantiles depend only on the price distribution, which the two rules of each
+    pair share, so they are computed once per pair."""
+    has_var = auc.p_sale == 0.0 or price.price_moment_exists(auc.model, auc.n, rule, 2, auc.floor)
+    if not has_var:
+        note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
+        if note not in warnings:
+            warnings.append(note)
+    if auc.p_sale == 0.0:
+        return 0.0, 0.0, 0.0, 0.0, np.zeros(len(quantiles))
+    if auc.single_price is not None:
+        return price.single_price_stats(auc, quantiles)
+    pricing = R.get(rule).pricing
+    if pricing is not R.SECOND:
+        if _out_of_reach(auc, rule, 1, warnings):
+            return None, 0.0, None, 0.0, (None if pricing is R.ALL_PAY else price.bid_price_quantiles(auc, quantiles))
+        has_var = has_var and not _out_of_reach(auc, rule, 2, warnings)
+    mean, err = R.get(rule).revenue(auc)
+    if pricing is R.ALL_PAY:
+        sd, sd_err = price.all_pay_stats(auc) if has_var else (None, 0.0)
+        return mean, err, sd, sd_err, None
+    if pricing.name not in shared:
+        stats, price_quantiles = price.PRICE_DISTRIBUTION[pricing.name]
+        shared[pricing.name] = (stats(auc) if has_var else (None, 0.0)), price_quantiles(auc, quantiles)
+    (sd, sd_err), qs = shared[pricing.name]
+    return mean, err, sd, sd_err, qs
+
+
+def _out_of_reach(auc, rule, p, warnings):
+    """Whether the bid route's p-th moment, which exists, has more than ``_UNREACHED`` of
+    it beyond the bid nodes (``EquilibriumBids.share_beyond_reach``); if so it is null, and
+    a warning says why."""
+    if not auc.bids.share_beyond_reach(p) > _UNREACHED:
+        return False
+    what = "expected revenue and sd are" if p == 1 else "sd is"
+    warnings.append(f"{rule}: the {what} null: the moment exists, but more than {_UNREACHED:g} of it comes from values "
+                    f"beyond {bids.TOP_VALUE:g}, out of the double range (a tail index just above the moment's threshold)")
+    return True
+
+
+_NAMES = {
+    "forward": ("expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"),
+    "reverse": ("expected_payment", "payment_sd", "payment_quantiles", "probability_of_award"),
+}
+
+
+def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=None,
+                   quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
+    """Revenue (forward) or payment (reverse) figures for each rule asked (default: every
+    registered rule)."""
+    rules = R.names() if rules is None else rules
+    fmodel, freserve, v0 = forward_case(model, direction, reserve, own_value)
+    if direction == "forward" and v0 is None:
+        v0 = 0.0
+    auc = ForwardAuction(fmodel, bidders, freserve, v0)
+    price.check_price_exists(fmodel, bidders, auc.floor)
+    # Payment quantile p is minus the forward revenue quantile 1 - p.
+    fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
+    figures, warnings = forward_figures(auc, list(rules), fq)
+    warnings += _no_sale_note(auc, direction)
+    sign = 1.0 if direction == "forward" else -1.0
+    mean_k, sd_k, q_k, p_k = _NAMES[direction]
+    results, err = [], 0.0
+    for rule in rules:
+        f = figures[rule]
+        err = max(err, f["_err"])
+        qs = f["revenue_quantiles"]
+        results.append({
+            "rule": rule,
+            mean_k: finite(None if f["expected_revenue"] is None else sign * f["expected_revenue"]),
+            sd_k: finite(f["revenue_sd"]),
+            q_k: None if qs is None else [{"p": float(p), "value": finite(sign * x)} for p, x in zip(quantiles, qs)],
+            p_k: finite(f["probability_of_sale"]),
+            "expected_winner_surplus": finite(f["expected_winner_surplus"]),
+            "expected_bidder_surplus": finite(f["expected_bidder_surplus"]),
+            "efficiency": finite(f["efficiency"]),
+        })
+    means = [r[mean_k] for r in results]
+    spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
+    return audit.revenue({
+        "direction": direction,
+        "assumptions": ASSUMPTIONS[direction],
+        "bidders": bidders,
+        "reserve": reserve,
+        "results": results,
+        "revenue_equivalence": finite(spread),
+        "numerics": {"method": "quantile_gauss_legendre+spectral_bid_integration", "abs_error": finite(err)},
+        "warnings": warnings,
+    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0)
+
+
+def _grid(model, points):
+    lo = model.lower if math.isfinite(model.lower) else float(model.ppf(1e-3))
+    hi = model.upper if math.isfinite(model.upper) else float(model.isf(1e-3))
+    return np.linspace(lo, hi, points)
+
+
+def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", points=51, at=None):
+    """Equilibrium bids on a grid of values (forward) or costs (reverse)."""
+    fmodel, freserve, _ = forward_case(model, direction, reserve, None)
+    auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
+    pricing = R.get(rule).pricing
+    if not pricing.truthful and bidders > 1 and not auc.reserve_binds \
+            and not (bidders - 1) * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
+        raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
+                                        "(the value model's tail is too heavy); give a reserve")
+    grid = np.asarray(at, float) if at is not None else _grid(model, points)
+    v = grid if direction == "forward" else -grid
+    inside = (v >= fmodel.lower) & (v <= fmodel.upper)
+    takes_part = inside & (v >= auc.floor)
+    note = R.get(rule).note[direction]
+    if pricing.truthful:
+        bids = v.copy()
+    else:
+        s_q = fmodel.neg_log_cdf(v)
+        s_q = np.minimum(s_q, auc.s_r)
+        b = np.full(v.shape, auc.lone_price if bidders == 1 else auc.floor)
+        live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
+        b[live] = auc.bids.at_s(s_q[live])
+        if pricing is R.ALL_PAY:
+            # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
+            win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
+            with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
+                bids = np.where(win > 0.0, win * b, 0.0)
+        else:
+            bids = b
+    if direction == "reverse":
+        bids = -bids
+    out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]
+    key = "values" if direction == "forward" else "costs"
+    warnings = []
+    if not all(inside):
+        warnings.append("bids are null at " + ("values" if direction == "forward" else "costs") + " outside the model's support")
+    if not all(takes_part[inside]):
+        warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
+    warnings += _no_sale_note(auc, direction)
+    return audit.bids({"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
+                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS[direction], "warnings": warnings}, model, reserve)

@@ -1,0 +1,188 @@
+"""The optimal reserve (forward) or maximum price (reverse): Myerson (1981), the reserve
+where the virtual value equals the auctioneer's own value, or for an irregular model the
+best of the expected payoff's local maxima.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import optimize
+
+from . import audit, revenue
+from .auction import ForwardAuction, forward_case
+from .errors import ParameterError
+from .price import check_price_exists
+from .reports import ASSUMPTIONS
+from .topvalues import finite
+from .valuespace import refined_value_integral
+
+
+def _sp_payoff(model, n, r, v0):
+    """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
+    auc = ForwardAuction(model, n, r, v0)
+    rev = revenue.second_price_revenue(auc)[0] if n > 1 else auc.lone_price * auc.p_sale
+    return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
+
+
+_RESERVE_U = np.concatenate(([1e-9, 1e-6, 1e-4], np.linspace(0.002, 0.998, 499), [1 - 1e-4, 1 - 1e-6, 1 - 1e-9]))
+
+
+def _reserve_grid(model):
+    """Values on a grid in quantile space, with the model's kinks and density dips
+    inside the support (where the virtual value can jump or turn)."""
+    x = model.value_at(_RESERVE_U, 1.0 - _RESERVE_U)
+    kinks = [k for k in model.kink_values() if model.lower < k < model.upper]
+    return np.unique(np.concatenate((x, kinks)))
+
+
+def optimal_reserve(model, bidders, v0):
+    """(reserve, regular, outcome): Myerson (1981), the reserve where the virtual value
+    v - S(v)/f(v) equals v0 (outcome "root", or "none_binds" / "kept" where it lies at an end
+    of the support); for an irregular model, the best of the payoff's local maxima
+    (:func:`_best_reserve`, outcome "irregular")."""
+    if model.discrete:
+        raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
+    x = _reserve_grid(model)
+    with np.errstate(all="ignore"):
+        psi = x - model.sf(x) / model.pdf(x)
+    good = np.isfinite(psi) & np.isfinite(x)
+    if not np.any(good):  # no virtual value can be evaluated: the payoff's slope still can
+        good = np.isfinite(x)
+        psi = np.full(x.shape, np.nan)
+    x, psi = x[good], psi[good]
+    if len(x) < 2:
+        raise ParameterError("bidder_values", "the value model is too concentrated to search for a reserve")
+    scale = max(np.max(np.abs(x)), 1e-300)
+    if not x[-1] - x[0] > 8.0 * np.spacing(scale):
+        raise ParameterError("bidder_values", f"the values' spread is below the rounding of their size ({scale:g}): a reserve "
+                                              "cannot be placed among values that double precision does not tell apart")
+    regular = bool(np.all(np.isfinite(psi)) and np.all(np.diff(psi) >= -1e-9 * scale))
+    lo = model.lower if math.isfinite(model.lower) else float(x[0])
+    hi = model.upper if math.isfinite(model.upper) else float(x[-1])
+
+    def vv(r):
+        with np.errstate(all="ignore"):
+            return float(r - model.sf(r) / model.pdf(r)) - v0
+
+    outcome = "root"
+    if regular:
+        if psi[0] >= v0 and v0 <= lo:
+            r_star, outcome = lo, "none_binds"
+        elif psi[0] >= v0:  # the virtual value is at most the value, so the root lies in [v0, the lowest probe]
+            a, b = v0, float(x[0])
+            r_star = a if vv(a) >= 0.0 else optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300),
+                                                            rtol=1e-15, maxiter=200)
+        elif psi[-1] <= v0:
+            r_star, outcome = hi, "kept"
+        else:
+            i = int(np.argmax(psi > v0))
+            a, b = float(x[i - 1]), float(x[i])
+            r_star = optimize.brentq(vv, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200)
+    else:
+        r_star = _best_reserve(model, bidders, v0, x, lo, hi, scale)
+        # No reserve is always a choice: a guard for a grid the model's quantiles make
+        # degenerate (a Beta of shapes near 0, whose quantiles all round to one value).
+        if r_star != lo and _sp_payoff(model, bidders, lo, v0)[0] > _sp_payoff(model, bidders, r_star, v0)[0]:
+            r_star = lo
+        outcome = "irregular"
+    return r_star, regular, outcome
+
+
+def _payoff_slope(model, r, v0):
+    """(v0 - r) f(r) + S(r) = f(r) (v0 - virtual value): the seller's payoff's slope in the
+    reserve r, divided by n F(r)^(n-1) (Myerson 1981). Finite where f = 0 (a gap
+    between clusters of values, where raising the reserve loses no sale)."""
+    with np.errstate(all="ignore"):
+        return (v0 - r) * model.pdf(r) + model.sf(r)
+
+
+def _best_reserve(model, n, v0, x, lo, hi, scale):
+    """The global maximum of the payoff over reserves. Its local maxima are where the
+    slope turns from positive to negative between grid points (refined by brentq), and
+    the ends where the slope points out of the support. The payoff differences between
+    them are integrals of the slope itself, n F^(n-1) ((v0 - r) f + S), in value space."""
+    g = _payoff_slope(model, x, v0)
+    ok = np.isfinite(g)
+    xs, g = x[ok], g[ok]
+    if len(xs) < 2:
+        raise ParameterError("bidder_values", "the value model is too concentrated to search for a reserve")
+    peaks = [lo] if g[0] <= 0.0 else []
+    for i in np.nonzero((g[:-1] > 0.0) & (g[1:] <= 0.0))[0]:
+        a, b = float(xs[i]), float(xs[i + 1])
+        peaks.append(b if g[i + 1] == 0.0 else optimize.brentq(
+            lambda r: float(_payoff_slope(model, r, v0)), a, b,
+            xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15, maxiter=200))
+    if g[-1] > 0.0:
+        peaks.append(hi)
+    if len(peaks) == 1:
+        return peaks[0]
+
+    def slope(r):
+        with np.errstate(all="ignore"):
+            rivals = np.exp(-(n - 1.0) * model.neg_log_cdf(r)) if n > 1 else 1.0
+            return n * np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
+
+    gains = [0.0]
+    for a, b in zip(peaks[:-1], peaks[1:]):
+        edges = np.concatenate(([a], x[(x > a) & (x < b)], [b]))
+        flat = np.zeros(len(edges) - 1, bool)
+        rise, _ = refined_value_integral(edges[:-1], edges[1:], flat, np.ones(len(flat)), slope, scale)
+        gains.append(gains[-1] + rise)
+    return peaks[int(np.argmax(gains))]
+
+
+_MYERSON = {
+    "forward": "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend "
+               "on the number of bidders",
+    "reverse": "Myerson (1981): the reserve where the virtual cost c + F(c)/f(c) equals the buyer's value; it does not "
+               "depend on the number of bidders",
+}
+
+
+#: What the optimum means, by direction and by how ``optimal_reserve`` found it.
+_RESERVE_NOTES = {
+    "forward": {
+        "root": _MYERSON["forward"],
+        "none_binds": _MYERSON["forward"] + "; here every value's virtual value already exceeds it, so no reserve binds",
+        "kept": _MYERSON["forward"] + "; here no value's virtual value reaches it, so the item is best kept",
+        "irregular": "the virtual value is not increasing over the support (an irregular model), so every local maximum "
+                     "of the expected payoff over reserves was found, and the highest taken",
+    },
+    "reverse": {
+        "root": _MYERSON["reverse"],
+        "none_binds": _MYERSON["reverse"] + "; here every cost's virtual cost is already below it, so no maximum price binds",
+        "kept": _MYERSON["reverse"] + "; here no cost's virtual cost is below it, so the contract is best not awarded",
+        "irregular": "the virtual cost c + F(c)/f(c) is not increasing over the support (an irregular model), so every "
+                     "local maximum of the expected payoff over maximum prices was found, and the highest taken",
+    },
+}
+
+
+def reserve_report(model, direction, bidders, own_value):
+    """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's) expected payoff."""
+    fmodel, _, v0 = forward_case(model, direction, None, own_value)
+    r_star, regular, outcome = optimal_reserve(fmodel, bidders, v0)
+    note = _RESERVE_NOTES[direction][outcome]
+    check_price_exists(fmodel, bidders)
+    payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
+    payoff0, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
+    # the buyer's payoff, own_value P(award) - payment, from the forward twin's revenue + v0 P(no sale)
+    to_payoff = (lambda x: x) if direction == "forward" else (lambda x: x + own_value)
+    sign = 1.0 if direction == "forward" else -1.0
+    word, chance = ("revenue", "sale") if direction == "forward" else ("payment", "award")
+    out = {
+        "direction": direction,
+        "bidders": bidders,
+        "optimal_reserve": finite(sign * r_star),
+        f"expected_{word}_at_optimum": finite(sign * rev),
+        f"expected_{word}_without_reserve": finite(None if rev0 is None else sign * rev0),
+        f"probability_of_{chance}_at_optimum": finite(p_sale),
+        "expected_payoff_at_optimum": finite(to_payoff(payoff)),
+        "expected_payoff_without_reserve": finite(None if payoff0 is None else to_payoff(payoff0)),
+        "regular": regular,
+        "note": note,
+        "assumptions": ASSUMPTIONS[direction],
+        "warnings": [],
+    }
+    return audit.reserve_price(out, model, own_value)
