@@ -9,6 +9,7 @@ import pytest
 
 from service.core import audit
 from service.core import models as M
+from service.web import wording
 
 U01 = M.Uniform(0.0, 1.0)
 
@@ -63,9 +64,9 @@ def test_a_break_within_rounding_is_set_onto_the_bound():
     assert rep["results"][1]["mean"] == 0.5 and not notes(rep)
     # A surplus is a difference of figures of the revenue's size: -1e-17 beside a revenue of 0.5
     # is rounding, and is set to 0; -1e-17 as a revenue with nothing to round against is not.
-    rep = audit.revenue(revenue_report(expected_bidder_surplus=-1e-17), U01, None, 0.0)
+    rep = audited(audit.revenue, revenue_report(expected_bidder_surplus=-1e-17), U01, None, 0.0)
     assert rep["results"][0]["expected_bidder_surplus"] == 0.0 and not notes(rep)
-    rep = audit.revenue(revenue_report(mean=-1e-17), U01, None, 0.0)
+    rep = audited(audit.revenue, revenue_report(mean=-1e-17), U01, None, 0.0)
     assert notes(rep)
 
 
@@ -82,6 +83,32 @@ def test_joint_density_breaks_are_named():
     assert any(w.startswith("density.0.1 ") for w in notes(rep)) and any(w.startswith("mass ") for w in notes(rep))
     rep = audit.joint_density({"points": [{"higher": 1.0, "lower": 0.5, "density": -1.0}], "warnings": []})
     assert any(w.startswith("points.0 ") for w in notes(rep))
+
+
+def _renamed(value, names):
+    if isinstance(value, dict):
+        return {names.get(k, k): _renamed(v, names) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_renamed(v, names) for v in value]
+    return value
+
+
+def audited(check, report, *args):
+    """An auction report's audit as its caller reads it: the report, written under the caller's
+    names, is checked under the core's (revenue, sale, values) and its figures and findings named
+    back for its direction by the web layer (service/web/wording.py); in place, as the audit works."""
+    d = report["direction"]
+    core = _renamed(report, wording.CORE_NAMES[d])
+    if "columns" in core:
+        core["columns"] = [wording.CORE_NAMES[d].get(c, c) for c in core["columns"]]
+    out = check(core, *args)
+    named = _renamed({k: v for k, v in out.items() if k != "warnings"}, wording.NAMES[d])
+    if "columns" in named:
+        named["columns"] = [wording.name(c, d) for c in named["columns"]]
+    named["warnings"] = [wording.warning(w, d) for w in out["warnings"]]
+    report.clear()
+    report.update(named)
+    return report
 
 
 def revenue_report(direction="forward", reserve=None, bidders=3, **figures):
@@ -105,18 +132,18 @@ def revenue_report(direction="forward", reserve=None, bidders=3, **figures):
     ("reverse", {"probability_of_award": -0.5}, "results.0.probability_of_award"),
 ])
 def test_revenue_breaks_are_named(direction, figures, named):
-    rep = audit.revenue(revenue_report(direction, **figures), U01, None, 0.0)
+    rep = audited(audit.revenue, revenue_report(direction, **figures), U01, None, 0.0)
     assert any(w.startswith(named + " ") for w in notes(rep)), rep["warnings"]
 
 
 def test_revenue_floor_and_ceiling():
     # A winner-pays price is at least the reserve (forward) and at most the maximum price (reverse).
-    rep = audit.revenue(revenue_report("forward", reserve=0.6, mean=0.3, probability_of_sale=0.784), U01, 0.6, 0.0)
+    rep = audited(audit.revenue, revenue_report("forward", reserve=0.6, mean=0.3, probability_of_sale=0.784), U01, 0.6, 0.0)
     assert any("at least the floor" in w for w in notes(rep))
-    rep = audit.revenue(revenue_report("reverse", reserve=0.4, mean=0.5, probability_of_award=0.784), U01, 0.4, 0.0)
+    rep = audited(audit.revenue, revenue_report("reverse", reserve=0.4, mean=0.5, probability_of_award=0.784), U01, 0.4, 0.0)
     assert any("at most the maximum price" in w for w in notes(rep))
     # A lone bidder pays a reserve below the support: no break.
-    rep = audit.revenue(revenue_report("forward", reserve=-5.0, bidders=1, mean=-5.0), U01, -5.0, 0.0)
+    rep = audited(audit.revenue, revenue_report("forward", reserve=-5.0, bidders=1, mean=-5.0), U01, -5.0, 0.0)
     assert not notes(rep)
 
 
@@ -124,7 +151,7 @@ def test_consistent_revenue_reports_pass_untouched():
     for direction in ("forward", "reverse"):
         rep = revenue_report(direction)
         before = copy.deepcopy(rep)
-        assert audit.revenue(rep, U01, None, 0.0) == before
+        assert audited(audit.revenue, rep, U01, None, 0.0) == before
 
 
 def bid_report(direction, at, bids, rule="first_price", bidders=3):
@@ -135,21 +162,21 @@ def bid_report(direction, at, bids, rule="first_price", bidders=3):
 def test_bid_breaks_are_named():
     # Forward: a bid above the value and one falling as the value rises (b(v) = 2v/3 for three
     # uniform bidders rises and stays below v; Krishna 2009, ch. 2).
-    rep = audit.bids(bid_report("forward", [0.3, 0.6, 0.9], [0.2, 0.7, 0.5]), U01, None)
+    rep = audited(audit.bids, bid_report("forward", [0.3, 0.6, 0.9], [0.2, 0.7, 0.5]), U01, None)
     assert any(w.startswith("bids.1 ") and "between the floor and the value" in w for w in notes(rep))
     assert any(w.startswith("bids.2 ") and "rises" in w for w in notes(rep))
     # Reverse: an ask below the cost.
-    rep = audit.bids(bid_report("reverse", [0.3, 0.6], [0.2, 0.8]), U01, None)
+    rep = audited(audit.bids, bid_report("reverse", [0.3, 0.6], [0.2, 0.8]), U01, None)
     assert any(w.startswith("bids.0 ") for w in notes(rep))
     # A consistent answer passes untouched.
     rep = bid_report("forward", [0.3, 0.6, 0.9], [0.2, 0.4, 0.6])
-    assert audit.bids(rep, U01, None)["bids"] == [0.2, 0.4, 0.6] and not notes(rep)
+    assert audited(audit.bids, rep, U01, None)["bids"] == [0.2, 0.4, 0.6] and not notes(rep)
 
 
 def test_reserve_price_breaks_are_named():
     rep = {"direction": "forward", "optimal_reserve": 1.5, "expected_revenue_at_optimum": 0.53, "expected_revenue_without_reserve": 0.5,
            "probability_of_sale_at_optimum": 1.1, "expected_payoff_at_optimum": 0.4, "warnings": []}
-    rep = audit.reserve_price(rep, U01, 0.0)
+    rep = audited(audit.reserve_price, rep, U01, 0.0)
     assert {w.split(" ")[0] for w in notes(rep)} == {"optimal_reserve", "probability_of_sale_at_optimum", "expected_payoff_at_optimum"}
 
 
@@ -157,7 +184,7 @@ def test_sweep_breaks_are_named():
     table = {"direction": "reverse", "columns": ["bidders", "reserve", "rule", "expected_payment", "probability_of_award", "efficiency"],
              "rows": [[2, 0.5, "first_price", -2.35e-213, 0.75, 1.0], [2, 0.5, "second_price", 0.4, 1.5, 1.0000000000000002]],
              "warnings": []}
-    table = audit.sweep(table, U01)
+    table = audited(audit.sweep, table, U01)
     assert any(w.startswith("rows.0.expected_payment ") for w in notes(table))
     assert any(w.startswith("rows.1.probability_of_award ") for w in notes(table))
     assert table["rows"][1][5] == 1.0  # efficiency one unit in the last place above 1: set onto it
@@ -170,17 +197,17 @@ def test_rules_that_break_revenue_equivalence_are_named():
     first = rep["results"][0]
     rep["results"] = [dict(first, rule=r, expected_revenue=x) for r, x in
                       (("first_price", 0.5), ("second_price", 0.5 + 1e-14), ("all_pay", 0.5 + 5e-7))]
-    rep = audit.revenue(rep, U01, None, 0.0)
+    rep = audited(audit.revenue, rep, U01, None, 0.0)
     assert [w.split(" ")[0] for w in notes(rep)] == ["results.2.expected_revenue"]
     table = {"direction": "forward", "columns": ["bidders", "reserve", "rule", "expected_revenue"],
              "rows": [[3, 0.0, "first_price", 0.5], [3, 0.0, "second_price", 0.5], [3, 0.0, "all_pay", 0.49]], "warnings": []}
-    assert [w.split(" ")[0] for w in notes(audit.sweep(table, U01, 0.0))] == ["rows.2.expected_revenue"]
+    assert [w.split(" ")[0] for w in notes(audited(audit.sweep, table, U01, 0.0))] == ["rows.2.expected_revenue"]
 
 
 def test_efficiency_may_be_negative_only_where_a_trade_can_lose():
     # A reserve below the seller's own value lets the item go to a bidder who values it less:
     # realised gains, and so efficiency, can then be negative; with the reserve at or above it, not.
-    rep = audit.revenue(revenue_report(reserve=0.2, efficiency=-0.3, mean=0.5), U01, 0.2, 0.5)
+    rep = audited(audit.revenue, revenue_report(reserve=0.2, efficiency=-0.3, mean=0.5), U01, 0.2, 0.5)
     assert not [w for w in notes(rep) if "efficiency" in w]
-    rep = audit.revenue(revenue_report(reserve=0.6, efficiency=-0.3, mean=0.5, probability_of_sale=0.784), U01, 0.6, 0.5)
+    rep = audited(audit.revenue, revenue_report(reserve=0.6, efficiency=-0.3, mean=0.5, probability_of_sale=0.784), U01, 0.6, 0.5)
     assert [w for w in notes(rep) if "efficiency" in w]

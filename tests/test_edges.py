@@ -13,7 +13,6 @@ import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
 from service.core import orderstats as O
-from service.core import sweeps as S
 
 mp.mp.dps = 30
 RULES = list(core_rules.names())
@@ -126,7 +125,7 @@ def test_lone_bidder_is_paid_a_maximum_price_above_the_support(client, rule):
 def test_lone_bidder_in_a_sweep(direction, reserve, want):
     # The same in /v1/sweeps: the price is the reserve, paid with chance P(V >= r) (forward) or P(C <= R).
     model = M.Uniform(10.0, 20.0)
-    table = S.sweep(model, direction, [1], [reserve], RULES, [S.METRICS[direction][0]], own_value=None if direction == "forward" else 30.0)
+    table = A.sweep(model, direction, [1], [reserve], RULES, [A.metrics(direction)[0]], own_value=None if direction == "forward" else 30.0)
     for row in table["rows"]:
         assert row[3] == pytest.approx(want, rel=1e-14), row
 
@@ -257,7 +256,7 @@ def test_reverse_sweep_payments_near_the_bottom_of_costs(rule):
     # Once -2.35e-213: the first-price cells came from b_0 plus the reserve's lift, two terms
     # of size 0.5 P(award) whose tiny difference is the payment.
     prices = [1e-5, 1e-10, 1e-20, 1e-60, 1e-100]
-    table = S.sweep(M.Uniform(0.0, 1.0), "reverse", [2], prices, [rule], ["expected_payment", "probability_of_award"],
+    table = A.sweep(M.Uniform(0.0, 1.0), "reverse", [2], prices, [rule], ["expected_payment", "probability_of_award"],
                     own_value=None)
     assert not unreliable(table)
     for _, p, _, pay, award in table["rows"]:
@@ -272,7 +271,7 @@ def test_no_negative_payment_when_no_cost_is_negative(model):
     # Costs >= 0, so every payment is >= 0 (the winner is paid at least its cost), at maximum
     # prices from just above the bottom of the costs to well inside them.
     prices = [model.lower + d for d in (1e-300, 1e-200, 1e-100, 1e-40, 1e-12, 1e-6)] + [float(model.ppf(0.5))]
-    table = S.sweep(model, "reverse", [2, 3, 10], prices, RULES, ["expected_payment", "expected_bidder_surplus"], own_value=None)
+    table = A.sweep(model, "reverse", [2, 3, 10], prices, RULES, ["expected_payment", "expected_bidder_surplus"], own_value=None)
     assert not unreliable(table)
     for row in table["rows"]:
         assert row[3] >= 0.0, row
@@ -317,7 +316,7 @@ def test_a_narrow_triangular_scales_as_the_unit_one(client, n):
         status, out = post(client, "/v1/revenue", body)
         assert status == 200 and not unreliable(out)
         figures[width] = [(r["expected_payment"], r["payment_sd"]) for r in out["results"]]
-        table = S.sweep(M.Triangular(0.0, 0.0, width), "reverse", [n], [0.0, width], ["first_price", "second_price", "all_pay"],
+        table = A.sweep(M.Triangular(0.0, 0.0, width), "reverse", [n], [0.0, width], ["first_price", "second_price", "all_pay"],
                         ["expected_payment", "payment_sd", "probability_of_award"])
         assert [row[5] for row in table["rows"]] == [0.0] * 3 + [1.0] * 3
         assert [x for row in table["rows"][3:] for x in row[3:5]] == pytest.approx([x for f in figures[width] for x in f], rel=1e-9)

@@ -16,7 +16,6 @@ import pytest
 import api_reports as A
 from service.core import rules as core_rules
 from service.core import models as M
-from service.core import sweeps as S
 
 UNIFORM = {"family": "uniform", "low": 0, "high": 1}
 
@@ -74,8 +73,8 @@ def test_sweep_agrees_with_single_scenarios(model, direction):
     not negligible (above 1e-12 of the value scale)."""
     reserves = model.ppf(np.array([0.05, 0.3, 0.6, 0.95]))
     own = 0.0 if direction == "forward" else float(model.ppf(0.99))
-    metrics = list(S.METRICS[direction][:5]) + ["efficiency"]
-    out = S.sweep(model, direction, [1, 2, 7, 60], reserves, list(core_rules.names()), metrics, own)
+    metrics = A.metrics(direction)[:5] + ["efficiency"]
+    out = A.sweep(model, direction, [1, 2, 7, 60], reserves, list(core_rules.names()), metrics, own)
     scale = float(abs(model.ppf(0.5))) + 1.0
     for row in out["rows"]:
         n, r, rule = row[:3]

@@ -9,6 +9,10 @@ floor and the value and rise with it; a reverse auction's figures obey the same 
 mirrored (asks between the cost and the maximum price, payments at most the maximum
 price and at least the lowest cost's mean).
 
+Reports are checked under the core's names (revenue, sale, values) with figures in the
+caller's sign; a finding names its figure by its path (``notes.Finding``), which the web
+layer writes under the caller's names.
+
 A figure that breaks a law by no more than rounding (``ULPS`` units in the last place of
 the figures compared) is set onto the bound, where the exact figure lies, so its error
 only shrinks. A larger break is never silent: a warning names the figure, the law and
@@ -21,6 +25,7 @@ import math
 import numpy as np
 
 from . import rules as R
+from .notes import Finding
 
 #: How far, in units in the last place of the figures compared, rounding can carry a
 #: figure across a bound that holds exactly (sums of a few rounded terms).
@@ -49,7 +54,7 @@ class Audit:
         if bound - x <= _slack(x, bound, *scale):
             holder[key] = float(bound) + 0.0
         else:
-            self.notes.append(f"{path} is {x:.9g}, below {bound:.9g}, though {law}: it is not reliable")
+            self.notes.append(Finding(path, f"is {x:.9g}, below {bound:.9g}, though {law}: it is not reliable"))
 
     def at_most(self, holder, key, bound, path, law, scale=()):
         x = _get(holder, key)
@@ -58,7 +63,7 @@ class Audit:
         if x - bound <= _slack(x, bound, *scale):
             holder[key] = float(bound) + 0.0
         else:
-            self.notes.append(f"{path} is {x:.9g}, above {bound:.9g}, though {law}: it is not reliable")
+            self.notes.append(Finding(path, f"is {x:.9g}, above {bound:.9g}, though {law}: it is not reliable"))
 
     def within(self, holder, key, lo, hi, path, law, scale=()):
         self.at_least(holder, key, lo, path, law, scale)
@@ -175,11 +180,10 @@ def _trades_gain(model, reserve, own_value, reverse):
 
 
 def revenue(report, model, reserve, own_value):
-    """Each rule's figures in the caller's direction (payments and costs when reverse)."""
+    """Each rule's figures, in the caller's sign (payments and costs when reverse) under the core's names."""
     a = Audit(report)
     reverse = report["direction"] == "reverse"
-    mean_k, sd_k, q_k, p_k = (("expected_payment", "payment_sd", "payment_quantiles", "probability_of_award") if reverse
-                              else ("expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"))
+    mean_k, sd_k, q_k, p_k = "expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"
     floor = _floor(model, reserve, report["bidders"], reverse)
     gains = _trades_gain(model, reserve, own_value, reverse)
     for i, res in enumerate(report["results"]):
@@ -234,8 +238,8 @@ def _equivalent(a, holders, mean_k, paths, scale, slack):
     tol = EQUIVALENCE_RTOL * max(abs(m) for m, _ in live) + slack + _slack(*figures)
     for m, path in live:
         if abs(m - centre) > tol:
-            a.notes.append(f"{path} is {m:.9g}, {abs(m - centre):.3g} from the other rules' {centre:.9g}, though revenue "
-                           "equivalence makes them equal: it is not reliable")
+            a.notes.append(Finding(path, f"is {m:.9g}, {abs(m - centre):.3g} from the other rules' {centre:.9g}, though "
+                                         "revenue equivalence makes them equal: it is not reliable"))
 
 
 def bids(report, model, reserve):
@@ -245,7 +249,7 @@ def bids(report, model, reserve):
     a = Audit(report)
     reverse = report["direction"] == "reverse"
     sign = -1.0 if reverse else 1.0
-    at = report["costs" if reverse else "values"]
+    at = report["values"]
     floor = sign * _floor(model, reserve, report["bidders"], reverse)
     twin = [None if b is None else sign * b for b in report["bids"]]  # forward bids
     word = "cost" if reverse else "value"
@@ -273,11 +277,10 @@ def reserve_price(report, model, own_value):
     payoff is at least that of no reserve, which the search could have chosen."""
     a = Audit(report)
     reverse = report["direction"] == "reverse"
-    word, chance = ("payment", "award") if reverse else ("revenue", "sale")
-    key = f"probability_of_{chance}_at_optimum"
+    key = "probability_of_sale_at_optimum"
     a.within(report, key, 0.0, 1.0, key, "a probability lies in [0, 1]")
     a.within(report, "optimal_reserve", model.lower, model.upper, "optimal_reserve", "the optimum lies within the support")
-    without = report.get(f"expected_{word}_without_reserve")
+    without = report.get("expected_revenue_without_reserve")
     if without is not None and own_value is not None:
         # Without a reserve every auction sells: the seller's payoff is its revenue, the buyer's its value less the payment.
         baseline = own_value - without if reverse else without
@@ -296,14 +299,12 @@ def sweep(report, model, own_value=None):
     if not rows:
         return a.done()
     reverse = report["direction"] == "reverse"
-    mean_k = "expected_payment" if reverse else "expected_revenue"
+    mean_k = "expected_revenue"
     table = _Table(cols, rows)
     n, reserve = table.array("bidders"), table.array("reserve")
     floor = _floor_array(model, reserve, n, reverse)
-    for key, law in (("probability_of_sale", "a probability lies in [0, 1]"), ("probability_of_award", "a probability lies in [0, 1]")):
-        table.bound(a, key, 0.0, 1.0, law)
-    for key in ("revenue_sd", "payment_sd"):
-        table.bound(a, key, 0.0, None, "an sd is never negative")
+    table.bound(a, "probability_of_sale", 0.0, 1.0, "a probability lies in [0, 1]")
+    table.bound(a, "revenue_sd", 0.0, None, "an sd is never negative")
     if mean_k in table:
         no_negative = (model.lower >= 0.0) if reverse else (floor >= 0.0)
         table.bound(a, mean_k, np.where(no_negative, 0.0, np.nan), None, "no " + ("cost" if reverse else "bid") + " is negative")
@@ -369,9 +370,9 @@ class _Table:
 
 def _name_rows(a, bad, key, x, b, word, law, first=3):
     for i in bad[:first]:
-        a.notes.append(f"rows.{i}.{key} is {x[i]:.9g}, {word} {b[i]:.9g}, though {law}: it is not reliable")
+        a.notes.append(Finding(f"rows.{i}.{key}", f"is {x[i]:.9g}, {word} {b[i]:.9g}, though {law}: it is not reliable"))
     if len(bad) > first:
-        a.notes.append(f"{len(bad) - first} more rows' {key} break the same law ({law}): they are not reliable")
+        a.notes.append(Finding(key, f"breaks the same law in {len(bad) - first} more rows ({law}): they are not reliable"))
 
 
 def _floor_array(model, reserve, n, reverse):

@@ -1,5 +1,8 @@
 """The reports the endpoints return: each rule's revenue figures, the equilibrium bids on
 a grid, computed on the forward twin of the caller's auction (:func:`auction.forward_case`).
+Figures come back in the caller's sign under the core's names (revenue, sale, values);
+the web layer names them for the caller's direction and writes the notes
+(service/web/wording.py).
 """
 from __future__ import annotations
 
@@ -10,35 +13,19 @@ import numpy as np
 from . import audit, bids, gains, price
 from . import rules as R
 from .auction import ForwardAuction, forward_case
+from .bidders import Bidders
 from .errors import ParameterError
+from .notes import Note
 from .topvalues import finite
-
-
-_COMMON_ASSUMPTIONS = [
-    "symmetric, risk-neutral bidders",
-    "symmetric equilibrium play (truthful bidding where it is dominant)",
-    "a single indivisible item or contract, no entry costs, no collusion",
-]
-
-
-#: The assumptions under which the figures hold, in the caller's direction.
-ASSUMPTIONS = {
-    "forward": ["independent private values drawn from the stated value model", *_COMMON_ASSUMPTIONS],
-    "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
-}
 
 
 #: A bid route's figure whose integrand has more than this share beyond the nodes is null.
 _UNREACHED = 1e-12
 
 
-def _no_sale_note(auc, direction):
-    """Say so when the reserve (maximum price) lies where no value (cost) reaches it."""
-    if auc.p_sale > 0.0:
-        return []
-    if direction == "forward":
-        return ["the reserve is at or above the top of the value model's support: no bidder can beat it, so nothing is sold"]
-    return ["the maximum price is at or below the bottom of the cost model's support: no bidder can meet it, so nothing is awarded"]
+def _no_sale_note(auc):
+    """Say so (``Note("no_sale")``) when the reserve lies where no value reaches it."""
+    return [] if auc.p_sale > 0.0 else [Note("no_sale")]
 
 
 def forward_figures(auc, rules, quantiles):
@@ -114,28 +101,23 @@ def _out_of_reach(auc, rule, p, warnings):
     return True
 
 
-_NAMES = {
-    "forward": ("expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"),
-    "reverse": ("expected_payment", "payment_sd", "payment_quantiles", "probability_of_award"),
-}
-
-
 def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=None,
                    quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
-    """Revenue (forward) or payment (reverse) figures for each rule asked (default: every
-    registered rule)."""
+    """Revenue figures for each rule asked (default: every registered rule), in the caller's
+    sign (a reverse auction's payments) under the core's names (service/web/wording.py
+    names them for the caller)."""
     rules = R.names() if rules is None else rules
+    count = Bidders.of(bidders)
     fmodel, freserve, v0 = forward_case(model, direction, reserve, own_value)
     if direction == "forward" and v0 is None:
         v0 = 0.0
-    auc = ForwardAuction(fmodel, bidders, freserve, v0)
-    price.check_price_exists(fmodel, bidders, auc.floor)
+    auc = ForwardAuction(fmodel, count, freserve, v0)
+    price.check_price_exists(fmodel, count.n, auc.floor)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)
-    warnings += _no_sale_note(auc, direction)
+    warnings += _no_sale_note(auc)
     sign = 1.0 if direction == "forward" else -1.0
-    mean_k, sd_k, q_k, p_k = _NAMES[direction]
     results, err = [], 0.0
     for rule in rules:
         f = figures[rule]
@@ -143,20 +125,19 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         qs = f["revenue_quantiles"]
         results.append({
             "rule": rule,
-            mean_k: finite(None if f["expected_revenue"] is None else sign * f["expected_revenue"]),
-            sd_k: finite(f["revenue_sd"]),
-            q_k: None if qs is None else [{"p": float(p), "value": finite(sign * x)} for p, x in zip(quantiles, qs)],
-            p_k: finite(f["probability_of_sale"]),
+            "expected_revenue": finite(None if f["expected_revenue"] is None else sign * f["expected_revenue"]),
+            "revenue_sd": finite(f["revenue_sd"]),
+            "revenue_quantiles": None if qs is None else [{"p": float(p), "value": finite(sign * x)} for p, x in zip(quantiles, qs)],
+            "probability_of_sale": finite(f["probability_of_sale"]),
             "expected_winner_surplus": finite(f["expected_winner_surplus"]),
             "expected_bidder_surplus": finite(f["expected_bidder_surplus"]),
             "efficiency": finite(f["efficiency"]),
         })
-    means = [r[mean_k] for r in results]
+    means = [r["expected_revenue"] for r in results]
     spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
     return audit.revenue({
         "direction": direction,
-        "assumptions": ASSUMPTIONS[direction],
-        "bidders": bidders,
+        "bidders": count.to_params(),
         "reserve": reserve,
         "results": results,
         "revenue_equivalence": finite(spread),
@@ -172,43 +153,44 @@ def _grid(model, points):
 
 
 def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", points=51, at=None):
-    """Equilibrium bids on a grid of values (forward) or costs (reverse)."""
+    """Equilibrium bids on a grid of values (forward) or costs (reverse: asks), the grid under
+    the key ``values`` either way; where none is given, ``points`` values across the support."""
     fmodel, freserve, _ = forward_case(model, direction, reserve, None)
     auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
-    pricing = R.get(rule).pricing
-    if not pricing.truthful and bidders > 1 and not auc.reserve_binds \
-            and not (bidders - 1) * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
+    count, pricing = auc.bidders, R.get(rule).pricing
+    if not pricing.truthful and not count.lone and not auc.reserve_binds \
+            and not count.rivals * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
         raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
                                         "(the value model's tail is too heavy); give a reserve")
     grid = np.asarray(at, float) if at is not None else _grid(model, points)
     v = grid if direction == "forward" else -grid
     inside = (v >= fmodel.lower) & (v <= fmodel.upper)
     takes_part = inside & (v >= auc.floor)
-    note = R.get(rule).note[direction]
-    if pricing.truthful:
-        bids = v.copy()
-    else:
-        s_q = fmodel.neg_log_cdf(v)
-        s_q = np.minimum(s_q, auc.s_r)
-        b = np.full(v.shape, auc.lone_price if bidders == 1 else auc.floor)
-        live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
-        b[live] = auc.bids.at_s(s_q[live])
-        if pricing is R.ALL_PAY:
-            # a(v) = F(v)^(n-1) b(v); F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
-            win = np.ones(v.shape) if bidders == 1 else np.where(np.isfinite(s_q), np.exp(-(bidders - 1.0) * np.where(np.isfinite(s_q), s_q, 0.0)), 0.0)
-            with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
-                bids = np.where(win > 0.0, win * b, 0.0)
-        else:
-            bids = b
+    bids = v.copy() if pricing.truthful else _equilibrium_bids(auc, pricing, v)
     if direction == "reverse":
         bids = -bids
     out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]
-    key = "values" if direction == "forward" else "costs"
     warnings = []
     if not all(inside):
-        warnings.append("bids are null at " + ("values" if direction == "forward" else "costs") + " outside the model's support")
+        warnings.append(Note("outside_support"))
     if not all(takes_part[inside]):
-        warnings.append("bids are null where the bidder does not take part (" + ("value below the reserve" if direction == "forward" else "cost above the maximum price") + ")")
-    warnings += _no_sale_note(auc, direction)
-    return audit.bids({"direction": direction, "rule": rule, "bidders": bidders, key: [finite(x) for x in grid.tolist()],
-                       "bids": out_bids, "note": note, "assumptions": ASSUMPTIONS[direction], "warnings": warnings}, model, reserve)
+        warnings.append(Note("not_taking_part"))
+    warnings += _no_sale_note(auc)
+    return audit.bids({"direction": direction, "rule": rule, "bidders": count.to_params(),
+                       "values": [finite(x) for x in grid.tolist()], "bids": out_bids, "warnings": warnings}, model, reserve)
+
+
+def _equilibrium_bids(auc, pricing, v):
+    """The forward bids at values v under a pricing that is not truthful: b(v), or the all-pay
+    a(v) = F(v)^(n-1) b(v)."""
+    count = auc.bidders
+    s_q = np.minimum(auc.model.neg_log_cdf(v), auc.s_r)
+    b = np.full(v.shape, auc.lone_price if count.lone else auc.floor)
+    live = np.isfinite(s_q)  # at the bottom of the support the bid is that value itself
+    b[live] = auc.bids.at_s(s_q[live])
+    if pricing is not R.ALL_PAY:
+        return b
+    # F^0 = 1 for a lone bidder, F = 0 at the bottom of the support.
+    win = np.ones(v.shape) if count.lone else np.where(live, np.exp(-count.rivals * np.where(live, s_q, 0.0)), 0.0)
+    with np.errstate(invalid="ignore"):  # F^(n-1) b -> 0 at the bottom of an unbounded support
+        return np.where(win > 0.0, win * b, 0.0)

@@ -11,17 +11,17 @@ from scipy import optimize
 
 from . import audit, revenue
 from .auction import ForwardAuction, forward_case
+from .bidders import Bidders
 from .errors import ParameterError
 from .price import check_price_exists
-from .reports import ASSUMPTIONS
 from .topvalues import finite
 from .valuespace import refined_value_integral
 
 
-def _sp_payoff(model, n, r, v0):
+def _sp_payoff(model, bidders, r, v0):
     """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
-    auc = ForwardAuction(model, n, r, v0)
-    rev = revenue.second_price_revenue(auc)[0] if n > 1 else auc.lone_price * auc.p_sale
+    auc = ForwardAuction(model, bidders, r, v0)
+    rev = auc.lone_price * auc.p_sale if auc.bidders.lone else revenue.second_price_revenue(auc)[0]
     return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
 
 
@@ -97,11 +97,12 @@ def _payoff_slope(model, r, v0):
         return (v0 - r) * model.pdf(r) + model.sf(r)
 
 
-def _best_reserve(model, n, v0, x, lo, hi, scale):
+def _best_reserve(model, bidders, v0, x, lo, hi, scale):
     """The global maximum of the payoff over reserves. Its local maxima are where the
     slope turns from positive to negative between grid points (refined by brentq), and
     the ends where the slope points out of the support. The payoff differences between
     them are integrals of the slope itself, n F^(n-1) ((v0 - r) f + S), in value space."""
+    count = Bidders.of(bidders)
     g = _payoff_slope(model, x, v0)
     ok = np.isfinite(g)
     xs, g = x[ok], g[ok]
@@ -120,8 +121,8 @@ def _best_reserve(model, n, v0, x, lo, hi, scale):
 
     def slope(r):
         with np.errstate(all="ignore"):
-            rivals = np.exp(-(n - 1.0) * model.neg_log_cdf(r)) if n > 1 else 1.0
-            return n * np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
+            rivals = 1.0 if count.lone else np.exp(-count.rivals * model.neg_log_cdf(r))
+            return count.n * np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
 
     gains = [0.0]
     for a, b in zip(peaks[:-1], peaks[1:]):
@@ -132,57 +133,30 @@ def _best_reserve(model, n, v0, x, lo, hi, scale):
     return peaks[int(np.argmax(gains))]
 
 
-_MYERSON = {
-    "forward": "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend "
-               "on the number of bidders",
-    "reverse": "Myerson (1981): the reserve where the virtual cost c + F(c)/f(c) equals the buyer's value; it does not "
-               "depend on the number of bidders",
-}
-
-
-#: What the optimum means, by direction and by how ``optimal_reserve`` found it.
-_RESERVE_NOTES = {
-    "forward": {
-        "root": _MYERSON["forward"],
-        "none_binds": _MYERSON["forward"] + "; here every value's virtual value already exceeds it, so no reserve binds",
-        "kept": _MYERSON["forward"] + "; here no value's virtual value reaches it, so the item is best kept",
-        "irregular": "the virtual value is not increasing over the support (an irregular model), so every local maximum "
-                     "of the expected payoff over reserves was found, and the highest taken",
-    },
-    "reverse": {
-        "root": _MYERSON["reverse"],
-        "none_binds": _MYERSON["reverse"] + "; here every cost's virtual cost is already below it, so no maximum price binds",
-        "kept": _MYERSON["reverse"] + "; here no cost's virtual cost is below it, so the contract is best not awarded",
-        "irregular": "the virtual cost c + F(c)/f(c) is not increasing over the support (an irregular model), so every "
-                     "local maximum of the expected payoff over maximum prices was found, and the highest taken",
-    },
-}
-
-
 def reserve_report(model, direction, bidders, own_value):
-    """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's) expected payoff."""
+    """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's)
+    expected payoff, in the caller's sign under the core's names; ``outcome`` says how the
+    optimum was found (see :func:`optimal_reserve`), for the web layer's note."""
+    count = Bidders.of(bidders)
     fmodel, _, v0 = forward_case(model, direction, None, own_value)
-    r_star, regular, outcome = optimal_reserve(fmodel, bidders, v0)
-    note = _RESERVE_NOTES[direction][outcome]
-    check_price_exists(fmodel, bidders)
-    payoff, rev, p_sale = _sp_payoff(fmodel, bidders, r_star, v0)
-    payoff0, rev0, _ = _sp_payoff(fmodel, bidders, None, v0) if (bidders > 1 or math.isfinite(fmodel.lower)) else (None, None, None)
+    r_star, regular, outcome = optimal_reserve(fmodel, count, v0)
+    check_price_exists(fmodel, count.n)
+    payoff, rev, p_sale = _sp_payoff(fmodel, count, r_star, v0)
+    payoff0, rev0, _ = _sp_payoff(fmodel, count, None, v0) if (not count.lone or math.isfinite(fmodel.lower)) else (None, None, None)
     # the buyer's payoff, own_value P(award) - payment, from the forward twin's revenue + v0 P(no sale)
     to_payoff = (lambda x: x) if direction == "forward" else (lambda x: x + own_value)
     sign = 1.0 if direction == "forward" else -1.0
-    word, chance = ("revenue", "sale") if direction == "forward" else ("payment", "award")
     out = {
         "direction": direction,
-        "bidders": bidders,
+        "bidders": count.to_params(),
         "optimal_reserve": finite(sign * r_star),
-        f"expected_{word}_at_optimum": finite(sign * rev),
-        f"expected_{word}_without_reserve": finite(None if rev0 is None else sign * rev0),
-        f"probability_of_{chance}_at_optimum": finite(p_sale),
+        "expected_revenue_at_optimum": finite(sign * rev),
+        "expected_revenue_without_reserve": finite(None if rev0 is None else sign * rev0),
+        "probability_of_sale_at_optimum": finite(p_sale),
         "expected_payoff_at_optimum": finite(to_payoff(payoff)),
         "expected_payoff_without_reserve": finite(None if payoff0 is None else to_payoff(payoff0)),
         "regular": regular,
-        "note": note,
-        "assumptions": ASSUMPTIONS[direction],
+        "outcome": outcome,
         "warnings": [],
     }
     return audit.reserve_price(out, model, own_value)

@@ -26,12 +26,9 @@ from .price import check_price_exists, price_moment_exists
 from .errors import ParameterError
 from .topvalues import finite
 
-METRICS = {
-    "forward": ("expected_revenue", "revenue_sd", "probability_of_sale", "expected_winner_surplus",
-                "expected_bidder_surplus", "efficiency", "expected_payoff"),
-    "reverse": ("expected_payment", "payment_sd", "probability_of_award", "expected_winner_surplus",
-                "expected_bidder_surplus", "efficiency", "expected_payoff"),
-}
+#: The figures a sweep can tabulate, under the core's names (service/web/wording.py names them per direction).
+METRICS = ("expected_revenue", "revenue_sd", "probability_of_sale", "expected_winner_surplus",
+           "expected_bidder_surplus", "efficiency", "expected_payoff")
 
 
 def _t_of(s, k):
@@ -286,7 +283,7 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
     return np.minimum(out, floor)  # a bid never exceeds the value
 
 
-def _cells(blk, j, n, rule, has_var, v0, sign, names):
+def _cells(blk, j, n, rule, has_var, v0, sign):
     """One row's figures from its bidder count's block: reserve j, ``rule``. The surpluses
     and the efficiency come from the gains integrated directly (``_gains``); a figure that
     does not exist is None."""
@@ -306,9 +303,9 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
         winner = bidders if R.get(rule).pricing is not R.ALL_PAY or n == 1 else blk["e1"][j] - winner_pays
         efficiency = None if best is None or not best > 0 else 1.0 - lost[j] / best
     return {
-        names[0]: sign * rev,
-        names[1]: sd if has_var else None,
-        names[2]: p_sale,
+        "expected_revenue": sign * rev,
+        "revenue_sd": sd if has_var else None,
+        "probability_of_sale": p_sale,
         "expected_winner_surplus": winner,
         "expected_bidder_surplus": bidders,
         "efficiency": efficiency,
@@ -318,16 +315,16 @@ def _cells(blk, j, n, rule, has_var, v0, sign, names):
 
 
 def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
-    """A long table: one row per (bidders, reserve, rule), one column per metric."""
+    """A long table: one row per (bidders, reserve, rule), one column per metric (``METRICS``),
+    figures in the caller's sign."""
     fmodel, _, v0 = forward_case(model, direction, None, own_value)
     if direction == "forward" and v0 is None:
         v0 = 0.0
     if model.discrete:
         raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
-    names = METRICS[direction]
     for i, m in enumerate(metrics):
-        if m not in names:
-            raise ParameterError(f"metrics.{i}", f"one of {', '.join(names)} for a {direction} sweep")
+        if m not in METRICS:
+            raise ParameterError(f"metrics.{i}", f"one of {', '.join(METRICS)}")
     for n in sorted(set(bidders)):  # every row comes from the bids without a reserve, which must exist
         check_price_exists(fmodel, n)
     res = np.asarray(reserves, float)
@@ -342,7 +339,7 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
         for j, r in enumerate(res.tolist()):
             floor_finite = int(math.isfinite(max(fres[j], fmodel.lower)))
             for rule in rules:
-                cells = _cells(blk, j, n, rule, has_var[rule, floor_finite], v0, sign, names)
+                cells = _cells(blk, j, n, rule, has_var[rule, floor_finite], v0, sign)
                 rows.append([n, r, rule, *[finite(cells[m]) for m in metrics]])
         _note_nulls(blk, has_var, rules, n, warnings)
     table = {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows, "warnings": warnings}

@@ -11,7 +11,7 @@ from marshmallow import Schema, ValidationError, validates_schema
 from ..core import reports, reserve
 from ..core import rules as core_rules
 from .fields import CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
-from . import admission
+from . import admission, wording
 from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
@@ -80,11 +80,11 @@ def revenue_handler(body):
     admission.admit(work=_model_work(body) * len(req["rules"]), numbers=len(req["rules"]) * (24 + 2 * len(req["quantiles"])),
                     field="quantiles")
     model, direction, own = _case(req)
-    return core_call(
+    return wording.revenue(core_call(
         reports.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], own_value=own,
         rules=req["rules"], quantiles=req["quantiles"],
-    )
+    ))
 
 
 def bid_strategy_handler(body):
@@ -93,21 +93,21 @@ def bid_strategy_handler(body):
     admission.admit(work=_model_work(body) * (1 + count / 100), numbers=2 * count,
                     field="at" if req["at"] is not None else "points")
     model, direction, _ = _case(req)
-    return core_call(
+    return wording.bids(core_call(
         reports.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], rule=req["rule"],
         points=req["points"] or 51, at=req["at"],
-    )
+    ))
 
 
 def reserve_price_handler(body):
     req = load(ReservePriceRequest, body)
     admission.admit(work=_model_work(body) * 20, numbers=16, field="bidders")
     model, direction, own = _case(req)
-    return core_call(
+    return wording.reserve(core_call(
         reserve.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], own_value=own,
-    )
+    ))
 
 
 HANDLERS = {"/v1/revenue": revenue_handler, "/v1/bid-strategy": bid_strategy_handler,

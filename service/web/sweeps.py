@@ -13,7 +13,7 @@ from marshmallow import Schema, ValidationError, fields, validates_schema
 from ..core import sweeps
 from ..core.budget import BudgetSpent
 from . import query
-from . import admission
+from . import admission, wording
 from .auctions import _AuctionRequest, _case, _model_work
 from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
 from .io import core_call, json_body, json_response, load
@@ -118,7 +118,7 @@ class SweepRequest(_AuctionRequest):
     bidders = _ListOrRange(StrictInteger(minimum=1, maximum="bidders"), IntRange, _int_range, required=True)
     reserves = _ListOrRange(StrictFloat(), FloatRange, _float_range, required=True)
     rules = rule_list(load_default=lambda: ["first_price", "second_price"])
-    metrics = CappedList(fields.String(), 1, len(sweeps.METRICS["forward"]), load_default=None)
+    metrics = CappedList(fields.String(), 1, len(sweeps.METRICS), load_default=None)
 
     @validates_schema
     def _size(self, data, **kw):
@@ -131,15 +131,27 @@ class SweepRequest(_AuctionRequest):
 def sweeps_handler(body):
     req = load(SweepRequest, body)
     model, direction, own = _case(req)
-    metrics = req["metrics"] or list(sweeps.METRICS[direction][:3])
+    metrics = _core_metrics(req["metrics"], direction)
     rows = len(req["bidders"]) * len(req["reserves"]) * len(req["rules"])
     admission.admit(work=_model_work(body) * len(req["bidders"]) * (1 + len(req["reserves"]) / 50),
                     numbers=rows * (3 + len(metrics)), field="bidders")
-    return core_call(
+    return wording.sweep(core_call(
         sweeps.sweep, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserves=req["reserves"],
         rules=req["rules"], metrics=metrics, own_value=own if direction == "reverse" or req["seller_value"] is not None else None,
-    )
+    ))
+
+
+def _core_metrics(asked, direction):
+    """The metrics asked, by the caller's names for the direction, as the core names them
+    (default: the first three)."""
+    names = [wording.name(m, direction) for m in sweeps.METRICS]
+    if asked is None:
+        return list(sweeps.METRICS[:3])
+    bad = {f"metrics.{i}": [f"one of {', '.join(names)} for a {direction} sweep"] for i, m in enumerate(asked) if m not in names}
+    if bad:
+        raise ValidationError(bad)
+    return [wording.CORE_NAMES[direction].get(m, m) for m in asked]
 
 
 HANDLERS = {"/v1/sweeps": sweeps_handler}

@@ -1,0 +1,144 @@
+"""What the answers say, in the caller's direction.
+
+The core computes in one vocabulary, that of a forward auction (revenue, a sale, values),
+with figures in the caller's sign. Here a reverse answer's keys are named for a
+procurement (payment, award, costs), and the notes and assumptions are written: the
+warnings the core names by a code (``notes.Note``) and the audit's findings, whose figure
+paths (``notes.Finding``) are named as the caller reads them.
+"""
+from __future__ import annotations
+
+from ..core import rules as core_rules
+
+#: The core's keys as a reverse auction's caller reads them; a forward caller reads the core's own.
+_REVERSE_NAMES = {
+    "expected_revenue": "expected_payment",
+    "revenue_sd": "payment_sd",
+    "revenue_quantiles": "payment_quantiles",
+    "probability_of_sale": "probability_of_award",
+    "expected_revenue_at_optimum": "expected_payment_at_optimum",
+    "expected_revenue_without_reserve": "expected_payment_without_reserve",
+    "probability_of_sale_at_optimum": "probability_of_award_at_optimum",
+    "values": "costs",
+}
+NAMES = {"forward": {}, "reverse": _REVERSE_NAMES}
+#: The caller's names back to the core's, per direction (a sweep's metrics).
+CORE_NAMES = {direction: {v: k for k, v in names.items()} for direction, names in NAMES.items()}
+
+_COMMON_ASSUMPTIONS = [
+    "symmetric, risk-neutral bidders",
+    "symmetric equilibrium play (truthful bidding where it is dominant)",
+    "a single indivisible item or contract, no entry costs, no collusion",
+]
+#: The assumptions under which the figures hold, in the caller's direction.
+ASSUMPTIONS = {
+    "forward": ["independent private values drawn from the stated value model", *_COMMON_ASSUMPTIONS],
+    "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
+}
+
+#: The words of each ``Note`` code, per direction.
+NOTES = {
+    "no_sale": {
+        "forward": "the reserve is at or above the top of the value model's support: no bidder can beat it, so nothing is sold",
+        "reverse": "the maximum price is at or below the bottom of the cost model's support: no bidder can meet it, so "
+                   "nothing is awarded",
+    },
+    "outside_support": {
+        "forward": "bids are null at values outside the model's support",
+        "reverse": "bids are null at costs outside the model's support",
+    },
+    "not_taking_part": {
+        "forward": "bids are null where the bidder does not take part (value below the reserve)",
+        "reverse": "bids are null where the bidder does not take part (cost above the maximum price)",
+    },
+}
+
+_MYERSON = {
+    "forward": "Myerson (1981): the reserve where the virtual value equals the auctioneer's own value; it does not depend "
+               "on the number of bidders",
+    "reverse": "Myerson (1981): the reserve where the virtual cost c + F(c)/f(c) equals the buyer's value; it does not "
+               "depend on the number of bidders",
+}
+
+
+#: What the optimum means, by direction and by how ``optimal_reserve`` found it.
+_RESERVE_NOTES = {
+    "forward": {
+        "root": _MYERSON["forward"],
+        "none_binds": _MYERSON["forward"] + "; here every value's virtual value already exceeds it, so no reserve binds",
+        "kept": _MYERSON["forward"] + "; here no value's virtual value reaches it, so the item is best kept",
+        "irregular": "the virtual value is not increasing over the support (an irregular model), so every local maximum "
+                     "of the expected payoff over reserves was found, and the highest taken",
+    },
+    "reverse": {
+        "root": _MYERSON["reverse"],
+        "none_binds": _MYERSON["reverse"] + "; here every cost's virtual cost is already below it, so no maximum price binds",
+        "kept": _MYERSON["reverse"] + "; here no cost's virtual cost is below it, so the contract is best not awarded",
+        "irregular": "the virtual cost c + F(c)/f(c) is not increasing over the support (an irregular model), so every "
+                     "local maximum of the expected payoff over maximum prices was found, and the highest taken",
+    },
+}
+
+
+def name(key, direction):
+    """The caller's name for one of the core's keys."""
+    return NAMES[direction].get(key, key)
+
+
+def warning(text, direction):
+    """A warning in the caller's words: a Note's per direction, a Finding's path under the caller's names."""
+    if hasattr(text, "code"):
+        return NOTES[text.code][direction]
+    if hasattr(text, "path"):
+        return ".".join(name(part, direction) for part in text.path.split(".")) + " " + text.text
+    return str(text)
+
+
+def _named(value, direction):
+    """A report's dicts, at any depth, under the caller's names; warnings in the caller's words."""
+    if isinstance(value, dict):
+        return {name(k, direction): (_warnings(v, direction) if k == "warnings" else _named(v, direction))
+                for k, v in value.items()}
+    if isinstance(value, list):
+        return [_named(v, direction) for v in value]
+    return value
+
+
+def _warnings(items, direction):
+    return [warning(w, direction) for w in items]
+
+
+def _with(report, direction, before, extra):
+    """The named report with ``extra`` keys placed before the key ``before``."""
+    out = {}
+    for key, value in _named(report, direction).items():
+        if key == before:
+            out.update(extra)
+        out[key] = value
+    return out
+
+
+def revenue(report):
+    """/v1/revenue's answer: the core's report named for its direction, with the assumptions."""
+    d = report["direction"]
+    return _with(report, d, "bidders", {"assumptions": ASSUMPTIONS[d]})
+
+
+def bids(report):
+    """/v1/bid-strategy's answer, with what the rule's bids mean and the assumptions."""
+    d = report["direction"]
+    return _with(report, d, "warnings", {"note": core_rules.get(report["rule"]).note[d], "assumptions": ASSUMPTIONS[d]})
+
+
+def reserve(report):
+    """/v1/reserve-price's answer, with what the optimum means (by how it was found) and the assumptions."""
+    d = report["direction"]
+    out = _with(report, d, "warnings", {"note": _RESERVE_NOTES[d][report["outcome"]], "assumptions": ASSUMPTIONS[d]})
+    del out["outcome"]
+    return out
+
+
+def sweep(table):
+    """/v1/sweeps' table: its metric columns under the caller's names."""
+    d = table["direction"]
+    return {**table, "columns": [name(c, d) for c in table["columns"]], "warnings": _warnings(table["warnings"], d)}
