@@ -63,7 +63,7 @@ class EquilibriumBids:
 
     def __init__(self, auction):
         self.auction, self.model, self.n = auction, auction.model, auction.n
-        self.rivals = auction.bidders.rivals
+        self.rivals, self.lone = auction.bidders.rivals, auction.bidders.lone
         self.s_r, self.floor, self.lone_price = auction.s_r, auction.floor, auction.lone_price
         self.origin = self._origin()
         self._quadrature = self._tail = self._nodes = self._shading_cache = None
@@ -75,7 +75,7 @@ class EquilibriumBids:
         a reserve far from zero, or bids just below a top of 0 (the forward twin of costs massed
         near 0)."""
         ends = [x for x in (self.floor, self.model.upper, 0.0) if math.isfinite(x)]
-        if self.n == 1:
+        if self.lone:
             return ends[0]
         s = math.log(2.0) / (self.rivals)  # F(y)^(n-1) = 1/2
         mid = float(self.model.value_at(np.array([math.exp(-s)]), np.array([-math.expm1(-s)]))[0])
@@ -180,7 +180,7 @@ class EquilibriumBids:
         """First-price equilibrium bids at values with -log F(v) = s_q (array): the floor
         at and below it (b(r) = r), where the value model has no mass above the floor too."""
         s_q = np.asarray(s_q, float)
-        if self.n == 1:
+        if self.lone:
             return np.full(s_q.shape, self.lone_price)
         flat = s_q.ravel()
         res = np.full(flat.shape, math.nan)

@@ -60,13 +60,13 @@ def _second_price_surplus(auc, q):
     less the revenue."""
     above = _panels_above(q, auc.s_r)
     ih = auc.model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
-    below_support = (auc.floor - auc.lone_price) * auc.p_sale if auc.n == 1 else 0.0
+    below_support = (auc.floor - auc.lone_price) * auc.p_sale if auc.bidders.lone else 0.0
     with np.errstate(invalid="ignore", over="ignore"):
         if ih is not None:
             surplus, err = q.integrate_nodes(ih, above)
             return surplus + below_support, err
         ref, o = q.offsets()
-        if auc.n == 1:
+        if auc.bidders.lone:
             surplus, err = q.integrate_nodes(o - (auc.floor - ref), above)
             return surplus + below_support, err
         shift, err = q.integrate_nodes(o, above)
@@ -83,7 +83,7 @@ def winner_gains(auc, rule, sp_surplus):
     if auc.p_sale == 0.0:
         return (0.0, 0.0), (0.0, 0.0)
     pricing = R.get(rule).pricing
-    if auc.n == 1 or pricing is R.SECOND:
+    if auc.bidders.lone or pricing is R.SECOND:
         return sp_surplus, sp_surplus
     shade = auc.bids.shade()
     if "bidders_surplus" not in auc.kept:  # every bid rule asks for it
@@ -91,7 +91,7 @@ def winner_gains(auc, rule, sp_surplus):
     bidders = auc.kept["bidders_surplus"]
     if pricing is not R.ALL_PAY:
         return bidders, bidders
-    k = auc.n - 1.0
+    k = auc.bidders.rivals
     return auc.bids.expect(lambda nb: nb.top * (shade - np.expm1(-k * nb.s) * nb.bids)), bidders
 
 

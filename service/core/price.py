@@ -15,6 +15,7 @@ import numpy as np
 
 from . import orderstats as os_
 from . import rules as R
+from .bidders import Bidders
 from .errors import ParameterError
 
 
@@ -169,8 +170,8 @@ def single_price_stats(auc, quantiles):
     return mean, os_.ROUNDING * abs(mean), sd, os_.ROUNDING * sd, qs
 
 
-def price_moment_exists(model, n, rule, p, floor=-math.inf):
-    """Whether E|price|^p is finite under ``rule`` with n bidders and the given floor (the
+def price_moment_exists(model, bidders, rule, p, floor=-math.inf):
+    """Whether E|price|^p is finite under ``rule`` with n bidders (``bidders``: a count or :class:`Bidders`) and the given floor (the
     reserve or the bottom of the support), from the tail index of the price itself.
 
     Upper tail, P(X > x) ~ x^-a: the second-price price max(X2, r) has index 2a (David and
@@ -183,12 +184,13 @@ def price_moment_exists(model, n, rule, p, floor=-math.inf):
     a_low, none where the floor is finite: rank k has (n - k + 1) a_low, b(X1) follows X1,
     and an all-pay bid vanishes there once the bids exist ((n - 1) a_low > 1).
     """
-    if n == 1:
+    count = Bidders.of(bidders)
+    if count.lone:
         return math.isfinite(floor)
-    a, a_low = model.upper_tail_index, model.lower_tail_index
+    n, a, a_low = count.n, model.upper_tail_index, model.lower_tail_index
     pricing = R.get(rule).pricing
     if pricing is R.SECOND:
-        upper, lower = 2.0 * a > p, (n - 1) * a_low > p
+        upper, lower = 2.0 * a > p, count.rivals * a_low > p
     else:
         upper, lower = a >= 1.0 or a / (1.0 - a) > p, pricing is R.ALL_PAY or n * a_low > p
     return upper and (lower or math.isfinite(floor))
@@ -198,6 +200,7 @@ def check_price_exists(fmodel, bidders, floor=-math.inf):
     """The expected price, under every rule alike (revenue equivalence), is the expected
     max(X2, r): with rivals it needs the second-highest value's mean, upper tail 2a > 1, and,
     unless the floor is finite, lower tail (n - 1) a_low > 1 (see ``price_moment_exists``)."""
-    if bidders > 1 and not (2.0 * fmodel.upper_tail_index > 1.0
-                            and ((bidders - 1) * fmodel.lower_tail_index > 1.0 or math.isfinite(floor))):
+    count = Bidders.of(bidders)
+    if not count.lone and not (2.0 * fmodel.upper_tail_index > 1.0
+                               and (count.rivals * fmodel.lower_tail_index > 1.0 or math.isfinite(floor))):
         raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")

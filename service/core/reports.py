@@ -32,7 +32,7 @@ def forward_figures(auc, rules, quantiles):
     """Each rule's forward figures: the expected revenue by the rule's own route; the sd,
     the surpluses and the efficiency each integrated as one quantity, never as a
     difference of two large figures; a figure that does not exist is None, with a warning."""
-    if auc.n == 1 and auc.p_sale > 0.0 and not math.isfinite(auc.lone_price):
+    if auc.bidders.lone and auc.p_sale > 0.0 and not math.isfinite(auc.lone_price):
         raise ParameterError("reserve", "with one bidder and no reserve the price is the bottom of an unbounded value model; give a reserve")
     warnings = []
     sp_surplus, eff = gains.top_gains(auc, warnings)

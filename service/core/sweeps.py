@@ -22,6 +22,7 @@ from . import audit, budget, gains, price, reports
 from . import rules as R
 from . import orderstats as os_
 from .auction import FAR_RESERVE, ForwardAuction, forward_case
+from .bidders import Bidders
 from .price import check_price_exists, price_moment_exists
 from .errors import ParameterError
 from .topvalues import finite
@@ -58,10 +59,10 @@ def _block(model, n, reserves, v0):
     floor = np.maximum(reserves, model.lower)
     binds = reserves > model.lower
     s_r = np.where(binds, model.neg_log_cdf(floor), np.inf)
-    with np.errstate(over="ignore", invalid="ignore"):
-        p_sale = np.where(np.isfinite(s_r), -np.expm1(-n * s_r), 1.0)
-    out = {"p_sale": p_sale}
-    if n == 1:
+    count = Bidders.exactly(n)
+    p_sale = count.p_sale(s_r)
+    out = {"p_sale": p_sale, "lone": count.lone}
+    if count.lone:
         q = os_.filled_rank_quadrature(model, 1, 1, fine=True)
         v, dens, s = _flat(q)
         W = q.cut_weights(_t_of(s_r, 1.0))
@@ -77,15 +78,15 @@ def _block(model, n, reserves, v0):
             gains = (gains[0] + (floor - reserves) * p_sale, *gains[1:])
         out["gains"] = gains
         return out
-    out["second"], loose = _second_price_block(model, n, floor, binds, s_r, p_sale)
-    auc = ForwardAuction(model, n, None, v0)
+    out["second"], loose = _second_price_block(model, count, floor, binds, s_r, p_sale)
+    auc = ForwardAuction(model, count, None, v0)
     q1 = auc.bids.inner_quadrature()
-    W1 = q1.cut_weights(_t_of(s_r, n - 1.0))
+    W1 = q1.cut_weights(_t_of(s_r, count.rivals))
     bids, loose_bid = _bid_block(auc, W1, floor, binds, s_r, p_sale)
     out.update(bids)
-    out["gains"] = _gains(model, q1, auc.bids.nodes().first_rule(auc.bids.nodes().top), W1, s_r, n - 1.0, v0)
+    out["gains"] = _gains(model, q1, auc.bids.nodes().first_rule(auc.bids.nodes().top), W1, s_r, count.rivals, v0)
     far = binds & (s_r < FAR_RESERVE)
-    for j in np.nonzero((loose | loose_bid | far | _beyond_nodes(q1, binds, s_r, n - 1.0)) & (p_sale > 0.0))[0]:
+    for j in np.nonzero((loose | loose_bid | far | _beyond_nodes(q1, binds, s_r, count.rivals)) & (p_sale > 0.0))[0]:
         budget.check()
         _single_scenario(model, n, float(reserves[j]), v0, out, j)
     return out
@@ -157,11 +158,11 @@ def _conditional_sd(p_sale, mass, centre, first, second, unit):
         return np.sqrt(p_sale) * np.hypot(unit * sd_sale, np.sqrt(np.maximum(1.0 - p_sale, 0.0)) * (centre + unit * shift))
 
 
-def _second_price_block(model, n, floor, binds, s_r, p_sale):
+def _second_price_block(model, count, floor, binds, s_r, p_sale):
     """((revenue, sd, the winner's payment), cells that lost their digits) under second
     price: the price is max(X2, r) on a sale. Second moments are taken about the
     second-highest value's mean, from the values' offsets (``RankQuadrature.offsets``)."""
-    k = n - 1.0
+    n, k = count.n, count.rivals
     q2 = os_.filled_rank_quadrature(model, n, 2, fine=True)
     v2, d2, _ = _flat(q2)
     ref, o = q2.offsets()
@@ -186,7 +187,7 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
     all-pay, each (revenue, sd, the winner's payment), on the nodes of the highest rival value. With g = G(r)/G(v) = e^(-(n-1)(s_r - s)), b_r = b_0 + g delta,
     delta = r - b_0(r); the terms in g are integrated in closed form or with g's growth folded
     into a smooth integrand, never by interpolating g itself across a cut panel."""
-    n, k = auc.n, auc.n - 1.0
+    n, k = auc.n, auc.bidders.rivals
     nb = auc.bids.nodes()
     q1 = auc.bids.inner_quadrature()
     b0 = nb.first_rule(nb.bids)
@@ -261,7 +262,7 @@ def _gains(model, q, dens, W_r, s_r, k, v0):
 def _bids_at_reserves(auc, q, floor, s_r, binds):
     """b_0 at each binding reserve: inside the node range by the panel recurrence
     and a spectral partial panel, elsewhere by the standalone route."""
-    k = auc.n - 1.0
+    k = auc.bidders.rivals
     out = floor.copy()
     tail = auc.bids.tail()
     se, d = tail.nodes.se, tail.d[0]
@@ -283,7 +284,7 @@ def _bids_at_reserves(auc, q, floor, s_r, binds):
     return np.minimum(out, floor)  # a bid never exceeds the value
 
 
-def _cells(blk, j, n, rule, has_var, v0, sign):
+def _cells(blk, j, rule, has_var, v0, sign):
     """One row's figures from its bidder count's block: reserve j, ``rule``. The surpluses
     and the efficiency come from the gains integrated directly (``_gains``); a figure that
     does not exist is None."""
@@ -300,7 +301,7 @@ def _cells(blk, j, n, rule, has_var, v0, sign):
         surplus, best, lost = gains
         # without a precise S / f, E[X1; sale] less the revenue
         bidders = surplus[j] if surplus is not None else blk["e1"][j] - rev
-        winner = bidders if R.get(rule).pricing is not R.ALL_PAY or n == 1 else blk["e1"][j] - winner_pays
+        winner = bidders if R.get(rule).pricing is not R.ALL_PAY or blk["lone"] else blk["e1"][j] - winner_pays
         efficiency = None if best is None or not best > 0 else 1.0 - lost[j] / best
     return {
         "expected_revenue": sign * rev,
@@ -339,7 +340,7 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
         for j, r in enumerate(res.tolist()):
             floor_finite = int(math.isfinite(max(fres[j], fmodel.lower)))
             for rule in rules:
-                cells = _cells(blk, j, n, rule, has_var[rule, floor_finite], v0, sign)
+                cells = _cells(blk, j, rule, has_var[rule, floor_finite], v0, sign)
                 rows.append([n, r, rule, *[finite(cells[m]) for m in metrics]])
         _note_nulls(blk, has_var, rules, n, warnings)
     table = {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows, "warnings": warnings}

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from .bidders import Bidders
 from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
@@ -34,9 +35,12 @@ def _numerics(summaries, gap_error=0.0):
 
 
 def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
-    """Mean, sd, quantiles (and optionally the pdf/cdf curve) of each rank."""
+    """Mean, sd, quantiles (and optionally the pdf/cdf curve) of each rank; ``bidders`` a count
+    or :class:`bidders.Bidders`."""
+    count = Bidders.of(bidders)
+    bidders = count.n
     if ranks is None:
-        ranks = [1] if bidders == 1 else [1, 2]
+        ranks = [1] if count.lone else [1, 2]
     for i, r in enumerate(ranks):
         if r > bidders:
             raise ParameterError(f"ranks.{i}", f"rank {r} exceeds the number of bidders ({bidders})")
@@ -116,6 +120,7 @@ def _overflow_note(dens, warnings):
 
 def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     """Joint density of two ranks on a grid (with its mass) or at given points."""
+    bidders = Bidders.of(bidders).n
     i, j = ranks
     if not i < j:
         raise ParameterError("ranks.1", "the second rank must be lower (a larger number) than the first")
