@@ -255,6 +255,12 @@ class BidstatsClient:
         """POST /v1/reserve-price: the revenue-maximising reserve (or maximum price)."""
         return self._post("/v1/reserve-price", body)
 
+    def fit(self, **body):
+        """POST /v1/fits: a value (cost) model recovered from past auctions; ``bidder_values``
+        (``bidder_costs``) in the answer pastes into every other call unchanged.
+        ``fit(rule="ascending", auctions=[{"bidders": 5, "price": 61200}, ...])``."""
+        return self._post("/v1/fits", body)
+
     def quote(self, **params):
         """GET /v1/quote: one figure as a float.
 

@@ -41,6 +41,7 @@ class Caps:
     batch_items: int = 1000
     sweep_rows: int = 200_000
     sweep_axis: int = 2000
+    fit_auctions: int = 20_000
     seconds: float = 10.0
     response_bytes: int = 32_000_000
     heavy_slots: int = 1
@@ -68,6 +69,7 @@ ENV_NAMES = {
     "curve_points": "BIDSTATS_MAX_CURVE_POINTS", "grid_points": "BIDSTATS_MAX_GRID_POINTS", "points": "BIDSTATS_MAX_POINTS",
     "sample": "BIDSTATS_MAX_SAMPLE", "components": "BIDSTATS_MAX_COMPONENTS", "body_bytes": "BIDSTATS_MAX_BODY_BYTES",
     "batch_items": "BIDSTATS_MAX_BATCH_ITEMS", "sweep_rows": "BIDSTATS_MAX_SWEEP_ROWS", "sweep_axis": "BIDSTATS_MAX_SWEEP_AXIS",
+    "fit_auctions": "BIDSTATS_MAX_FIT_AUCTIONS",
     "seconds": "BIDSTATS_MAX_SECONDS", "response_bytes": "BIDSTATS_MAX_RESPONSE_BYTES", "heavy_slots": "BIDSTATS_HEAVY_SLOTS",
     "heavy_after": "BIDSTATS_HEAVY_AFTER",
 }

@@ -17,6 +17,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 import requests
 from requests.adapters import HTTPAdapter
@@ -459,3 +460,16 @@ def test_the_fixtures_say_they_are_invented():
     assert "invented" in text.lower()
     for scenario in SCENARIOS:
         assert scenario in text
+
+
+def test_fit_recovers_uniform_values_from_prices(bs):
+    # Prices at the quantiles of the second-highest of 3 uniform [0, 1] values, whose cdf is
+    # I_u(2, 2) (David and Nagaraja 2003, section 2.1): the uniform candidate's bounds come back
+    # near 0 and 1 (abs 0.05 at 200 auctions).
+    from scipy import special
+
+    prices = special.betaincinv(2.0, 2.0, (np.arange(200) + 0.5) / 200.0)
+    out = bs.fit(rule="second_price", auctions=[{"bidders": 3, "price": float(p)} for p in prices],
+                 families=["uniform"], confidence={"replications": 0})
+    model = out["candidates"][0]["model"]
+    assert model["low"] == pytest.approx(0.0, abs=0.05) and model["high"] == pytest.approx(1.0, abs=0.05)

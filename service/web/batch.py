@@ -9,7 +9,7 @@ from marshmallow import Schema, ValidationError, fields, validate
 
 from ..core import budget
 from ..core.budget import BudgetSpent
-from . import auctions, sweeps, top_values
+from . import auctions, fits, sweeps, top_values
 from .admission import Busy
 from .fields import CappedList
 from .io import json_body, json_response, load
@@ -17,7 +17,7 @@ from .problems import problem_body, spent_error, validation_body
 
 bp = Blueprint("batch", __name__)
 log = logging.getLogger("bidstats")
-HANDLERS = {**top_values.HANDLERS, **auctions.HANDLERS, **sweeps.HANDLERS}
+HANDLERS = {**top_values.HANDLERS, **auctions.HANDLERS, **sweeps.HANDLERS, **fits.HANDLERS}
 
 
 def _id(value):

@@ -20,6 +20,7 @@ _REVERSE_NAMES = {
     "expected_revenue_without_reserve": "expected_payment_without_reserve",
     "probability_of_sale_at_optimum": "probability_of_award_at_optimum",
     "values": "costs",
+    "bidder_values": "bidder_costs",
 }
 NAMES = {"forward": {}, "reverse": _REVERSE_NAMES}
 #: The caller's names back to the core's, per direction (a sweep's metrics).
@@ -34,6 +35,15 @@ _COMMON_ASSUMPTIONS = [
 ASSUMPTIONS = {
     "forward": ["independent private values drawn from the stated value model", *_COMMON_ASSUMPTIONS],
     "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
+}
+
+#: What a model recovered from past auctions assumes of them, in the caller's direction.
+FIT_ASSUMPTIONS = {
+    d: [f"independent private {w}s, drawn in every auction from one {w} model (items alike, or scaled to one)",
+        "symmetric, risk-neutral bidders; first-price bids from the symmetric equilibrium",
+        f"the number of bidders unrelated to their {w}s; a price is the second-{'highest' if d == 'forward' else 'lowest'} "
+        f"{w} (or the {'reserve' if d == 'forward' else 'maximum price'})"]
+    for d, w in (("forward", "value"), ("reverse", "cost"))
 }
 
 #: The words of each ``Note`` code, per direction.
@@ -142,3 +152,9 @@ def sweep(table):
     """/v1/sweeps' table: its metric columns under the caller's names."""
     d = table["direction"]
     return {**table, "columns": [name(c, d) for c in table["columns"]], "warnings": _warnings(table["warnings"], d)}
+
+
+def fits(report):
+    """/v1/fits' answer: the recovered models named for the direction, with the assumptions."""
+    d = report["direction"]
+    return _with(report, d, "warnings", {"assumptions": FIT_ASSUMPTIONS[d]})

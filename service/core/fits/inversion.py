@@ -1,0 +1,138 @@
+"""Nonparametric inversions of prices and bids into values (forward twin).
+
+* Prices of second-price and ascending auctions: the price is the second-highest value,
+  whose distribution for n bidders is H_n(p) = I_F(p)(n - 1, 2), a regularised incomplete
+  beta in F; so F(p) = I^-1(H_n(p); n - 1, 2) point by point, pooled across bidder counts by
+  their numbers of records (Athey and Haile, Identification of standard auction models,
+  Econometrica 70(6), 2002, section 3).
+* Every bid of first-price auctions: the equilibrium's first-order condition gives each
+  bid's value, xi = b + G(b) / ((n - 1) g(b)), from the bids' distribution G and density g
+  (Guerre, Perrigne and Vuong, Optimal nonparametric estimation of first-price auctions,
+  Econometrica 68(3), 2000, section 3), with G the empirical cdf and g a Gaussian kernel
+  density, bandwidth by Silverman's rule (Silverman, Density Estimation, 1986, eq. 3.31),
+  made consistent at the ends of the bids' range by reflection (Schuster, Incorporating
+  support constraints into nonparametric estimators of densities, Communications in
+  Statistics 14(5), 1985), so no bid is set aside.
+* Winning bids alone: the highest bid's cdf is G_win = G^n, so G / ((n - 1) g) =
+  n G_win / ((n - 1) g_win), the same inversion on the winners' distribution; it gives the
+  winners' values, the highest of n, whose cdf F^n is then taken to the power 1/n.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special as sp
+
+from ..models import silverman_bandwidth
+
+#: The most points a recovered model keeps (order statistics at evenly spaced ranks), so
+#: that it is a model every other endpoint takes at once.
+MAX_POINTS = 400
+_SQRT_2PI = math.sqrt(2.0 * math.pi)
+
+
+@dataclass(frozen=True)
+class Inversion:
+    values: np.ndarray  # recovered values (pseudo-values), or the table's values
+    probabilities: np.ndarray | None  # F at ``values`` for a table; None for a sample
+    bandwidth: float | None
+    not_increasing: int  # pseudo-values that fall where their bids rise (a warning)
+    method: str
+
+
+def prices_to_cdf(rec):
+    """(prices, F at them): F recovered at each distinct price paid above the reserve,
+    pooled over the bidder counts (Athey and Haile 2002)."""
+    xs = np.unique(rec.price[rec.above])
+    total = np.zeros(xs.shape)
+    counts = np.unique(rec.n[rec.n >= 2])
+    weight = 0.0
+    for n in counts:
+        mine = rec.n == n
+        # P(price <= x) counts every record of this n whose second-highest value is at most x:
+        # unsold and at-reserve records (their second-highest lies below the reserve) below any
+        # price above the reserve. Only reserves below every price keep that exact.
+        seen = np.sort(np.where(rec.above[mine], rec.price[mine], -math.inf))
+        h = np.searchsorted(seen, xs, side="right") / len(seen)
+        total += mine.sum() * sp.betaincinv(n - 1.0, 2.0, np.clip(h, 0.0, 1.0))
+        weight += mine.sum()
+    return xs, np.maximum.accumulate(total / weight)
+
+
+def table_points(xs, cdf):
+    """At most MAX_POINTS (F, value) points strictly increasing in both, inside (0, 1)."""
+    keep = (cdf > 0.0) & (cdf < 1.0)
+    xs, cdf = xs[keep], cdf[keep]
+    if len(xs) > MAX_POINTS:
+        pick = np.unique(np.linspace(0, len(xs) - 1, MAX_POINTS).round().astype(int))
+        xs, cdf = xs[pick], cdf[pick]
+    rising = np.concatenate(([True], np.diff(cdf) > 0))
+    return xs[rising], cdf[rising]
+
+
+#: The reflected kernel density is summed on this many grid points across the bids' range and
+#: interpolated between them (a grid step of a few thousandths of the range, far inside a bandwidth).
+_GRID = 1024
+
+
+def _reflected_kde(x, at, h):
+    """Gaussian kernel density of ``x`` at ``at``, reflected about both ends of x's range."""
+    lo, hi = float(np.min(x)), float(np.max(x))
+    grid = np.linspace(lo, hi, _GRID)
+    dens = np.zeros(grid.shape)
+    for mirror in (x, 2.0 * lo - x, 2.0 * hi - x):
+        for start in range(0, len(mirror), 2048):
+            z = (grid[:, None] - mirror[None, start:start + 2048]) / h
+            dens += np.exp(-0.5 * z * z).sum(axis=1)
+    return np.interp(at, grid, dens / (len(x) * h * _SQRT_2PI))
+
+
+def pseudo_value(b, G, g, n, winners_only=False):
+    """The value behind bid b from the equilibrium's first-order condition, b + G / ((n - 1) g)
+    with G, g the bids' cdf and density at b (GPV 2000, eq. 4); from the highest bid's cdf and
+    density, G_win = G^n, the same value is b + n G_win / ((n - 1) g_win)."""
+    return b + (n if winners_only else 1.0) * G / ((n - 1.0) * g)
+
+
+def _pseudo_values(b, n, winners_only):
+    """Pseudo-values at each bid, G the empirical cdf, g the reflected kernel density."""
+    h = silverman_bandwidth(b) if np.ptp(b) > 0 else 0.0
+    if not h > 0:
+        return b.copy(), 0.0
+    G = np.searchsorted(np.sort(b), b, side="right") / len(b)
+    return pseudo_value(b, G, _reflected_kde(b, b, h), n, winners_only), h
+
+
+def winners_to_cdf(rec):
+    """(values, F at them) from winning bids: each auction's pseudo-value is its winner's value,
+    the highest of n, whose cdf is F^n; so F = (the winners' empirical cdf)^(1/n), pooled over
+    the bidder counts by their numbers of auctions."""
+    per_count, width, falls = [], [], 0
+    for n in np.unique(rec.n):
+        bids = np.concatenate([b for b, k in zip(rec.bids, rec.n) if k == n])
+        xi, h = _pseudo_values(bids, n, True)
+        falls += int(np.sum(np.diff(xi[np.argsort(bids, kind="stable")]) < 0))
+        per_count.append((n, np.sort(xi)))
+        width.append(h)
+    xs = np.unique(np.concatenate([x for _, x in per_count]))
+    total = sum(len(x) * (np.searchsorted(x, xs, side="right") / len(x)) ** (1.0 / n) for n, x in per_count)
+    cdf = np.maximum.accumulate(total / sum(len(x) for _, x in per_count))
+    return xs, cdf, float(np.mean(width)), falls
+
+
+def bids_to_values(rec):
+    """Pseudo-values from every bid (GPV 2000), per bidder count."""
+    out, widths, falls = [], [], 0
+    for n in np.unique(rec.n):
+        bids = np.concatenate([b for b, k in zip(rec.bids, rec.n) if k == n])
+        xi, h = _pseudo_values(bids, n, False)
+        order = np.argsort(bids, kind="stable")
+        falls += int(np.sum(np.diff(xi[order]) < 0))
+        out.append(xi)
+        widths.append(h)
+    values = np.sort(np.concatenate(out))
+    if len(values) > MAX_POINTS:
+        values = values[np.unique(np.linspace(0, len(values) - 1, MAX_POINTS).round().astype(int))]
+    return Inversion(values, None, float(np.mean(widths)), falls, "guerre_perrigne_vuong")
