@@ -14,6 +14,7 @@ import scipy.stats as st
 from service import create_app
 from service.core import models as M
 from service.core import orderstats as O
+from service.core.errors import ParameterError
 from service.web.fields import build_value_model
 
 SPECS = {
@@ -65,7 +66,7 @@ class Logistic(M.ValueModel):
     """A toy family for the test: the logistic distribution, F = 1 / (1 + e^(-(x - m)/s))."""
 
     family = "logistic_toy"
-    parameters = {"location": M.Param(), "scale": M.Param(bound="positive")}
+    parameters = {"location": M.Param(role="location"), "scale": M.Param(bound="positive", role="scale")}
 
     def __init__(self, location, scale):
         self.m, self.s = float(location), float(scale)
@@ -109,3 +110,35 @@ def test_a_registered_family_is_accepted_everywhere(toy_family):
     bad = client.post("/v1/revenue", json={"bidder_values": {**body, "scale": -1}, "bidders": n})
     assert bad.status_code == 422 and bad.get_json()["errors"][0]["field"] == "bidder_values.scale"
     assert build_value_model(body).to_params() == {"family": "logistic_toy", "location": 50.0, "scale": 4.0}
+
+
+@pytest.mark.parametrize("build,field", [
+    (lambda: M.Uniform(2.0, 1.0), "high"),
+    (lambda: M.BetaValues(2.0, 3.0, low=5.0, high=5.0), "high"),
+    (lambda: M.Power(2.0, high=-1.0), "high"),
+    (lambda: M.Triangular(0.0, 0.0, 0.0), "high"),
+    (lambda: M.Triangular(0.0, 2.0, 1.0), "mode"),
+    (lambda: M.LogNormal(median=1.0, sigma=0.5, mean=2.0), "median"),
+    (lambda: M.LogNormal(median=1.0), "sigma"),
+    (lambda: M.LogNormal(sd=1.0), "mean"),
+    (lambda: M.LogNormal(), "median"),
+    (lambda: M.Gamma(0.001, 1.0), "shape"),
+])
+def test_declared_ties_forms_and_ranges_are_checked_for_every_family(build, field):
+    # Each family declares its parameters' reliable ranges, the ties between them (a support's ends,
+    # a mode between them) and its alternative forms once; the base class checks them all.
+    with pytest.raises(ParameterError) as err:
+        build()
+    assert err.value.field == field
+
+
+def test_every_family_declares_what_the_strategies_need():
+    # The property tests draw every parametric family from its declarations: each parameter of
+    # the first form has a role or is set by a tie, and every shape has a typical range.
+    for family, cls in M.PARAMETRIC.items():
+        names = cls.forms[0] if cls.forms else tuple(cls.parameters)
+        tied = {t.high for t in cls.ties if isinstance(t, M.Ordered)} | {t.name for t in cls.ties if isinstance(t, M.Between)}
+        for k in names:
+            p = cls.parameters[k]
+            assert p.role is not None or k in tied, (family, k)
+            assert p.role != "shape" or p.typical is not None, (family, k)

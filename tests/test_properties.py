@@ -11,12 +11,15 @@ Samuelson (1981)" is J. Riley and W. Samuelson, Optimal Auctions, American
 Economic Review 71(3), 1981. Where a law is derived here from a definition, the
 derivation is written beside the test.
 
-Strategies draw a value model from every family the core has (uniform, normal,
-lognormal with sigma in [0.1, 1.5], exponential with a shift, gamma with shape
-in [0.5, 50], Weibull with shape in [0.5, 5], beta on [low, high], triangular,
-Pareto with shape in [2.5, 6], power, a 2-3 component mixture, a quantile
-table, a truncated normal, and the kernel-smoothed empirical model of a drawn
-sample of 3-20 values), a bidder count from 1 to 10^6 (log-uniform) and a
+Strategies draw a value model from every family the core has: the parametric
+families' specs are generated from their declarations in service/core/models.py
+(each Param's role: a location in [-100, 100], a scale log-uniform in [0.05, 200],
+a shape over its declared typical range, such as lognormal sigma in [0.1, 1.5],
+gamma shape in [0.5, 50], Weibull shape in [0.5, 5], Pareto shape in [2.5, 6];
+the first of a family's forms; its ties honoured by construction, an upper end a
+width log-uniform in [0.05, 500] above the lower end); the derived models are
+drawn by hand (a 2-3 component mixture, a quantile table, a truncated normal,
+and the kernel-smoothed empirical model of a drawn sample of 3-20 values); a bidder count from 1 to 10^6 (log-uniform) and a
 reserve at a drawn quantile inside the support. The location-scale families are
 also moved out to 10^9 times their spread (location shifts by 10^k, scale shrinks
 by 10^-k), and Pareto shapes are drawn on both sides of each figure's existence
@@ -100,26 +103,8 @@ class Spec:
 
     def build(self):
         f, p = self.family, dict(self.params)
-        if f == "uniform":
-            return M.Uniform(p["low"], p["high"])
-        if f == "normal":
-            return M.Normal(p["mean"], p["sd"])
-        if f == "lognormal":
-            return M.LogNormal(median=p["median"], sigma=p["sigma"])
-        if f == "exponential":
-            return M.Exponential(p["mean"], p["shift"])
-        if f == "gamma":
-            return M.Gamma(p["shape"], p["scale"])
-        if f == "weibull":
-            return M.Weibull(p["shape"], p["scale"])
-        if f == "beta":
-            return M.BetaValues(p["alpha"], p["beta"], p["low"], p["high"])
-        if f == "triangular":
-            return M.Triangular(p["low"], p["mode"], p["high"])
-        if f == "pareto":
-            return M.Pareto(p["shape"], p["minimum"])
-        if f == "power":
-            return M.Power(p["exponent"], p["high"], p["low"])
+        if f in M.PARAMETRIC:
+            return M.PARAMETRIC[f](**p)
         if f == "quantile_table":
             return M.QuantileTable(p["points"])
         if f == "truncated_normal":
@@ -205,61 +190,36 @@ WIDTH = log_uniform(0.05, 500.0)
 SCALE = log_uniform(0.05, 200.0)
 
 
-@st.composite
-def uniform_specs(draw):
-    low = draw(LOC)
-    return Spec("uniform", (("low", low), ("high", low + draw(WIDTH))))
+#: The families whose specs the declarations generate (a family registered by another test is not drawn).
+PARAMETRIC = ("uniform", "normal", "lognormal", "exponential", "gamma", "weibull", "beta", "triangular", "pareto", "power")
+
+
+def _draw_param(draw, p):
+    """A value for a declared parameter by its role: a location, a scale, or a shape over its typical range."""
+    if p.role == "location":
+        return draw(LOC)
+    if p.role == "scale":
+        return draw(SCALE)
+    lo, hi, how = p.typical
+    return draw(log_uniform(lo, hi) if how == "log" else st.floats(lo, hi))
 
 
 @st.composite
-def normal_specs(draw):
-    return Spec("normal", (("mean", draw(LOC)), ("sd", draw(SCALE))))
-
-
-@st.composite
-def lognormal_specs(draw):
-    return Spec("lognormal", (("median", draw(SCALE)), ("sigma", draw(st.floats(0.1, 1.5)))))
-
-
-@st.composite
-def exponential_specs(draw):
-    return Spec("exponential", (("mean", draw(SCALE)), ("shift", draw(LOC))))
-
-
-@st.composite
-def gamma_specs(draw):
-    return Spec("gamma", (("shape", draw(log_uniform(0.5, 50.0))), ("scale", draw(SCALE))))
-
-
-@st.composite
-def weibull_specs(draw):
-    return Spec("weibull", (("shape", draw(st.floats(0.5, 5.0))), ("scale", draw(SCALE))))
-
-
-@st.composite
-def beta_specs(draw):
-    low = draw(LOC)
-    return Spec("beta", (("alpha", draw(log_uniform(0.5, 20.0))), ("beta", draw(log_uniform(0.5, 20.0))),
-                         ("low", low), ("high", low + draw(WIDTH))))
-
-
-@st.composite
-def triangular_specs(draw):
-    low = draw(LOC)
-    high = low + draw(WIDTH)
-    mode = low + draw(st.floats(0.0, 1.0)) * (high - low)
-    return Spec("triangular", (("low", low), ("mode", min(max(mode, low), high)), ("high", high)))
-
-
-@st.composite
-def pareto_specs(draw):
-    return Spec("pareto", (("shape", draw(st.floats(2.5, 6.0))), ("minimum", draw(SCALE))))
-
-
-@st.composite
-def power_specs(draw):
-    low = draw(LOC)
-    return Spec("power", (("exponent", draw(log_uniform(0.3, 8.0))), ("high", low + draw(WIDTH)), ("low", low)))
+def parametric_specs(draw, family):
+    """A spec of a registered family drawn from its declarations (models.Param roles and typical
+    ranges, the first of its ``forms``, its ``ties`` honoured by construction: an ``Ordered`` upper
+    end a drawn width above the lower, a ``Between`` drawn between)."""
+    cls = M.PARAMETRIC[family]
+    names = list(cls.forms[0]) if cls.forms else list(cls.parameters)
+    values = {k: _draw_param(draw, cls.parameters[k]) for k in names if cls.parameters[k].role is not None}
+    for tie in cls.ties:
+        if isinstance(tie, M.Ordered):
+            values[tie.high] = values[tie.low] + draw(WIDTH)
+    for tie in cls.ties:
+        if isinstance(tie, M.Between):
+            lo, hi = values[tie.low], values[tie.high]
+            values[tie.name] = min(max(lo + draw(st.floats(0.0, 1.0)) * (hi - lo), lo), hi)
+    return Spec(family, tuple((k, values[k]) for k in names))
 
 
 @st.composite
@@ -290,7 +250,7 @@ def kernel_specs(draw):
     return Spec("kernel", (("sample", tuple(sample)),))
 
 
-COMPONENT = st.one_of(normal_specs(), uniform_specs(), gamma_specs(), lognormal_specs(), triangular_specs())
+COMPONENT = st.one_of(parametric_specs("normal"), parametric_specs("uniform"), parametric_specs("gamma"), parametric_specs("lognormal"), parametric_specs("triangular"))
 
 
 @st.composite
@@ -302,21 +262,20 @@ def mixture_specs(draw, component=COMPONENT):
 
 
 ALL_SPECS = st.one_of(
-    uniform_specs(), normal_specs(), lognormal_specs(), exponential_specs(), gamma_specs(), weibull_specs(),
-    beta_specs(), triangular_specs(), pareto_specs(), power_specs(), quantile_table_specs(),
+    *(parametric_specs(f) for f in PARAMETRIC), quantile_table_specs(),
     truncated_normal_specs(), mixture_specs(), kernel_specs(),
 )
 # Families closed under x -> a + b x (the scale families under x -> b x).
 AFFINE_SPECS = st.one_of(
-    uniform_specs(), normal_specs(), exponential_specs(), beta_specs(), triangular_specs(), power_specs(),
+    *(parametric_specs(f) for f in ("uniform", "normal", "exponential", "beta", "triangular", "power")),
     quantile_table_specs(), truncated_normal_specs(), kernel_specs(),
-    mixture_specs(st.one_of(normal_specs(), uniform_specs(), triangular_specs())),
-    gamma_specs(), weibull_specs(), lognormal_specs(), pareto_specs(),
+    mixture_specs(st.one_of(parametric_specs("normal"), parametric_specs("uniform"), parametric_specs("triangular"))),
+    *(parametric_specs(f) for f in ("gamma", "weibull", "lognormal", "pareto")),
 )
 # Families whose mirror image -X is in the same family.
 MIRROR_SPECS = st.one_of(
-    normal_specs(), uniform_specs(), triangular_specs(), beta_specs(), quantile_table_specs(),
-    truncated_normal_specs(), kernel_specs(), mixture_specs(st.one_of(normal_specs(), uniform_specs(), triangular_specs())),
+    parametric_specs("normal"), parametric_specs("uniform"), parametric_specs("triangular"), parametric_specs("beta"), quantile_table_specs(),
+    truncated_normal_specs(), kernel_specs(), mixture_specs(st.one_of(parametric_specs("normal"), parametric_specs("uniform"), parametric_specs("triangular"))),
 )
 BIDDERS = st.floats(0.0, 6.0).map(lambda e: int(round(10.0**e)))  # 1 .. 10^6, log-uniform
 RESERVE_U = st.floats(0.01, 0.99)  # the reserve's cumulative probability
@@ -819,8 +778,8 @@ def test_mirror_bids(spec, n, u, rule):
 LOCATION_KEYS = {"uniform": ("low", "high"), "normal": ("mean",), "exponential": ("shift",), "beta": ("low", "high"),
                  "triangular": ("low", "mode", "high"), "power": ("low", "high"), "truncated_normal": ("mean", "low", "high")}
 SCALE_KEYS = {"normal": ("sd",), "exponential": ("mean",), "truncated_normal": ("sd",)}
-LOCATION_SCALE_SPECS = st.one_of(uniform_specs(), normal_specs(), exponential_specs(), beta_specs(), triangular_specs(),
-                                 power_specs(), truncated_normal_specs())
+LOCATION_SCALE_SPECS = st.one_of(parametric_specs("uniform"), parametric_specs("normal"), parametric_specs("exponential"), parametric_specs("beta"), parametric_specs("triangular"),
+                                 parametric_specs("power"), truncated_normal_specs())
 
 
 def moved(spec, loc, s):

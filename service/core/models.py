@@ -40,6 +40,12 @@ class Param:
     default: float | None = None
     bound: str | None = None
     reliable: tuple = (None, None)
+    #: What the parameter does, for anything that draws example values (the property tests):
+    #: "location" (moves the values), "scale" (stretches them, positive), "shape", or None
+    #: for a parameter set by a tie (a support's upper end, a mode).
+    role: str | None = None
+    #: For a shape, the range its ordinary values span, and whether to draw it on a log scale.
+    typical: tuple | None = None
 
 
 #: The smallest scale (an sd, a scale, a width) taken: below it values are subnormal
@@ -48,14 +54,48 @@ MIN_SCALE = 1e-300
 #: The largest value the quadratures meet: they reach quantiles 1e-300 from either end,
 #: so the value there must be finite for any mean or quantile to be trusted.
 MAX_VALUE = 1e308
-_SCALE = Param(bound="positive", reliable=(MIN_SCALE, None))
+_SCALE = Param(bound="positive", reliable=(MIN_SCALE, None), role="scale")
+_LOCATION = Param(role="location")
 
 
-def _check_width(low, high):
-    if not high > low:
-        raise ParameterError("high", "must be greater than low")
-    if not high - low >= MIN_SCALE:
-        raise ParameterError("high", f"must exceed low by at least {MIN_SCALE:g}: narrower ranges are not reliable")
+@dataclass(frozen=True)
+class Ordered:
+    """A tie between parameters: ``high`` exceeds ``low`` by at least MIN_SCALE (a support's ends)."""
+
+    low: str = "low"
+    high: str = "high"
+
+    def check(self, v):
+        if not v[self.high] > v[self.low]:
+            raise ParameterError(self.high, f"must be greater than {self.low}")
+        if not v[self.high] - v[self.low] >= MIN_SCALE:
+            raise ParameterError(self.high, f"must exceed {self.low} by at least {MIN_SCALE:g}: narrower ranges are not reliable")
+
+
+@dataclass(frozen=True)
+class Between:
+    """A tie between parameters: ``name`` lies in [``low``, ``high``] (a mode)."""
+
+    name: str
+    low: str = "low"
+    high: str = "high"
+
+    def check(self, v):
+        if not v[self.low] <= v[self.name] <= v[self.high]:
+            raise ParameterError(self.name, f"must lie between {self.low} and {self.high}")
+
+
+def _check_forms(forms, v):
+    """Exactly one of a family's alternative parameterisations, given whole."""
+    touched = [f for f in forms if any(v.get(k) is not None for k in f)]
+    if len(touched) > 1:
+        raise ParameterError(forms[0][0], f"give {', or '.join(' and '.join(f) for f in forms)}, not both")
+    if not touched:
+        raise ParameterError(forms[0][0], f"give {', or '.join(' and '.join(f) for f in forms)}")
+    form = touched[0]
+    for k in form:
+        if v.get(k) is None:
+            raise ParameterError(k, "required with " + " and ".join(x for x in form if x != k))
 
 
 _init_signature = functools.lru_cache(maxsize=None)(inspect.signature)
@@ -71,6 +111,11 @@ class ValueModel:
     family = "abstract"
     #: The family's parameters, each a Param (a parametric family declares its own).
     parameters: dict = {}
+    #: The rules that tie its parameters (``Ordered``, ``Between``), checked once for every family.
+    ties: tuple = ()
+    #: Alternative parameterisations, each a tuple of names, of which exactly one is given whole
+    #: (a lognormal by median and sigma, or by mean and sd); () when the parameters are one set.
+    forms: tuple = ()
     lower = -INF
     upper = INF
 
@@ -84,7 +129,25 @@ class ValueModel:
             return self
         bound.apply_defaults()
         self._given = {k: v for k, v in bound.arguments.items() if k != "self"}
+        cls.check_declared(self._given)
         return self
+
+    @classmethod
+    def check_declared(cls, given):
+        """Refuse, naming the parameter, what the declarations rule out: a value outside its
+        reliable range, an incomplete or doubled parameterisation, a broken tie."""
+        for name, p in cls.parameters.items():
+            x = given.get(name)
+            lo, hi = p.reliable
+            if x is None or (lo is None or x >= lo) and (hi is None or x <= hi):
+                continue
+            span = f"at least {lo:g}" if hi is None else f"at most {hi:g}" if lo is None else f"between {lo:g} and {hi:g}"
+            raise ParameterError(name, f"must be {span}: outside that range the answers are not reliable "
+                                       "(the range was measured against 30-digit references)")
+        if cls.forms:
+            _check_forms(cls.forms, given)
+        for tie in cls.ties:
+            tie.check(given)
 
     def to_params(self):
         """The JSON object a user would send to build this model (a parametric family: its
@@ -97,6 +160,8 @@ class ValueModel:
     discrete = False
     #: Whether ppf/isf are closed forms (cheap enough to probe the tails with).
     cheap_quantiles = True
+    #: Whether ``closed_rank_moments`` goes through log-gamma ratios (their rounding grows with log n).
+    closed_form_logs = False
     #: For a family whose values are a fixed increasing map of one parameter-free
     #: quantile function: that function, (u, v) -> standard value. Then
     #: value_at(u, v) == from_standard(standard_quantile(u, v)), and a quadrature
@@ -109,16 +174,6 @@ class ValueModel:
     def closed_rank_moments(self, n, r):
         """(mean, variance) of rank r from the top of n in closed form; None where the family has none."""
         return None
-
-    def check_reliable(self, **values):
-        """Refuse, naming the parameter, any value outside its declared reliable range."""
-        for name, x in values.items():
-            lo, hi = self.parameters[name].reliable
-            if x is None or (lo is None or x >= lo) and (hi is None or x <= hi):
-                continue
-            span = f"at least {lo:g}" if hi is None else f"at most {hi:g}" if lo is None else f"between {lo:g} and {hi:g}"
-            raise ParameterError(name, f"must be {span}: outside that range the answers are not reliable "
-                                       "(the range was measured against 30-digit references)")
 
     # --- to be overridden -------------------------------------------------
     def cdf(self, x):
@@ -331,10 +386,10 @@ def density_dips(pdf, grid):
 
 class Uniform(ValueModel):
     family = "uniform"
-    parameters = {"low": Param(), "high": Param()}
+    parameters = {"low": _LOCATION, "high": Param()}
+    ties = (Ordered(),)
 
     def __init__(self, low, high):
-        _check_width(low, high)
         self.low, self.high = float(low), float(high)
         self.lower, self.upper = self.low, self.high
         self.width = self.high - self.low
@@ -411,10 +466,9 @@ class _StandardNormalScale(ValueModel):
 
 class Normal(_StandardNormalScale):
     family = "normal"
-    parameters = {"mean": Param(), "sd": _SCALE}
+    parameters = {"mean": _LOCATION, "sd": _SCALE}
 
     def __init__(self, mean, sd):
-        self.check_reliable(sd=sd)
         self.mu, self.sd = float(mean), float(sd)
 
     def _z(self, x):
@@ -441,36 +495,23 @@ class Normal(_StandardNormalScale):
 class LogNormal(_StandardNormalScale):
     family = "lognormal"
     parameters = {
-        "median": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
-        "sigma": Param(required=False, bound="positive", reliable=(None, 12.0)),
-        "mean": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
+        "median": Param(required=False, bound="positive", reliable=(MIN_SCALE, None), role="scale"),
+        "sigma": Param(required=False, bound="positive", reliable=(None, 12.0), role="shape", typical=(0.1, 1.5, "linear")),
+        "mean": Param(required=False, bound="positive", reliable=(MIN_SCALE, None), role="scale"),
         "sd": Param(required=False, bound="positive", reliable=(MIN_SCALE, None)),
     }
+    forms = (("median", "sigma"), ("mean", "sd"))
     lower = 0.0
 
     def __init__(self, median=None, sigma=None, mean=None, sd=None):
-        self.check_reliable(median=median, mean=mean, sd=sd)
-        by_median = median is not None or sigma is not None
-        by_mean = mean is not None or sd is not None
-        if by_median and by_mean:
-            raise ParameterError("median", "give median and sigma, or mean and sd, not both")
+        by_median = median is not None  # the declared forms are checked already: exactly one is whole
         if by_median:
-            if median is None:
-                raise ParameterError("median", "required with sigma")
-            if sigma is None:
-                raise ParameterError("sigma", "required with median")
             self.mu, self.sigma = math.log(median), float(sigma)
-        elif by_mean:
-            if mean is None:
-                raise ParameterError("mean", "required with sd")
-            if sd is None:
-                raise ParameterError("sd", "required with mean")
+        else:
             ratio = sd / mean
             # log(1 + ratio^2), written so that a huge ratio cannot overflow
             s2 = math.log1p(ratio * ratio) if ratio < 1e100 else 2.0 * math.log(ratio)
             self.mu, self.sigma = math.log(mean) - 0.5 * s2, math.sqrt(s2)
-        else:
-            raise ParameterError("median", "give median and sigma, or mean and sd")
         self._check_sigma("sigma" if by_median else "sd")
 
     def _check_sigma(self, field):
@@ -520,10 +561,9 @@ class LogNormal(_StandardNormalScale):
 
 class Exponential(ValueModel):
     family = "exponential"
-    parameters = {"mean": _SCALE, "shift": Param(required=False, default=0.0)}
+    parameters = {"mean": _SCALE, "shift": Param(required=False, default=0.0, role="location")}
 
     def __init__(self, mean, shift=0.0):
-        self.check_reliable(mean=mean)
         self.scale, self.shift = float(mean), float(shift)
         self.lower = self.shift
 
@@ -571,11 +611,10 @@ class Gamma(ValueModel):
     family = "gamma"
     # Below shape 0.01 a draw is 0 but with chance ~shape, and a reverse auction's payment (the
     # second-lowest of many such costs, 1e-77 at shape 1e-5 and 20 bidders) is lost to the sliver.
-    parameters = {"shape": Param(bound="positive", reliable=(0.01, None)), "scale": _SCALE}
+    parameters = {"shape": Param(bound="positive", reliable=(0.01, None), role="shape", typical=(0.5, 50.0, "log")), "scale": _SCALE}
     lower = 0.0
 
     def __init__(self, shape, scale):
-        self.check_reliable(shape=shape, scale=scale)
         self.k, self.theta = float(shape), float(scale)
         self._lognorm = sp.gammaln(self.k) + self.k * math.log(self.theta)
 
@@ -611,11 +650,10 @@ class Weibull(ValueModel):
     family = "weibull"
     # Below shape 0.03 the value 1e-300 from the top, scale 690^(1/shape), can pass 1e308, and a
     # reverse auction among a million bidders loses its first-price route.
-    parameters = {"shape": Param(bound="positive", reliable=(0.03, None)), "scale": _SCALE}
+    parameters = {"shape": Param(bound="positive", reliable=(0.03, None), role="shape", typical=(0.5, 5.0, "linear")), "scale": _SCALE}
     lower = 0.0
 
     def __init__(self, shape, scale):
-        self.check_reliable(shape=shape, scale=scale)
         self.k, self.lam = float(shape), float(scale)
 
     def _h(self, x):
@@ -664,15 +702,14 @@ class BetaValues(ValueModel):
     # Outside [0.01, 1e6] the incomplete beta's inverse slows by orders of magnitude and
     # the auction routes lose digits (1e-100 took 42 s and still came out wrong).
     parameters = {
-        "alpha": Param(bound="positive", reliable=(0.01, 1e6)),
-        "beta": Param(bound="positive", reliable=(0.01, 1e6)),
-        "low": Param(required=False, default=0.0),
+        "alpha": Param(bound="positive", reliable=(0.01, 1e6), role="shape", typical=(0.5, 20.0, "log")),
+        "beta": Param(bound="positive", reliable=(0.01, 1e6), role="shape", typical=(0.5, 20.0, "log")),
+        "low": Param(required=False, default=0.0, role="location"),
         "high": Param(required=False, default=1.0),
     }
+    ties = (Ordered(),)
 
     def __init__(self, alpha, beta, low=0.0, high=1.0):
-        self.check_reliable(alpha=alpha, beta=beta)
-        _check_width(low, high)
         self.a, self.b = float(alpha), float(beta)
         self.lower, self.upper = float(low), float(high)
         self.width = self.upper - self.lower
@@ -767,12 +804,10 @@ class BetaValues(ValueModel):
 
 class Triangular(ValueModel):
     family = "triangular"
-    parameters = {"low": Param(), "mode": Param(), "high": Param()}
+    parameters = {"low": _LOCATION, "mode": Param(), "high": Param()}
+    ties = (Ordered(), Between("mode"))
 
     def __init__(self, low, mode, high):
-        _check_width(low, high)
-        if not low <= mode <= high:
-            raise ParameterError("mode", "must lie between low and high")
         self.lower, self.c, self.upper = float(low), float(mode), float(high)
         self.w = self.upper - self.lower
         self.fc = (self.c - self.lower) / self.w
@@ -838,11 +873,10 @@ class Triangular(ValueModel):
 
 class Pareto(ValueModel):
     family = "pareto"
-    parameters = {"shape": Param(bound="positive"), "minimum": _SCALE}
+    parameters = {"shape": Param(bound="positive", role="shape", typical=(2.5, 6.0, "linear")), "minimum": _SCALE}
     closed_form_logs = True  # closed_rank_moments goes through log-gamma ratios
 
     def __init__(self, shape, minimum):
-        self.check_reliable(minimum=minimum)
         self.alpha, self.xm = float(shape), float(minimum)
         self.lower = self.xm
         self.upper_tail_index = self.alpha
@@ -913,14 +947,13 @@ class Power(ValueModel):
     # Below exponent 0.01 a draw sits at low but for a sliver of chance, and a reverse auction's
     # payment (5e-231 at exponent 0.001 and 200 bidders) is lost to it.
     parameters = {
-        "exponent": Param(bound="positive", reliable=(0.01, None)),
+        "exponent": Param(bound="positive", reliable=(0.01, None), role="shape", typical=(0.3, 8.0, "log")),
         "high": Param(),
-        "low": Param(required=False, default=0.0),
+        "low": Param(required=False, default=0.0, role="location"),
     }
+    ties = (Ordered(),)
 
     def __init__(self, exponent, high, low=0.0):
-        self.check_reliable(exponent=exponent)
-        _check_width(low, high)
         self.a = float(exponent)
         self.lower, self.upper = float(low), float(high)
         self.w = self.upper - self.lower
@@ -1053,7 +1086,7 @@ class Reflected(ValueModel):
         self.upper_tail_index = parent.lower_tail_index
         self.lower_tail_index = parent.upper_tail_index
         self.discrete = parent.discrete
-        self.closed_form_logs = getattr(parent, "closed_form_logs", False)
+        self.closed_form_logs = parent.closed_form_logs
 
 
     def to_params(self):
@@ -1105,8 +1138,7 @@ class Reflected(ValueModel):
 
     def closed_rank_moments(self, n, r):
         """Rank r from the top of -X is minus rank n - r + 1 from the top of X."""
-        closed = getattr(self.parent, "closed_rank_moments", None)
-        got = closed(n, n - r + 1) if closed is not None else None
+        got = self.parent.closed_rank_moments(n, n - r + 1)
         return None if got is None else (-got[0], got[1])
 
 

@@ -64,7 +64,7 @@ def closed_form_error(model, n, mean, sd=0.0):
     """An error bound for a family's moments in closed form: a few ulps, and where they are
     exps of log-gamma differences (``closed_form_logs``), a few per unit of the logs,
     which grow as log n."""
-    logs = math.log1p(n) if getattr(model, "closed_form_logs", False) else 0.0
+    logs = math.log1p(n) if model.closed_form_logs else 0.0
     return 2.0 * ROUNDING * (1.0 + logs) * (abs(mean) + sd)
 
 
@@ -281,7 +281,7 @@ def rank_quadrature(n, r, *, kinks_u=(), s_cut=None, upper_growth=0.0, lower_gro
     splits = tuple(float(x) for x in splits_s)
     if model is not None and not (model.upper_tail_index == model.lower_tail_index == math.inf):
         model = None  # a power-law tail's growth is known in closed form; its far values overflow
-    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    probe = model is not None and power and model.cheap_quantiles
     shape = (n, r, kinks, s_cut, upper_growth, lower_growth)
     if (probe and not checked) or len(kinks) > _RULE_CACHE_KINKS:
         return _build_rank_quadrature(*shape, model, power, fine, splits, s_top)
@@ -341,7 +341,7 @@ def _build_rank_quadrature(n, r, kinks_u, s_cut, upper_growth, lower_growth, mod
         return RankQuadrature(m, r, lognorm, [])
     t0, sig, t_left, t_right = window
     cut = s_cut is not None and math.isfinite(s_cut)
-    probe = model is not None and power and getattr(model, "cheap_quantiles", False)
+    probe = model is not None and power and model.cheap_quantiles
     ta, tb = _trimmed(m, r, lognorm, t_left, t_right, cut, upper_growth, lower_growth, model if probe else None, power,
                       t_floor)
     if fine:  # reach w = 80, so every partial integral out to e^-40 of the weight lies inside
@@ -505,8 +505,7 @@ def rank_summary(model, n, r, with_gap=False):
         c = sd_scale(x - mean)
         sd = c * math.sqrt(float(np.dot(p, ((x - mean) / c) ** 2) / np.sum(p)))
         return RankSummary(r, mean, sd, 4e-16 * abs(mean), "exact_discrete_sum", warnings)
-    closed = getattr(model, "closed_rank_moments", None)
-    got = closed(n, r) if closed is not None else None
+    got = model.closed_rank_moments(n, r)
     if got is not None:
         mean, var = got
         sd = math.sqrt(max(var, 0.0)) if has_var and var is not None else None
