@@ -285,3 +285,62 @@ def test_ninety_percent_intervals_cover_the_truth():
         hits["reserve"] += lo <= r_star <= hi
     for name, hit in hits.items():
         assert 84 <= hit * 100 / sets <= 96, (name, hit)
+
+
+# ---- 6. CSV in ----------------------------------------------------------------------------
+
+def _csv(rows, sep=",", decimal="."):
+    lines = [sep.join(rows[0])]
+    for row in rows[1:]:
+        lines.append(sep.join(str(x).replace(".", decimal) if isinstance(x, float) else str(x) for x in row))
+    return "\n".join(lines) + "\n"
+
+
+@pytest.mark.parametrize("sep,decimal", [(",", "."), (";", ","), (";", ".")])
+def test_csv_records_give_the_json_fit(client, sep, decimal):
+    # The same auctions as JSON and as CSV (a comma-decimal spreadsheet writes semicolons)
+    # give the same answer, bit for bit.
+    rng = np.random.default_rng(12)
+    auctions = simulate_prices(stats.gamma(6.0, scale=10.0), rng.integers(2, 6, 60), rng, reserve=30.0)
+    rows = [("auction", "bidders", "price", "reserve", "sold")]
+    rows += [(f"lot-{i}", a["bidders"], a.get("price", ""), a["reserve"], "true" if a.get("sold", True) else "false")
+             for i, a in enumerate(auctions)]
+    body = {"rule": "second_price", "auctions": auctions, "families": ["gamma", "lognormal"], "confidence": {"replications": 20, "seed": 3}}
+    want = _post(client, body).get_json()
+    r = client.post("/v1/fits?rule=second_price&families=gamma,lognormal&replications=20&seed=3",
+                    data=_csv(rows, sep, decimal), content_type="text/csv")
+    assert r.status_code == 200, r.get_data(as_text=True)
+    assert r.get_json() == want
+
+
+def test_csv_bids_a_row_each(client):
+    rows = [("auction", "bidders", "bid")]
+    rng = np.random.default_rng(13)
+    auctions = []
+    for i, n in enumerate(rng.integers(2, 5, 80)):
+        bids = [float(round((n - 1) * v / n, 6)) for v in rng.random(n) * 100.0]
+        auctions.append({"bidders": int(n), "bids": bids})
+        rows += [(i, int(n), b) for b in bids]
+    want = _post(client, {"rule": "first_price", "auctions": auctions, "confidence": {"replications": 0}}).get_json()
+    r = client.post("/v1/fits?rule=first_price&replications=0", data=_csv(rows), content_type="text/csv")
+    assert r.status_code == 200 and r.get_json() == want
+
+
+@pytest.mark.parametrize("text,query,field", [
+    ("auction,bidders,bid\n1,3,10.5\n1,3,abc\n1,3,12\n", "rule=first_price", "line 3.bid"),
+    ("auction,bidders,bid,region\n1,3,10.5,north\n", "rule=first_price", "line 1.region"),
+    ("auction,bidders\n1,3\n", "rule=first_price", "line 1"),
+    ("auction,bidders,price\n1,3,nan\n2,3,5\n", "rule=second_price", "line 2.price"),
+    ("auction,bidders,price\n1,2.5,4\n2,3,5\n", "rule=second_price", "line 2.bidders"),
+    ("auction,bidders,price\n1,3,4\n2,3,5\n", "rule=second_price&colour=red", "colour"),
+    ("auction,bidders,price\n1,3,4\n", "rule=second_price", "auctions"),
+])
+def test_bad_csv_names_the_line_and_column(client, text, query, field):
+    r = client.post(f"/v1/fits?{query}", data=text, content_type="text/csv")
+    assert r.status_code == 422 and r.mimetype == "application/problem+json", r.get_data(as_text=True)
+    assert field in {e["field"] for e in r.get_json()["errors"]}, r.get_json()
+
+
+def test_query_options_with_a_json_body_are_refused(client):
+    r = client.post("/v1/fits?replications=5", json={"rule": "second_price", "auctions": [{"bidders": 3, "price": 1.0}] * 2})
+    assert r.status_code == 422 and r.get_json()["errors"][0]["field"] == "replications"

@@ -1,19 +1,23 @@
 """POST /v1/fits: value (or cost) models recovered from past auctions' prices or bids."""
 from __future__ import annotations
 
-from flask import Blueprint
+from flask import Blueprint, request
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from ..core.fits import mle
 from ..core.fits.report import CHECK_REPLICATIONS, fit_report
 from . import admission, wording
 from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
-from .io import core_call, load, register_posts
+from .fits_csv import auctions_from_csv, options_from_query
+from .io import body_bytes, core_call, json_body, json_response, load
 
 bp = Blueprint("fits", __name__)
 
 #: Seconds of work per price record and refit, measured (about 6 us on one CPU; see make bench).
 _SECONDS_PER_RECORD_REFIT = 6e-6
+#: Seconds per bid of one Guerre-Perrigne-Vuong inversion (a reflected kernel summed on a
+#: 1,024-point grid: about 3 us a bid).
+_SECONDS_PER_BID_INVERSION = 4e-6
 #: Seconds per replicate's counterfactual figures (the second-price route and the reserve
 #: search under a kernel model of 400 points, the slowest a fit selects; about 0.025 s).
 _SECONDS_PER_COUNTERFACTUAL = 0.03
@@ -76,6 +80,8 @@ def _admit(req):
     refits = conf["replications"] + min(conf["replications"], CHECK_REPLICATIONS)
     records = sum(len(a["bids"]) if a.get("bids") else 1 for a in req["auctions"])
     seconds = _SECONDS_PER_RECORD_REFIT * records * (families * refits + 50)
+    if req["rule"] == "first_price":  # each replicate inverts every bid again (a kernel sum over a grid)
+        seconds += _SECONDS_PER_BID_INVERSION * records * (1 + conf["replications"])
     if req["counterfactual"] is not None:
         seconds += _SECONDS_PER_COUNTERFACTUAL * conf["replications"]
     if seconds > caps().seconds:
@@ -99,4 +105,19 @@ def fits_handler(body):
 
 
 HANDLERS = {"/v1/fits": fits_handler}
-register_posts(bp, HANDLERS)
+
+
+@bp.post("/v1/fits")
+def fits_view():
+    """JSON as every POST route takes it, or CSV records with the options in the query string."""
+    if (request.mimetype or "") in ("text/csv", "application/csv"):
+        try:
+            text = body_bytes().decode("utf-8-sig")
+        except UnicodeDecodeError:
+            raise ValidationError({"(body)": ["The CSV body must be UTF-8 text."]}) from None
+        body = {**options_from_query(request.args), "auctions": auctions_from_csv(text)}
+    else:
+        body = json_body()
+        if request.args:
+            raise ValidationError({k: ["Options go in the JSON body; the query string is for a CSV body."] for k in request.args})
+    return json_response(fits_handler(body))
