@@ -328,7 +328,7 @@ def test_csv_bids_a_row_each(client):
 
 @pytest.mark.parametrize("text,query,field", [
     ("auction,bidders,bid\n1,3,10.5\n1,3,abc\n1,3,12\n", "rule=first_price", "line 3.bid"),
-    ("auction,bidders,bid,region\n1,3,10.5,north\n", "rule=first_price", "line 1.region"),
+    ("auction,bidders,bid,size,size\n1,3,10.5,2,2\n", "rule=first_price", "line 1.size"),
     ("auction,bidders\n1,3\n", "rule=first_price", "line 1"),
     ("auction,bidders,price\n1,3,nan\n2,3,5\n", "rule=second_price", "line 2.price"),
     ("auction,bidders,price\n1,2.5,4\n2,3,5\n", "rule=second_price", "line 2.bidders"),
@@ -344,3 +344,72 @@ def test_bad_csv_names_the_line_and_column(client, text, query, field):
 def test_query_options_with_a_json_body_are_refused(client):
     r = client.post("/v1/fits?replications=5", json={"rule": "second_price", "auctions": [{"bidders": 3, "price": 1.0}] * 2})
     assert r.status_code == 422 and r.get_json()["errors"][0]["field"] == "replications"
+
+
+# ---- 7. covariates --------------------------------------------------------------------------
+
+def _items(rng, count):
+    """Auctions of items of size s in [1, 10] and a region: values lognormal(median 100, sigma 0.3)
+    times s^0.8 times 1.3 in the south (Haile, Hong and Shum 2003: multiplicative separability)."""
+    auctions = []
+    for i in range(count):
+        n, size, region = int(rng.integers(2, 6)), float(rng.uniform(1.0, 10.0)), ("north", "south")[i % 2]
+        v = np.sort(stats.lognorm(0.3, scale=100.0).rvs(n, random_state=rng)) * size**0.8 * (1.3 if region == "south" else 1.0)
+        auctions.append({"bidders": n, "price": float(v[-2]), "covariates": {"size": size, "region": region}})
+    return auctions
+
+
+def test_covariates_scale_the_records_to_a_reference_item(client):
+    rng = np.random.default_rng(21)
+    auctions = _items(rng, 600)
+    out = _post(client, {"rule": "ascending", "auctions": auctions, "covariates": ["log(size)", "region"],
+                         "families": ["lognormal"], "confidence": {"replications": 0}}).get_json()
+    h = out["homogenization"]
+    # Within 4 clustered standard errors of the truth (0.8 and log 1.3).
+    for name, truth in (("log(size)", 0.8), ("region=south", math.log(1.3))):
+        c = h["coefficients"][name]
+        assert abs(c["estimate"] - truth) < 4.0 * c["standard_error"], (name, c)
+    # The model describes the reference item: size at the records' geometric mean, region north
+    # (the levels tie, and the first in order is taken), median 100 * size^0.8; 5% tolerance.
+    ref = h["reference"]
+    model = out["bidder_values"]
+    assert model["median"] == pytest.approx(100.0 * ref["log(size)"] ** 0.8 * (1.3 if ref["region"] == "south" else 1.0), rel=0.05)
+    assert model["sigma"] == pytest.approx(0.3, rel=0.15)
+
+
+def test_covariate_slope_is_least_squares():
+    # One numeric covariate: the coefficient equals numpy.polyfit's slope of log price on it.
+    from service.core.fits.covariates import homogenize
+
+    rng = np.random.default_rng(22)
+    auctions = _items(rng, 200)
+    for a in auctions:
+        a["covariates"] = {"size": a["covariates"]["size"]}
+    _, report = homogenize(auctions, ["size"])
+    x = np.array([a["covariates"]["size"] for a in auctions])
+    y = np.log([a["price"] for a in auctions])
+    assert report["coefficients"]["size"]["estimate"] == pytest.approx(np.polyfit(x, y, 1)[0], rel=1e-10)
+
+
+def test_csv_covariate_columns(client):
+    rng = np.random.default_rng(23)
+    auctions = _items(rng, 80)
+    rows = [("auction", "bidders", "price", "size", "region")]
+    rows += [(i, a["bidders"], a["price"], a["covariates"]["size"], a["covariates"]["region"]) for i, a in enumerate(auctions)]
+    body = {"rule": "ascending", "auctions": auctions, "covariates": ["log(size)", "region"], "families": ["lognormal"],
+            "confidence": {"replications": 0}}
+    r = client.post("/v1/fits?rule=ascending&covariates=log(size),region&families=lognormal&replications=0",
+                    data=_csv(rows), content_type="text/csv")
+    assert r.status_code == 200 and r.get_json() == _post(client, body).get_json()
+
+
+@pytest.mark.parametrize("change,field", [
+    (lambda a: a[3]["covariates"].pop("size"), "auctions.3.covariates.size"),
+    (lambda a: a[0]["covariates"].update(size="big"), "covariates.0"),
+    (lambda a: a[5].update(price=-1.0), "auctions.5.price"),
+])
+def test_bad_covariates_are_named(client, change, field):
+    auctions = _items(np.random.default_rng(24), 20)
+    change(auctions)
+    r = _post(client, {"rule": "ascending", "auctions": auctions, "covariates": ["size"], "confidence": {"replications": 0}})
+    assert r.status_code == 422 and field in {e["field"] for e in r.get_json()["errors"]}, r.get_json()

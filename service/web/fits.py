@@ -62,10 +62,7 @@ class FitRequest(Schema):
     counterfactual = fields.Nested(Counterfactual, load_default=None)
 
     @validates_schema(skip_on_field_errors=True)
-    def _not_yet(self, data, **kw):
-        if data["covariates"] or any(a.get("covariates") for a in data["auctions"]):
-            raise ValidationError({"covariates": ["Controlling for covariates is not offered yet: fit items alike, "
-                                                  "or scale the records to a reference item first."]})
+    def _direction_values(self, data, **kw):
         cf = data.get("counterfactual")
         if cf is not None and data["direction"] == "forward" and cf.get("buyer_value") is not None:
             raise ValidationError({"counterfactual.buyer_value": ["Only for a reverse fit; a forward one takes seller_value."]})
@@ -101,7 +98,7 @@ def fits_handler(body):
         cf["own_value"] = own
     return wording.fits(core_call(
         fit_report, rule=req["rule"], direction=req["direction"], auctions=req["auctions"], families=req["families"],
-        nonparametric=req["nonparametric"], confidence=req["confidence"], counterfactual=cf))
+        nonparametric=req["nonparametric"], confidence=req["confidence"], counterfactual=cf, covariates=req["covariates"]))
 
 
 HANDLERS = {"/v1/fits": fits_handler}

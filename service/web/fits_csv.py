@@ -2,7 +2,9 @@
 auction, the other options in the query string.
 
 Headers: ``auction,bidders,bid`` (every bid, a row each), ``auction,bidders,winning_bid``, or
-``auction,bidders,price`` with optional ``reserve`` and ``sold``. Fields are separated by
+``auction,bidders,price`` with optional ``reserve`` and ``sold``; any other column is a
+covariate of the auction (a number where it reads as one, else a category), taken from its
+first row and controlled for when the ``covariates`` parameter names it. Fields are separated by
 commas or, as a spreadsheet in a comma-decimal locale writes them, by semicolons; with
 semicolons a number may use either decimal mark. A bad row is a 422 naming its line (the
 header is line 1) and its column.
@@ -20,7 +22,7 @@ from .query import _NUMBER
 _KINDS = ("bid", "winning_bid", "price")
 _OPTIONAL = ("reserve", "sold")
 #: The query parameters a CSV fit takes (the JSON body's options, flat).
-QUERY_KEYS = ("rule", "direction", "families", "nonparametric", "replications", "seed", "level")
+QUERY_KEYS = ("rule", "direction", "families", "covariates", "nonparametric", "replications", "seed", "level")
 
 
 def _number(text, decimal_comma):
@@ -36,9 +38,8 @@ def _header(row, errors):
     cols = [c.strip() for c in row]
     kinds = [k for k in _KINDS if k in cols]
     for c in cols:
-        if c not in ("auction", "bidders", *_KINDS, *_OPTIONAL):
-            errors[f"line 1.{c}"] = ["Unknown column: controlling for covariates is not offered yet; the columns are "
-                                     "auction, bidders and one of bid, winning_bid, price (with reserve, sold)."]
+        if c == "" or cols.count(c) > 1:
+            errors[f"line 1.{c}"] = ["Every column needs a name of its own."]
     for need in ("auction", "bidders"):
         if need not in cols:
             errors[f"line 1.{need}"] = ["Required column."]
@@ -62,6 +63,19 @@ def _cell(row, cols, name, line, decimal_comma, errors, whole=False):
         errors[f"line {line}.{name}"] = [f"Must be a whole number, not {text!r}."]
         return None
     return int(x) if whole else x
+
+
+def _covariates(row, cols, decimal_comma):
+    """The row's other columns, each a number where it reads as one, else a category (text); None if none."""
+    out = {}
+    for j, c in enumerate(cols):
+        if c in ("auction", "bidders", *_KINDS, *_OPTIONAL) or j >= len(row) or row[j].strip() == "":
+            continue
+        try:
+            out[c] = _number(row[j], decimal_comma)
+        except ValueError:
+            out[c] = row[j].strip()
+    return out or None
 
 
 def _sold(row, cols, line, errors):
@@ -101,7 +115,7 @@ def auctions_from_csv(text):
             continue
         rec = auctions.get(key)
         if rec is None:
-            rec = auctions[key] = {"bidders": bidders, "reserve": reserve, "sold": sold}
+            rec = auctions[key] = {"bidders": bidders, "reserve": reserve, "sold": sold, "covariates": _covariates(row, cols, sep == ";")}
             order.append(key)
         elif rec["bidders"] != bidders and kind == "bid":
             errors[f"line {line}.bidders"] = [f"Auction {key!r} said {rec['bidders']} bidders on an earlier line."]
@@ -130,8 +144,9 @@ def options_from_query(args):
     for key in ("rule", "direction"):
         if key in args:
             body[key] = args[key]
-    if "families" in args:
-        body["families"] = [f.strip() for f in args["families"].replace(";", ",").split(",") if f.strip()]
+    for key in ("families", "covariates"):
+        if key in args:
+            body[key] = [f.strip() for f in args[key].replace(";", ",").split(",") if f.strip()]
     if "nonparametric" in args:
         body["nonparametric"] = {"true": True, "false": False}.get(args["nonparametric"].lower(), args["nonparametric"])
     conf = {}

@@ -19,6 +19,7 @@ from ..errors import ParameterError
 from ..topvalues import finite
 from . import inversion, mle, simulate
 from .counterfactual import counterfactual_figures
+from .covariates import homogenize
 from .likelihood import price_log_likelihood, price_transforms
 from .records import PriceRecords, records
 
@@ -198,10 +199,15 @@ def _selection(fits, nonparametric):
                                f"{REJECT_AT:g}, and nonparametric is off")
 
 
-def fit_report(rule, direction, auctions, families=None, nonparametric=True, confidence=None, counterfactual=None):
-    """Models recovered from past auctions under ``rule``, the one selected, intervals and counterfactuals."""
+def fit_report(rule, direction, auctions, families=None, nonparametric=True, confidence=None, counterfactual=None,
+               covariates=()):
+    """Models recovered from past auctions under ``rule``, the one selected, intervals and
+    counterfactuals; with ``covariates``, for the reference item the records are scaled to."""
     confidence = {"level": 0.9, "replications": 200, "seed": 0, **(confidence or {})}
     sign = 1.0 if direction == "forward" else -1.0
+    homogenization = None
+    if covariates:
+        auctions, homogenization = homogenize(auctions, list(covariates))
     rec = records(rule, direction, auctions)
     data = sign * rec.observed
     rng = np.random.default_rng(confidence["seed"])
@@ -224,6 +230,8 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
         "numerics": {"optimizer": "nelder_mead", "replications": confidence["replications"], "seed": confidence["seed"],
                      "level": confidence["level"], "fit_check_replications": check_reps},
     }
+    if homogenization is not None:
+        out["homogenization"] = homogenization
     if ask is not None:
         out["counterfactual"] = _counterfactual_entry(model, direction, ask, figures, confidence["level"])
     out["warnings"] = warnings + _inversion_warnings(np_entry)
