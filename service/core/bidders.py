@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -30,19 +31,22 @@ class Bidders:
         """A ``Bidders`` as given, or exactly n for an integer n."""
         return bidders if isinstance(bidders, cls) else cls.exactly(bidders)
 
-    @property
+    # n, rivals and lone are asked for in every inner loop of a report: each is computed once
+    # (cached_property writes past the frozen dataclass's __setattr__; the counts never change).
+
+    @cached_property
     def n(self):
         """The count, where it is certain (every route today needs one)."""
         if len(self.counts) != 1:
             raise ValueError("this figure needs a certain number of bidders")
         return self.counts[0]
 
-    @property
+    @cached_property
     def rivals(self):
         """The count each bidder faces, n - 1, as a float (the exponent of F in G = F^(n-1))."""
         return self.n - 1.0
 
-    @property
+    @cached_property
     def lone(self):
         """Whether a single bidder takes part for certain: no rival to beat, so it pays the floor."""
         return self.counts == (1,)

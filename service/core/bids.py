@@ -96,7 +96,7 @@ class EquilibriumBids:
         up, low = os_.tail_growth(self.model, self.auction.power(self.n - 1, 1))
         a = self.model.upper_tail_index
         if a <= 1.0:
-            up = (2.0 if price_moment_exists(self.model, self.n, "first_price", 2, self.floor) else 1.0) * (1.0 - a) / a
+            up = (2.0 if price_moment_exists(self.model, self.auction.bidders, "first_price", 2, self.floor) else 1.0) * (1.0 - a) / a
         return up, low
 
     def inner_quadrature(self):

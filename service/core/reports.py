@@ -64,7 +64,7 @@ def _price_figures(auc, rule, quantiles, shared, warnings):
     """(mean, its error, sd or None, the sd's error, quantiles or None) of the revenue.
     The sd and quantiles depend only on the price distribution, which the two rules of each
     pair share, so they are computed once per pair."""
-    has_var = auc.p_sale == 0.0 or price.price_moment_exists(auc.model, auc.n, rule, 2, auc.floor)
+    has_var = auc.p_sale == 0.0 or price.price_moment_exists(auc.model, auc.bidders, rule, 2, auc.floor)
     if not has_var:
         note = f"{rule}: the sd is null (the price's variance does not exist: the value model's tail is too heavy)"
         if note not in warnings:
@@ -112,7 +112,7 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     if direction == "forward" and v0 is None:
         v0 = 0.0
     auc = ForwardAuction(fmodel, count, freserve, v0)
-    price.check_price_exists(fmodel, count.n, auc.floor)
+    price.check_price_exists(fmodel, count, auc.floor)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
     figures, warnings = forward_figures(auc, list(rules), fq)

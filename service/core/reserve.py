@@ -140,7 +140,7 @@ def reserve_report(model, direction, bidders, own_value):
     count = Bidders.of(bidders)
     fmodel, _, v0 = forward_case(model, direction, None, own_value)
     r_star, regular, outcome = optimal_reserve(fmodel, count, v0)
-    check_price_exists(fmodel, count.n)
+    check_price_exists(fmodel, count)
     payoff, rev, p_sale = _sp_payoff(fmodel, count, r_star, v0)
     payoff0, rev0, _ = _sp_payoff(fmodel, count, None, v0) if (not count.lone or math.isfinite(fmodel.lower)) else (None, None, None)
     # the buyer's payoff, own_value P(award) - payment, from the forward twin's revenue + v0 P(no sale)
