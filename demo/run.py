@@ -247,17 +247,53 @@ def harrowgate(bs):
     body = load(s, "batch")
     out = bs.batch(body["requests"])
     items = {r["id"]: r for r in out["responses"]}
-    section("One batch: the fitted model next to the invented record of past winning bids (6 bidders)")
-    rows = []
-    for ident, label in (("fitted-lognormal", "lognormal fit"), ("past-winning-bids", "kernel on winning bids")):
-        res = {r["rank"]: r for r in items[ident]["body"]["results"]}
-        rows.append([label, money(res[1]["mean"]), money(res[2]["mean"]), money(res[1]["sd"])])
-    print(table(["value model", "E[highest]", "E[second]", "sd highest"], rows))
-    print("  Winning bids are the top of each sale, not one bidder's value, so a model built on them puts a")
-    print("  typical value too high and the spread too narrow (see E[second] and the sd). This item shows the")
-    print("  empirical format; it is not a way to fit values.")
+    section("One batch: the assumed model next to one fitted to the past sales' prices (6 bidders)")
+    fitted = items["past-sales-fit"]["body"]
+    assumed = {r["rank"]: r for r in items["fitted-lognormal"]["body"]["results"]}
+    print(table(["value model", "family", "E[highest]", "E[second]"],
+                [["assumed", "lognormal", money(assumed[1]["mean"]), money(assumed[2]["mean"])]]))
+    print(f"  Fitted to the {fitted['auctions']} past prices: {describe(fitted['bidder_values'])} "
+          f"({fitted['selected']['reason']}).")
     others = ", ".join(f"{r['id']} ({r['status']})" for r in out["responses"][2:])
     print(f"  The other batch items answered too: {others}.")
+
+    fit_section(bs, s, "Past sales to a value model: ascending-auction prices, controlling for the hours on the clock")
+
+
+def describe(model):
+    """A value model in a few words."""
+    params = ", ".join(f"{k} {money(v) if abs(v) >= 1000 else f'{v:.3g}'}" for k, v in model.items()
+                       if k != "family" and isinstance(v, (int, float)))
+    return f"{model['family']} ({params})" if params else model["family"]
+
+
+def fit_section(bs, scenario, title):
+    """POST /v1/fits with the scenario's fits.json: the candidates, the selected model and its counterfactual."""
+    body = load(scenario, "fits")
+    out = bs.fit(**body)
+    section(title)
+    if out["candidates"]:
+        print(table(["family", "AIC", "fit p-value", "parameters (90% intervals)"],
+                    [[c["model"]["family"], f"{c['aic']:.1f}", f"{c['fit']['p_value']:.2f}",
+                      "; ".join(f"{k} {ci[0]:.4g}-{ci[1]:.4g}" for k, ci in c["parameters_ci"].items() if ci)]
+                     for c in out["candidates"][:4]]))
+    model = out.get("bidder_values") or out.get("bidder_costs")
+    print(f"  Selected: {describe(model) if model['family'] not in ('empirical', 'quantile_table') else model['family']}; "
+          f"{out['selected']['reason']}.")
+    if out.get("homogenization"):
+        for name, c in out["homogenization"]["coefficients"].items():
+            print(f"  {name}: {c['estimate']:+.3f} (standard error {c['standard_error']:.3f}) on log price")
+    cf = out.get("counterfactual")
+    if cf:
+        word = "payment" if "expected_payment" in cf else "revenue"
+        rows = [[f"expected {word}, {RULE_NAMES[r['rule']]}", money(r["value"]), f"{money(r['ci'][0])} - {money(r['ci'][1])}"]
+                for r in cf[f"expected_{word}"]]
+        if "optimal_reserve" in cf:
+            rows.append(["optimal " + ("maximum price" if word == "payment" else "reserve"), money(cf["optimal_reserve"]["value"]),
+                         f"{money(cf['optimal_reserve']['ci'][0])} - {money(cf['optimal_reserve']['ci'][1])}"])
+        print(table([f"with {cf['bidders']} bidders, under the fitted model", "estimate", "90% interval"], rows))
+    for w in out["warnings"]:
+        print(f"  warning: {w}")
 
 
 def millbrook(bs):
@@ -323,6 +359,8 @@ def millbrook(bs):
             rows.append([item["id"], b["bidders"], money(b["expected_payment_at_optimum"]),
                          pct(b["probability_of_award_at_optimum"]), money(b["optimal_reserve"])])
     print(table(["tender", "bidders", "expected payment", "P(award)", "optimal max price"], rows))
+
+    fit_section(bs, s, "Past tenders to a cost model: every sealed bid of 24 first-price tenders")
 
 
 def main():

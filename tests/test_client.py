@@ -29,7 +29,7 @@ FIXTURES = ROOT / "fixtures"
 SCENARIOS = ("harrowgate_forward", "millbrook_reverse")
 ROUTES = {"top-values": "/v1/top-values", "joint-density": "/v1/top-values/joint-density",
           "revenue": "/v1/revenue", "bid-strategy": "/v1/bid-strategy", "reserve-price": "/v1/reserve-price",
-          "batch": "/v1/batch", "sweeps": "/v1/sweeps"}
+          "batch": "/v1/batch", "sweeps": "/v1/sweeps", "fits": "/v1/fits"}
 UNIFORM = {"family": "uniform", "low": 0, "high": 1}
 RULES = ["first_price", "second_price", "ascending", "descending", "all_pay"]
 
@@ -446,13 +446,15 @@ def test_every_fixture_body_answers_200(app, client, scenario, name):
         assert all(status == 200 for _, status in statuses), statuses
 
 
-def test_the_winning_bids_sample_is_the_csv():
-    with open(FIXTURES / "harrowgate_forward" / "winning_bids.csv", newline="") as fh:
-        column = [float(r["winning_bid_eur"]) for r in csv.DictReader(fh)]
-    assert 20 <= len(column) <= 40
+def test_the_past_sales_fits_are_the_csv():
+    with open(FIXTURES / "harrowgate_forward" / "past_sales.csv", newline="") as fh:
+        rows = [(int(r["bidders"]), float(r["price"]), float(r["hours"])) for r in csv.DictReader(fh)]
+    assert 20 <= len(rows) <= 40
     items = _strict_load(FIXTURES / "harrowgate_forward" / "batch.json")["requests"]
-    empirical = [i["body"]["bidder_values"] for i in items if i["body"].get("bidder_values", {}).get("family") == "empirical"]
-    assert len(empirical) == 1 and [float(x) for x in empirical[0]["sample"]] == column
+    fits = [i["body"]["auctions"] for i in items if i["path"] == "/v1/fits"]
+    assert len(fits) == 1 and [(a["bidders"], a["price"]) for a in fits[0]] == [r[:2] for r in rows]
+    covariates = _strict_load(FIXTURES / "harrowgate_forward" / "fits.json")["auctions"]
+    assert [(a["bidders"], a["price"], a["covariates"]["hours"]) for a in covariates] == rows
 
 
 def test_the_fixtures_say_they_are_invented():

@@ -38,6 +38,7 @@ class FamilySpec:
     start: object  # data -> {name: value} for the free parameters
     fixed: object = None  # data -> {name: value}, or None
     positive: bool = False
+    fixed_from_data: bool = False  # whether ``fixed`` reads its values off the data (they count in the AIC)
 
 
 def _widened(x):
@@ -54,7 +55,8 @@ FITTED = {
     "exponential": FamilySpec(lambda x: {"mean": float(np.mean(x) - np.min(x)) or 1.0, "shift": float(np.min(x)) - _spread(x) / len(x)}),
     "gamma": FamilySpec(lambda x: {"shape": float(np.mean(x) ** 2 / np.var(x)), "scale": float(np.var(x) / np.mean(x))}, positive=True),
     "weibull": FamilySpec(lambda x: {"shape": 2.0, "scale": float(np.mean(x))}, positive=True),
-    "beta": FamilySpec(lambda x: {"alpha": 2.0, "beta": 2.0}, fixed=lambda x: dict(zip(("low", "high"), _widened(x)))),
+    "beta": FamilySpec(lambda x: {"alpha": 2.0, "beta": 2.0}, fixed=lambda x: dict(zip(("low", "high"), _widened(x))),
+                       fixed_from_data=True),
     "pareto": FamilySpec(lambda x: {"shape": 3.0, "minimum": 0.9 * float(np.min(x))}, positive=True),
     "power": FamilySpec(lambda x: {"exponent": 1.0, "high": _widened(x)[1]}, fixed=lambda x: {"low": 0.0}, positive=True),
 }
@@ -73,8 +75,10 @@ class Fit:
 
     @property
     def aic(self):
-        """Akaike (1974): 2k - 2 log L, k the parameters estimated."""
-        return 2.0 * len(self.free) - 2.0 * self.log_likelihood
+        """Akaike (1974): 2k - 2 log L, k the parameters estimated (a beta's range, read off the
+        data, counts too)."""
+        k = len(self.free) + (len(self.params) - len(self.free) if FITTED[self.family].fixed_from_data else 0)
+        return 2.0 * k - 2.0 * self.log_likelihood
 
 
 def applicable(family, data):
