@@ -86,9 +86,8 @@ def _nonparametric(rec, sign):
     if isinstance(rec, PriceRecords):
         model = _table_model(*inversion.prices_to_cdf(rec), rec.price[rec.above], sign)
         twin = M.Reflected(model) if sign < 0 else model
-        u = price_transforms(twin, rec)
         return model, {"method": "athey_haile", "bandwidth": None, "trimmed": 0,
-                       "fit": {"ks_distance": _ks(u), "p_value": None}}
+                       "fit": _counts_agree(price_transforms(twin, rec), rec.n[rec.above])}
     if rec.winners_only:
         xs, cdf, h, falls = inversion.winners_to_cdf(rec)
         model = _table_model(xs, cdf, xs, sign)
@@ -98,6 +97,18 @@ def _nonparametric(rec, sign):
     model = M.empirical((sign * inv.values).tolist())
     return model, {"method": inv.method, "bandwidth": inv.bandwidth, "trimmed": 0, "not_increasing": inv.not_increasing,
                    "fit": _private_values_check(rec)}
+
+
+def _counts_agree(u, counts):
+    """Under private values one value model lies behind every bidder count, so the prices'
+    transforms through the pooled model are uniform in each count alike: the two most frequent
+    counts' transforms compared by the two-sample KS test (Athey and Haile 2002, section 6)."""
+    levels, seen = np.unique(counts, return_counts=True)
+    if len(levels) < 2 or np.sort(seen)[-2] < 5:
+        return {"ks_distance": None, "p_value": None}
+    a, b = levels[np.argsort(seen)[-2:]]
+    test = stats.ks_2samp(u[counts == a], u[counts == b])
+    return {"ks_distance": float(test.statistic), "p_value": float(test.pvalue)}
 
 
 def _private_values_check(rec):
@@ -260,7 +271,12 @@ def _counterfactual_entry(model, direction, ask, draws, level):
 
 
 def _inversion_warnings(entry):
+    out = []
     if entry and entry.get("not_increasing"):
-        return [f"{entry['not_increasing']} pseudo-values fall where their bids rise: the bids may not come from one "
-                "symmetric private-value equilibrium, or the sample is thin there"]
-    return []
+        out.append(f"{entry['not_increasing']} pseudo-values fall where their bids rise: the bids may not come from one "
+                   "symmetric private-value equilibrium, or the sample is thin there")
+    p = entry["fit"]["p_value"] if entry else None
+    if p is not None and p < REJECT_AT:
+        out.append(f"the values recovered from auctions with different numbers of bidders disagree (p = {p:.3g}): private "
+                   "values drawn independently of the number of bidders may not hold, and every model here rests on them")
+    return out
