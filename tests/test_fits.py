@@ -234,6 +234,11 @@ def test_a_fitted_model_pastes_into_every_other_endpoint(client, rule, kind):
     # Every candidate loads where a value model is taken (a heavy-tailed one may have no expected price).
     for c in out["candidates"]:
         assert client.post("/v1/top-values", json={"bidder_values": c["model"], "bidders": 4}).status_code == 200
+    # A parametric one flattens into a quote URL as any model the user writes.
+    for c in out["candidates"][:1]:
+        query = "&".join(f"{k}={v}" for k, v in c["model"].items())
+        r = client.get(f"/v1/quote?metric=expected_revenue&rule=second_price&bidders=4&{query}")
+        assert r.status_code == 200 and float(r.get_data(as_text=True)) > 0, r.get_data(as_text=True)
     for model in (out["bidder_values"], out["nonparametric"]["model"]):
         for path, body in (("/v1/revenue", {"bidders": 4}), ("/v1/reserve-price", {"bidders": 4}),
                            ("/v1/top-values", {"bidders": 4}),
