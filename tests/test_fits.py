@@ -383,7 +383,9 @@ def test_covariates_scale_the_records_to_a_reference_item(client):
 
 
 def test_covariate_slope_is_least_squares():
-    # One numeric covariate: the coefficient equals numpy.polyfit's slope of log price on it.
+    # One numeric covariate beside the bidder count's levels: the coefficient is the ordinary
+    # least-squares slope of log price, here from the normal equations solved directly; with one
+    # bidder count throughout, numpy.polyfit's simple slope.
     from service.core.fits.covariates import homogenize
 
     rng = np.random.default_rng(22)
@@ -393,7 +395,31 @@ def test_covariate_slope_is_least_squares():
     _, report = homogenize(auctions, ["size"])
     x = np.array([a["covariates"]["size"] for a in auctions])
     y = np.log([a["price"] for a in auctions])
+    n = np.array([a["bidders"] for a in auctions])
+    Z = np.column_stack([np.ones(len(x)), x] + [(n == c).astype(float) for c in np.unique(n)[1:]])
+    assert report["coefficients"]["size"]["estimate"] == pytest.approx(np.linalg.solve(Z.T @ Z, Z.T @ y)[1], rel=1e-9)
+    for a in auctions:
+        a["bidders"] = 4
+    _, report = homogenize(auctions, ["size"])
     assert report["coefficients"]["size"]["estimate"] == pytest.approx(np.polyfit(x, y, 1)[0], rel=1e-10)
+
+
+def test_a_bidder_count_that_goes_with_a_covariate_is_not_its_effect():
+    # Prices rise with the number of bidders; items with x = 1 mostly drew 8 bidders, items with
+    # x = 0 mostly 2, and x itself does nothing: the estimate stays within 4 standard errors of 0
+    # (with the count left out of the regression, x took the count's effect: about 0.3).
+    from service.core.fits.covariates import homogenize
+
+    rng = np.random.default_rng(25)
+    auctions = []
+    for i in range(600):
+        x = i % 2
+        n = 8 if rng.random() < (0.8 if x else 0.2) else 2
+        v = np.sort(stats.lognorm(0.3, scale=100.0).rvs(n, random_state=rng))
+        auctions.append({"bidders": n, "price": float(v[-2]), "covariates": {"x": float(x)}})
+    _, report = homogenize(auctions, ["x"])
+    c = report["coefficients"]["x"]
+    assert abs(c["estimate"]) < 4.0 * c["standard_error"], c
 
 
 def test_csv_covariate_columns(client):

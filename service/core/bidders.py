@@ -70,9 +70,3 @@ class Bidders:
     def to_params(self):
         """The JSON a user sends for this count: the integer n."""
         return self.n
-
-
-def count(bidders):
-    """The certain count of ``bidders`` (an int or a ``Bidders``), as an int."""
-    return Bidders.of(bidders).n
-

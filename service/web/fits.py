@@ -5,7 +5,7 @@ from flask import Blueprint, request
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from ..core.fits import mle
-from ..core.fits.report import CHECK_REPLICATIONS, fit_report
+from ..core.fits.report import check_replications, fit_report
 from . import admission, wording
 from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
 from .fits_csv import auctions_from_csv, options_from_query
@@ -13,16 +13,24 @@ from .io import body_bytes, core_call, json_body, json_response, load
 
 bp = Blueprint("fits", __name__)
 
-#: Seconds of work per price record and refit, measured (about 6 us on one CPU; see make bench).
+#: Seconds of work per price record and refit, measured (about 6 us on one CPU; see make bench),
+#: on top of a refit's own 0.25 ms (its model builds and Newton steps, whatever the records).
 _SECONDS_PER_RECORD_REFIT = 6e-6
+_SECONDS_PER_REFIT = 2.5e-4
 #: Seconds per bid of one Guerre-Perrigne-Vuong inversion (a reflected kernel summed on a
 #: 1,024-point grid: about 3 us a bid).
 _SECONDS_PER_BID_INVERSION = 4e-6
+_SECONDS_PER_INVERSION = 4e-3
 #: Seconds per replicate's counterfactual figures (the second-price route and the reserve
 #: search under a kernel model of 400 points, the slowest a fit selects; about 0.025 s).
 _SECONDS_PER_COUNTERFACTUAL = 0.03
 #: The most bootstrap replications a request may ask for.
 MAX_REPLICATIONS = 2000
+
+
+def _each_once(names):
+    if len(set(names)) != len(names):
+        raise ValidationError("Each family at most once.")
 
 
 class AuctionRecord(Schema):
@@ -55,7 +63,8 @@ class FitRequest(Schema):
     rule = fields.String(required=True, validate=validate.OneOf(["first_price", "second_price", "ascending"]))
     direction = fields.String(load_default="forward", validate=validate.OneOf(["forward", "reverse"]))
     auctions = CappedList(fields.Nested(AuctionRecord), 2, "fit_auctions", required=True)
-    families = CappedList(fields.String(validate=validate.OneOf(list(mle.FITTED))), 1, len(mle.FITTED), load_default=None)
+    families = CappedList(fields.String(validate=validate.OneOf(list(mle.FITTED))), 1, len(mle.FITTED), load_default=None,
+                          validate=_each_once)
     nonparametric = fields.Boolean(load_default=True, truthy={True}, falsy={False})
     covariates = CappedList(fields.String(), 0, 20, load_default=list)
     confidence = fields.Nested(Confidence, load_default=lambda: Confidence().load({}))
@@ -67,18 +76,18 @@ class FitRequest(Schema):
         if cf is not None and data["direction"] == "forward" and cf.get("buyer_value") is not None:
             raise ValidationError({"counterfactual.buyer_value": ["Only for a reverse fit; a forward one takes seller_value."]})
         if cf is not None and data["direction"] == "reverse" and cf.get("seller_value") is not None:
-            raise ValidationError({"counterfactual.seller_value": ["Only for a reverse fit's buyer_value; a forward one takes seller_value."]})
+            raise ValidationError({"counterfactual.seller_value": ["Only for a forward fit; a reverse one takes buyer_value."]})
 
 
 def _admit(req):
     """Refuse, before the work, a fit whose bootstrap would run past the time budget."""
     conf = req["confidence"]
     families = len(req["families"] or mle.FITTED) if req["rule"] != "first_price" else 0
-    refits = conf["replications"] + min(conf["replications"], CHECK_REPLICATIONS)
+    refits = conf["replications"] + check_replications(conf["replications"])
     records = sum(len(a["bids"]) if a.get("bids") else 1 for a in req["auctions"])
-    seconds = _SECONDS_PER_RECORD_REFIT * records * (families * refits + 50)
+    seconds = (_SECONDS_PER_REFIT + _SECONDS_PER_RECORD_REFIT * records) * (families * refits + 50)
     if req["rule"] == "first_price":  # each replicate inverts every bid again (a kernel sum over a grid)
-        seconds += _SECONDS_PER_BID_INVERSION * records * (1 + conf["replications"])
+        seconds += (_SECONDS_PER_INVERSION + _SECONDS_PER_BID_INVERSION * records) * (1 + conf["replications"])
     if req["counterfactual"] is not None:
         seconds += _SECONDS_PER_COUNTERFACTUAL * conf["replications"]
     if seconds > caps().seconds:

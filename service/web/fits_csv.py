@@ -105,6 +105,9 @@ def auctions_from_csv(text):
     for line, row in enumerate(rows[1:], start=2):
         if not any(c.strip() for c in row):
             continue
+        if len(row) > len(cols):
+            errors[f"line {line}"] = [f"Has {len(row)} fields; the header names {len(cols)}."]
+            continue
         key = row[cols.index("auction")].strip() if cols.index("auction") < len(row) else ""
         bidders = _cell(row, cols, "bidders", line, sep == ";", errors, whole=True)
         value = _cell(row, cols, kind, line, sep == ";", errors)
@@ -117,8 +120,11 @@ def auctions_from_csv(text):
         if rec is None:
             rec = auctions[key] = {"bidders": bidders, "reserve": reserve, "sold": sold, "covariates": _covariates(row, cols, sep == ";")}
             order.append(key)
-        elif rec["bidders"] != bidders and kind == "bid":
-            errors[f"line {line}.bidders"] = [f"Auction {key!r} said {rec['bidders']} bidders on an earlier line."]
+        elif kind != "bid":
+            errors[f"line {line}.auction"] = [f"Auction {key!r} has a row of its own already: one row per auction for {kind}."]
+            continue
+        elif (rec["bidders"], rec["reserve"], rec["sold"]) != (bidders, reserve, sold):
+            errors[f"line {line}"] = [f"Auction {key!r} gave other bidders, reserve or sold on an earlier line."]
         if kind == "bid":
             if value is not None:
                 rec.setdefault("bids", []).append(value)

@@ -155,6 +155,10 @@ def sweep(table):
 
 
 def fits(report):
-    """/v1/fits' answer: the recovered models named for the direction, with the assumptions."""
+    """/v1/fits' answer: the recovered models named for the direction, with the assumptions; the
+    covariates' names, the caller's own, are kept as given."""
     d = report["direction"]
-    return _with(report, d, "warnings", {"assumptions": FIT_ASSUMPTIONS[d]})
+    out = _with({k: v for k, v in report.items() if k != "homogenization"}, d, "warnings", {"assumptions": FIT_ASSUMPTIONS[d]})
+    if "homogenization" in report:
+        out["homogenization"] = report["homogenization"]
+    return out

@@ -8,7 +8,8 @@ common values in first-price sealed-bid auctions, NBER working paper 10105, 2003
 4). Each record is divided by exp((x - x_ref)'gamma), the reference item x_ref being the
 records' mean of each number and the most frequent level of each category, and the
 scaled records are fitted as any others: the model describes the reference item.
-Standard errors are clustered by auction (the bids of one auction share its item).
+The bidder count enters the regression as categories beside the covariates (bids and prices
+rise with it). Standard errors are clustered by auction (the bids of one auction share its item).
 """
 from __future__ import annotations
 
@@ -32,6 +33,11 @@ def _column(auctions, name, i_field):
     numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
     if not numeric and not all(isinstance(v, str) for v in values):
         raise ParameterError(f"covariates.{i_field}", f"{name}: give numbers, or strings (categories), not both")
+    if numeric and not all(math.isfinite(v) and abs(v) <= 1e150 for v in values):
+        bad = next(i for i, v in enumerate(values) if not (math.isfinite(v) and abs(v) <= 1e150))
+        raise ParameterError(f"auctions.{bad}.covariates.{name}", "must be a finite number of at most 1e150 in size")
+    if len(set(values)) < 2:
+        raise ParameterError(f"covariates.{i_field}", f"{name} takes one value in every record: there is nothing to control for")
     return values, numeric
 
 
@@ -81,7 +87,13 @@ def homogenize(auctions, names):
     """(the auctions scaled to the reference item, the homogenization report)."""
     X, labels, reference = _design(auctions, names)
     rows, y = _observations(auctions)
-    Z = np.column_stack((np.ones(len(y)), X[rows]))
+    # The bidder count moves prices and bids too (more rivals, higher bids): its levels enter the
+    # regression, so that a count that goes with a covariate is not read as the covariate's effect.
+    counts = np.array([a["bidders"] for a in auctions])[rows]
+    levels = np.unique(counts)
+    dummies = [(counts == c).astype(float) for c in levels[1:]]
+    Z = np.column_stack((np.ones(len(y)), X[rows], *dummies))
+    k = X.shape[1]
     if len(y) <= Z.shape[1] or np.linalg.matrix_rank(Z) < Z.shape[1]:
         raise ParameterError("covariates", "the covariates cannot be told apart from each other with these records")
     coef, *_ = np.linalg.lstsq(Z, y, rcond=None)
@@ -89,16 +101,16 @@ def homogenize(auctions, names):
     bread = np.linalg.inv(Z.T @ Z)
     meat = sum(np.outer(s, s) for s in (Z[rows == g].T @ resid[rows == g] for g in np.unique(rows)))
     se = np.sqrt(np.maximum(np.diag(bread @ meat @ bread), 0.0))
-    scale = np.exp(X @ coef[1:])
+    scale = np.exp(X @ coef[1:1 + k])
     out = []
-    for a, k in zip(auctions, scale):
+    for a, factor in zip(auctions, scale):
         rec = {key: v for key, v in a.items() if key != "covariates"}
         for key in (*_OBSERVED, "reserve"):
             if rec.get(key) is not None:
-                rec[key] = (np.asarray(rec[key], float) / k).tolist() if key == "bids" else rec[key] / k
+                rec[key] = (np.asarray(rec[key], float) / factor).tolist() if key == "bids" else rec[key] / factor
         out.append(rec)
-    r2 = 1.0 - float(resid @ resid) / float(((y - y.mean()) @ (y - y.mean()))) if np.ptp(y) > 0 else 1.0
+    r2 = max(1.0 - float(resid @ resid) / float(((y - y.mean()) @ (y - y.mean()))), 0.0) if np.ptp(y) > 0 else 1.0
     report = {"coefficients": {lab: {"estimate": float(c), "standard_error": float(s)}
-                               for lab, c, s in zip(labels, coef[1:], se[1:])},
+                               for lab, c, s in zip(labels, coef[1:1 + k], se[1:1 + k])},
               "r_squared": r2, "reference": reference, "method": "log_least_squares_clustered_by_auction"}
     return out, report

@@ -35,8 +35,7 @@ _SQRT_2PI = math.sqrt(2.0 * math.pi)
 
 @dataclass(frozen=True)
 class Inversion:
-    values: np.ndarray  # recovered values (pseudo-values), or the table's values
-    probabilities: np.ndarray | None  # F at ``values`` for a table; None for a sample
+    values: np.ndarray  # recovered values (pseudo-values)
     bandwidth: float | None
     not_increasing: int  # pseudo-values that fall where their bids rise (a warning)
     method: str
@@ -65,6 +64,8 @@ def table_points(xs, cdf):
     """At most MAX_POINTS (F, value) points strictly increasing in both, inside (0, 1)."""
     keep = (cdf > 0.0) & (cdf < 1.0)
     xs, cdf = xs[keep], cdf[keep]
+    if len(xs) == 0:
+        return xs, cdf
     if len(xs) > MAX_POINTS:
         pick = np.unique(np.linspace(0, len(xs) - 1, MAX_POINTS).round().astype(int))
         xs, cdf = xs[pick], cdf[pick]
@@ -122,8 +123,9 @@ def winners_to_cdf(rec):
     return xs, cdf, float(np.mean(width)), falls
 
 
-def bids_to_values(rec):
-    """Pseudo-values from every bid (GPV 2000), per bidder count."""
+def bids_to_values(rec, thin=True):
+    """Pseudo-values from every bid (GPV 2000), per bidder count; ``thin`` keeps at most
+    MAX_POINTS of them (evenly spaced order statistics) for the model."""
     out, widths, falls = [], [], 0
     for n in np.unique(rec.n):
         bids = np.concatenate([b for b, k in zip(rec.bids, rec.n) if k == n])
@@ -133,6 +135,6 @@ def bids_to_values(rec):
         out.append(xi)
         widths.append(h)
     values = np.sort(np.concatenate(out))
-    if len(values) > MAX_POINTS:
+    if thin and len(values) > MAX_POINTS:
         values = values[np.unique(np.linspace(0, len(values) - 1, MAX_POINTS).round().astype(int))]
-    return Inversion(values, None, float(np.mean(widths)), falls, "guerre_perrigne_vuong")
+    return Inversion(values, float(np.mean(widths)), falls, "guerre_perrigne_vuong")

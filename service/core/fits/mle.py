@@ -171,11 +171,17 @@ def _full_fit(family, data, log_likelihood, sign):
     """The full sample's fit: Nelder-Mead from the family's start, then the curvature of -log L
     in the parameters not pinned to a datum (``_pinned``), for the resamples' Newton refits."""
     spec = FITTED[family]
-    fixed = spec.fixed(data) if spec.fixed else {}
-    begin = spec.start(data)
+    if len(data) < 2 or not np.ptp(data) > 0:
+        return None  # one distinct datum: no family's spread can be estimated
+    with np.errstate(all="ignore"):
+        fixed = spec.fixed(data) if spec.fixed else {}
+        begin = spec.start(data)
     free = tuple(k for k in begin if k not in fixed)
     loss = _Objective(family, fixed, free, log_likelihood, sign)
-    theta = loss.theta(begin)
+    try:
+        theta = loss.theta(begin)
+    except (ValueError, OverflowError, ZeroDivisionError):  # a start off the domain (the log of a zero scale)
+        return None
     if not np.all(np.isfinite(theta)) or not math.isfinite(loss(theta)):
         return None
     theta = _optimise(loss, theta)
@@ -195,6 +201,8 @@ def _refit(start, data, log_likelihood, sign):
     """A resample's fit from the full sample's: its pinned parameters at the resample's own
     datum (kept at the same offset), the rest by two Newton steps (``_newton_refit``), or by a
     short Nelder-Mead where those fail."""
+    if len(data) == 0:
+        return None  # a resample with nothing sold
     ends = {"min": float(np.min(data)), "max": float(np.max(data))}
     fixed = {k: v for k, v in start.params.items() if k not in start.free}
     fixed.update({k: ends[end] + offset for k, (end, offset) in start.pinned.items()})

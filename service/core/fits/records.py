@@ -100,6 +100,8 @@ def price_records(auctions, direction):
         if not unsold[i] and n[i] == 1 and not price[i] == reserve[i]:
             raise ParameterError(f"auctions.{i}.price", f"a lone bidder pays the {word} itself: give the {word} as the price")
     at_reserve = ~unsold & (price == reserve)
+    if np.count_nonzero(~unsold) < 2:
+        raise ParameterError("auctions", "at least 2 sold auctions are needed: unsold ones say only that no value beat the reserve")
     return PriceRecords(n, reserve, price, ~unsold & ~at_reserve, at_reserve, unsold)
 
 
@@ -119,6 +121,9 @@ def bid_records(auctions, direction, kind):
             raise ParameterError(f"auctions.{i}.{kind}", "a bid lies " + ("below the reserve" if sign > 0 else "above the maximum price"))
         if a["bidders"] < 2:
             raise ParameterError(f"auctions.{i}.bidders", "a first-price bid says nothing of values without a rival: at least 2")
+        if a.get("reserve") is not None:
+            raise ParameterError(f"auctions.{i}.reserve", "first-price records under a reserve are not offered yet: who stayed "
+                                                          "out is not seen, and ignoring it would misstate the values")
         bids.append(b)
         n.append(float(a["bidders"]))
         reserve.append(r)

@@ -25,8 +25,16 @@ from .records import PriceRecords, records
 
 #: A candidate whose fit check rejects it at this level is not selected.
 REJECT_AT = 0.05
-#: The parametric bootstrap of the fit check refits at most this many simulated data sets.
+#: The parametric bootstrap of the fit check refits at most this many simulated data sets, and at
+#: least this many (below 19 its p-value could never fall under REJECT_AT; 39 lets it reach 0.025).
 CHECK_REPLICATIONS = 99
+MIN_CHECK_REPLICATIONS = 39
+
+
+def check_replications(replications):
+    """How many simulated data sets the fit check refits: none without a bootstrap, else the
+    replications asked for, kept between MIN_CHECK_REPLICATIONS and CHECK_REPLICATIONS."""
+    return 0 if replications == 0 else max(min(replications, CHECK_REPLICATIONS), MIN_CHECK_REPLICATIONS)
 
 
 def _families(asked, data):
@@ -75,10 +83,22 @@ def _table_model(xs, cdf, seen, sign):
         raise ParameterError("auctions", "too few distinct prices or bids to recover a distribution: at least 2")
     pad = (seen.max() - seen.min()) / max(len(seen), 1)
     xs = np.concatenate(([seen.min() - pad], xs, [seen.max() + pad]))
+    _within_reach(xs)
     cdf = np.concatenate(([0.0], cdf, [1.0]))
     if sign > 0:
         return M.QuantileTable([(float(p), float(x)) for p, x in zip(cdf, xs)])
     return M.QuantileTable([(float(1.0 - p), float(-x)) for p, x in zip(cdf[::-1], xs[::-1])])
+
+
+#: The largest magnitude a value model may hold anywhere it is sent (StrictFloat's cap).
+_MAX_MAGNITUDE = 1e150
+
+
+def _within_reach(values):
+    """Refuse recovered values beyond the magnitude every route accepts: the model could not be sent on."""
+    if np.any(np.abs(values) > _MAX_MAGNITUDE):
+        raise ParameterError("auctions", f"the recovered values pass {_MAX_MAGNITUDE:g} in size: a model holding them could "
+                                         "not be sent to any route; rescale the records (thousands, millions)")
 
 
 def _nonparametric(rec, sign):
@@ -94,7 +114,11 @@ def _nonparametric(rec, sign):
         return model, {"method": "guerre_perrigne_vuong_winning_bids", "bandwidth": h, "trimmed": 0, "not_increasing": falls,
                        "fit": _private_values_check(rec)}
     inv = inversion.bids_to_values(rec)
-    model = M.empirical((sign * inv.values).tolist())
+    _within_reach(inv.values)
+    try:
+        model = M.empirical((sign * inv.values).tolist())
+    except ParameterError:
+        raise ParameterError("auctions", "every bid recovers the same value: the bids need some spread") from None
     return model, {"method": inv.method, "bandwidth": inv.bandwidth, "trimmed": 0, "not_increasing": inv.not_increasing,
                    "fit": _private_values_check(rec)}
 
@@ -120,8 +144,9 @@ def _private_values_check(rec):
     a, b = counts[np.argsort(seen)[-2:]]
     if rec.winners_only:  # the winners' values are the highest of n: compare F itself, F_win^(1/n)
         return {"ks_distance": None, "p_value": None}
-    xa = inversion.bids_to_values(rec.take(np.nonzero(rec.n == a)[0])).values
-    xb = inversion.bids_to_values(rec.take(np.nonzero(rec.n == b)[0])).values
+    # every pseudo-value, not the model's thinned sample (evenly spaced order statistics are no sample)
+    xa = inversion.bids_to_values(rec.take(np.nonzero(rec.n == a)[0]), thin=False).values
+    xb = inversion.bids_to_values(rec.take(np.nonzero(rec.n == b)[0]), thin=False).values
     test = stats.ks_2samp(xa, xb)
     return {"ks_distance": float(test.statistic), "p_value": float(test.pvalue)}
 
@@ -222,7 +247,7 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
     rec = records(rule, direction, auctions)
     data = sign * rec.observed
     rng = np.random.default_rng(confidence["seed"])
-    check_reps = min(confidence["replications"], CHECK_REPLICATIONS)
+    check_reps = check_replications(confidence["replications"])
     fits, warnings = _candidates(rec, data, sign, _families(families, data) if isinstance(rec, PriceRecords) else families, check_reps, rng)
     np_model, np_entry = _nonparametric(rec, sign) if nonparametric or not fits else (None, None)
     selected, reason = _selection(fits, np_model is not None)
@@ -245,7 +270,23 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
         out["homogenization"] = homogenization
     if ask is not None:
         out["counterfactual"] = _counterfactual_entry(model, direction, ask, figures, confidence["level"])
-    out["warnings"] = warnings + _inversion_warnings(np_entry)
+    out["warnings"] = warnings + _inversion_warnings(np_entry) + _data_warnings(rec, nonparametric, selected)
+    return out
+
+
+def _data_warnings(rec, nonparametric, selected):
+    """What the records leave unidentified or the request could not have."""
+    out = []
+    if isinstance(rec, PriceRecords):
+        reserves = np.unique(rec.reserve[np.isfinite(rec.reserve)])
+        if len(reserves) > 1:
+            out.append("the reserves differ across the records: the nonparametric model counts a record whose reserve lies "
+                       "above a price as below it, which misstates F where reserves bind; the parametric fits are exact")
+        if selected is None:
+            out.append("values below the lowest price and above the highest are not identified by the prices: the "
+                       "nonparametric model puts that mass within a short distance beyond them")
+    elif not nonparametric:
+        out.append("nonparametric is off, but first-price records have only the nonparametric model: it is given")
     return out
 
 
