@@ -208,6 +208,16 @@ def _post(client, body):
     ({"rule": "second_price", "auctions": [{"bidders": 3, "price": 5.0}, {"bidders": 2, "price": 7.0}],
       "confidence": {"replications": 2001}}, "confidence.replications"),
     ({"rule": "second_price", "auctions": [{"bidders": 3, "price": 5.0}, {"bidders": 2, "sold": False}]}, "auctions.1.sold"),
+    # cases that once answered 500 (common practice, no source: every bad input is a 422 naming its field)
+    ({"rule": "second_price", "auctions": [{"bidders": 3, "price": 5.0}] * 20}, "auctions"),
+    ({"rule": "second_price", "auctions": [{"bidders": 3, "sold": False, "reserve": 9.0}] * 5}, "auctions"),
+    ({"rule": "first_price", "auctions": [{"bidders": 2, "winning_bid": 1.0}] * 2}, "auctions"),
+    ({"rule": "first_price", "auctions": [{"bidders": 3, "bids": [1.0, 1.0, 1.0]}] * 5}, "auctions"),
+    ({"rule": "first_price", "auctions": [{"bidders": 3, "bids": [1.0, 2.0, 3.0], "reserve": 0.5}] * 5}, "auctions.0.reserve"),
+    ({"rule": "second_price", "families": ["normal", "normal"], "auctions": [{"bidders": 3, "price": 5.0}, {"bidders": 2, "price": 7.0}]},
+     "families"),
+    ({"rule": "second_price", "covariates": ["k"], "auctions": [{"bidders": 3, "price": 5.0, "covariates": {"k": 1.0}},
+                                                                {"bidders": 2, "price": 7.0, "covariates": {"k": 1.0}}]}, "covariates.0"),
 ])
 def test_bad_input_names_the_record_and_field(client, body, field):
     r = _post(client, body)
