@@ -113,8 +113,8 @@ def test_maximum_likelihood_agrees_with_scipy(family, dist_of, theta0, true):
 
 def test_lognormal_values_with_a_reserve_are_recovered():
     # 600 seeded auctions, 2-7 bidders, values lognormal(median 100, sigma 0.35), reserve 80:
-    # some unsold, some at the reserve. Tolerance: 5 standard errors of the MLE at this size
-    # (about 2% on the median, 5% on sigma, from the bootstrap below).
+    # some unsold, some at the reserve. Tolerances 5% on the median and 25% on sigma (common
+    # practice, no source), several times the sampling error of 600 prices.
     rng = np.random.default_rng(5)
     auctions = simulate_prices(stats.lognorm(0.35, scale=100.0), rng.integers(2, 8, 600), rng, reserve=80.0)
     assert any(not a.get("sold", True) for a in auctions) and any(a.get("price") == 80.0 for a in auctions)
