@@ -42,22 +42,28 @@ class Inversion:
 
 
 def prices_to_cdf(rec):
-    """(prices, F at them): F recovered at each distinct price paid above the reserve,
-    pooled over the bidder counts (Athey and Haile 2002)."""
+    """(prices, F at them): F recovered at each distinct price paid above its reserve, pooled
+    over the bidder counts (Athey and Haile 2002) by how many auctions of each count tell.
+
+    H_n(x) = P(second-highest <= x) is read only off the auctions whose reserve is at most x:
+    there a price above the reserve is the second-highest value, and an unsold or at-reserve
+    auction's second-highest lies below its reserve, so below x. Of those auctions, the ones
+    with second-highest at most x are those whose max(price, reserve) is at most x; so
+    H_n(x) = #(max(price, reserve) <= x) / #(reserve <= x), two sorted counts."""
     xs = np.unique(rec.price[rec.above])
-    total = np.zeros(xs.shape)
-    counts = np.unique(rec.n[rec.n >= 2])
-    weight = 0.0
-    for n in counts:
+    total, weight = np.zeros(xs.shape), np.zeros(xs.shape)
+    for n in np.unique(rec.n[rec.n >= 2]):
         mine = rec.n == n
-        # P(price <= x) counts every record of this n whose second-highest value is at most x:
-        # unsold and at-reserve records (their second-highest lies below the reserve) below any
-        # price above the reserve. Only reserves below every price keep that exact.
-        seen = np.sort(np.where(rec.above[mine], rec.price[mine], -math.inf))
-        h = np.searchsorted(seen, xs, side="right") / len(seen)
-        total += mine.sum() * sp.betaincinv(n - 1.0, 2.0, np.clip(h, 0.0, 1.0))
-        weight += mine.sum()
-    return xs, np.maximum.accumulate(total / weight)
+        reserve = rec.reserve[mine]
+        top = np.sort(np.where(rec.above[mine], rec.price[mine], reserve))  # max(price, reserve) by record
+        told = np.searchsorted(np.sort(reserve), xs, side="right").astype(float)  # auctions with reserve <= x
+        with np.errstate(invalid="ignore", divide="ignore"):
+            h = np.searchsorted(top, xs, side="right") / told
+        f = sp.betaincinv(n - 1.0, 2.0, np.clip(np.where(told > 0, h, 0.0), 0.0, 1.0))
+        total += told * f
+        weight += told
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return xs, np.maximum.accumulate(np.where(weight > 0, total / np.maximum(weight, 1.0), 0.0))
 
 
 def table_points(xs, cdf):

@@ -278,10 +278,6 @@ def _data_warnings(rec, nonparametric, selected):
     """What the records leave unidentified or the request could not have."""
     out = []
     if isinstance(rec, PriceRecords):
-        reserves = np.unique(rec.reserve[np.isfinite(rec.reserve)])
-        if len(reserves) > 1:
-            out.append("the reserves differ across the records: the nonparametric model counts a record whose reserve lies "
-                       "above a price as below it, which misstates F where reserves bind; the parametric fits are exact")
         if selected is None:
             out.append("values below the lowest price and above the highest are not identified by the prices: the "
                        "nonparametric model puts that mass within a short distance beyond them")
