@@ -41,8 +41,9 @@ def _column(auctions, name, i_field):
     return values, numeric
 
 
-def _design(auctions, names):
-    """(the columns of x - x_ref, their names, the reference item)."""
+def _design(auctions, names, given=None):
+    """(the columns of x - x_ref, their names, the reference item): the records' own reference
+    item, or ``given`` (a bootstrap resample keeps the full sample's item and levels)."""
     cols, labels, reference = [], [], {}
     for j, name in enumerate(names):
         logged = name.startswith("log(") and name.endswith(")")
@@ -54,13 +55,14 @@ def _design(auctions, names):
                 if np.any(x <= 0):
                     raise ParameterError(f"covariates.{j}", f"{key}: a logged covariate must be positive")
                 x = np.log(x)
-            reference[name] = float(np.mean(x)) if not logged else float(math.exp(np.mean(x)))
-            cols.append(x - np.mean(x))
+            centre = np.mean(x) if given is None else (math.log(given[name][0]) if logged else given[name][0])
+            reference[name] = (float(centre) if not logged else float(math.exp(centre)), None)
+            cols.append(x - centre)
             labels.append(name)
         else:
             levels, counts = np.unique(values, return_counts=True)
-            base = str(levels[np.argmax(counts)])
-            reference[name] = base
+            base, levels = (str(levels[np.argmax(counts)]), levels) if given is None else given[name]
+            reference[name] = (base, levels)
             for level in levels:
                 if str(level) != base:
                     cols.append(np.array([v == level for v in values], float))
@@ -83,9 +85,10 @@ def _observations(auctions):
     return np.array(rows, int), np.array(ys)
 
 
-def homogenize(auctions, names):
-    """(the auctions scaled to the reference item, the homogenization report)."""
-    X, labels, reference = _design(auctions, names)
+def homogenize(auctions, names, reference=None):
+    """(the auctions scaled to the reference item, the homogenization report); ``reference`` (a
+    report's ``_reference``) holds a resample to the full sample's item."""
+    X, labels, reference = _design(auctions, names, reference)
     rows, y = _observations(auctions)
     # The bidder count moves prices and bids too (more rivals, higher bids): its levels enter the
     # regression, so that a count that goes with a covariate is not read as the covariate's effect.
@@ -112,5 +115,6 @@ def homogenize(auctions, names):
     r2 = max(1.0 - float(resid @ resid) / float(((y - y.mean()) @ (y - y.mean()))), 0.0) if np.ptp(y) > 0 else 1.0
     report = {"coefficients": {lab: {"estimate": float(c), "standard_error": float(s)}
                                for lab, c, s in zip(labels, coef[1:1 + k], se[1:1 + k])},
-              "r_squared": r2, "reference": reference, "method": "log_least_squares_clustered_by_auction"}
+              "r_squared": r2, "reference": {k: v[0] for k, v in reference.items()},
+              "method": "log_least_squares_clustered_by_auction", "_reference": reference}
     return out, report

@@ -176,14 +176,34 @@ def _refit_all(rec, fits, sign, nonparametric):
     return out
 
 
-def _bootstrap(rec, fits, sign, confidence, selected, direction, ask):
-    """Per candidate, each parameter's draws; the selected model's counterfactual draws."""
+def _resampler(rec, rule, direction, auctions, covariates, reference):
+    """rng -> one bootstrap resample's records: whole auctions drawn with replacement; with
+    covariates, the scaling estimated again on each resample, so that the intervals carry its
+    uncertainty too."""
+    if not covariates:
+        return lambda rng: rec.take(rng.integers(0, len(rec.n), len(rec.n)))
+
+    def draw(rng):
+        picked = [auctions[i] for i in rng.integers(0, len(auctions), len(auctions))]
+        return records(rule, direction, homogenize(picked, list(covariates), reference)[0])
+    return draw
+
+
+def _bootstrap(draw, fits, sign, confidence, selected, direction, ask):
+    """Per candidate, each parameter's draws; the selected model's counterfactual draws. A
+    resample that cannot be fitted (a covariate with one value in it) counts as a failed draw."""
     rng = np.random.default_rng(confidence["seed"])
     params = {f.family: {k: [] for k in f.free} for f in fits}
     figures = {}
     for _ in range(confidence["replications"]):
         budget.check()
-        sample = rec.take(rng.integers(0, len(rec.n), len(rec.n)))
+        try:
+            sample = draw(rng)
+        except ParameterError:
+            for f in fits:
+                for k in f.free:
+                    params[f.family][k].append(None)
+            continue
         models = _refit_all(sample, fits, sign, selected is None)
         for f in fits:
             got = models.get(f.family)
@@ -241,9 +261,10 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
     counterfactuals; with ``covariates``, for the reference item the records are scaled to."""
     confidence = {"level": 0.9, "replications": 200, "seed": 0, **(confidence or {})}
     sign = 1.0 if direction == "forward" else -1.0
-    homogenization = None
+    homogenization, raw, reference = None, auctions, None
     if covariates:
         auctions, homogenization = homogenize(auctions, list(covariates))
+        reference = homogenization.pop("_reference")
     rec = records(rule, direction, auctions)
     data = sign * rec.observed
     rng = np.random.default_rng(confidence["seed"])
@@ -254,7 +275,8 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
     model = next(f.model for f, _ in fits if f.family == selected) if selected else np_model
     ask = None if counterfactual is None else {"rules": ["first_price", "second_price"], **counterfactual}
     params, figures = ({}, {}) if confidence["replications"] == 0 else \
-        _bootstrap(rec, [f for f, _ in fits], sign, confidence, selected, direction, ask)
+        _bootstrap(_resampler(rec, rule, direction, raw, covariates, reference), [f for f, _ in fits], sign, confidence,
+                   selected, direction, ask)
     out = {
         "direction": direction,
         "rule": rule,
