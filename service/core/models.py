@@ -158,6 +158,9 @@ class ValueModel:
     upper_tail_index = INF
     lower_tail_index = INF
     discrete = False
+    #: A step model's equally likely atoms (sorted) and their number; a continuous model has none.
+    atoms = None
+    N = 0
     #: Whether ppf/isf are closed forms (cheap enough to probe the tails with).
     cheap_quantiles = True
     #: Whether ``closed_rank_moments`` goes through log-gamma ratios (their rounding grows with log n).
