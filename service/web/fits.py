@@ -24,6 +24,12 @@ _SECONDS_PER_INVERSION = 4e-3
 #: Seconds per replicate's counterfactual figures (the second-price route and the reserve
 #: search under a kernel model of 400 points, the slowest a fit selects; about 0.025 s).
 _SECONDS_PER_COUNTERFACTUAL = 0.03
+#: Seconds per evaluation of first-price bids' likelihood and per bidder count in the records
+#: (a grid of equilibrium bids and two splines, about 1 ms on one CPU, more for a family whose
+#: quantiles are not closed forms); evaluations per full fit, and per refit (Newton steps).
+_SECONDS_PER_BID_COUNT = 1.2e-3
+_BID_FIT_EVALUATIONS = 500
+_BID_REFIT_EVALUATIONS = 15
 #: The most bootstrap replications a request may ask for.
 MAX_REPLICATIONS = 2000
 
@@ -82,12 +88,19 @@ class FitRequest(Schema):
 def _admit(req):
     """Refuse, before the work, a fit whose bootstrap would run past the time budget."""
     conf = req["confidence"]
-    families = len(req["families"] or mle.FITTED) if req["rule"] != "first_price" else 0
     refits = conf["replications"] + check_replications(conf["replications"])
     records = sum(len(a["bids"]) if a.get("bids") else 1 for a in req["auctions"])
-    seconds = (_SECONDS_PER_REFIT + _SECONDS_PER_RECORD_REFIT * records) * (families * refits + 50)
-    if req["rule"] == "first_price":  # each replicate inverts every bid again (a kernel sum over a grid)
-        seconds += (_SECONDS_PER_INVERSION + _SECONDS_PER_BID_INVERSION * records) * (1 + conf["replications"])
+    if req["rule"] == "first_price":
+        # each replicate inverts every bid again (a kernel sum over a grid); each family named
+        # evaluates the bids' likelihood per bidder count
+        counts = len({a["bidders"] for a in req["auctions"]})
+        evaluations = len(req["families"] or ()) * (_BID_FIT_EVALUATIONS + _BID_REFIT_EVALUATIONS * refits)
+        seconds = (_SECONDS_PER_INVERSION + _SECONDS_PER_BID_INVERSION * records) * (1 + conf["replications"]) \
+            + _SECONDS_PER_BID_COUNT * counts * evaluations
+        families = len(req["families"] or ())
+    else:
+        families = len(req["families"] or mle.FITTED)
+        seconds = (_SECONDS_PER_REFIT + _SECONDS_PER_RECORD_REFIT * records) * (families * refits + 50)
     if req["counterfactual"] is not None:
         seconds += _SECONDS_PER_COUNTERFACTUAL * conf["replications"]
     if seconds > caps().seconds:

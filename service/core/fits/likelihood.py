@@ -1,5 +1,6 @@
-"""The log-likelihood of prices of second-price and ascending auctions under a value model
-(forward twin), and the prices' probability integral transforms for the fit check.
+"""The log-likelihood of past auctions under a value model (forward twin): prices of
+second-price and ascending auctions, and bids of first-price ones; with their probability
+integral transforms for the fit check.
 
 With n independent values from F, the price is the second-highest value X(n-1:n) when it
 is above the reserve r: density n(n-1) F^(n-2) (1 - F) f; it is r itself when one value
@@ -10,9 +11,13 @@ Identification of standard auction models, Econometrica 70(6), 2002, section 3).
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
-from scipy import special as sp
+from scipy import interpolate, special as sp
+
+from ..auction import ForwardAuction, neg_log_cdf
+from .records import BidRecords
 
 
 def _times(k, log_p):
@@ -50,3 +55,137 @@ def price_transforms(model, rec):
     with np.errstate(divide="ignore", invalid="ignore"):
         u = (h_p - h_r) / (1.0 - h_r)
     return np.clip(np.where(np.isfinite(u), u, 1.0), 0.0, 1.0)
+
+
+# First-price bids. The symmetric equilibrium bid b = beta(v) solves the first-order condition
+# beta'(v) = (n - 1) (f(v) / F(v)) (v - beta(v)) (Krishna, Auction Theory, 2nd ed., 2009, ch. 2), so
+# a bid's density g(b) = f(v) / beta'(v) = F(v) / ((n - 1) (v - beta(v))) at v = beta^-1(b): the
+# likelihood of the bids through the bid function (Donald and Paarsch, Piecewise pseudo-maximum
+# likelihood estimation in empirical models of auctions, International Economic Review 34(1), 1993).
+# It is zero for a bid above the top bid beta(upper): the bids' support moves with the parameters.
+
+#: Points of the fine grid of exact bids that the spline runs through.
+_GRID = 160
+#: The grid stops where F = e^-700: below that no double bid is told apart from the bottom of the support.
+_S_FLOOR = 700.0
+#: Points of the coarse grid that finds where the bids' values lie.
+_COARSE = 24
+
+
+@dataclass(frozen=True)
+class BidInverse:
+    """Where bids of an n-bidder first-price auction sit under a model: s = -log F(v) at
+    v = beta^-1(b), and each bid's log density log g(b) (nan and -inf where no value bids b)."""
+
+    s: np.ndarray
+    log_density: np.ndarray
+
+
+def _bid_curves(auc, n, s_grid):
+    """(log s, log g) as functions of the bid, through the exact equilibrium bids at ``s_grid``
+    (descending, so bids rise): cubic Hermite splines with the first-order condition's slopes,
+    v' = dv/db = F / ((n - 1) f (v - beta)), d log s / db = -f v' / (F s) = -1 / ((n - 1) s (v - beta))
+    and d log g / db = (n / (n - 1) - v') / (v - beta); with the bids there. None with fewer than 2 points."""
+    beta = auc.bids.at_s(s_grid)
+    v = auc.model.value_at(np.exp(-s_grid), -np.expm1(-s_grid))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        shade = v - beta
+        dv = np.exp(-s_grid - np.log(auc.model.pdf(v))) / ((n - 1.0) * shade)
+        d_log_s = -1.0 / ((n - 1.0) * s_grid * shade)
+        log_g = -s_grid - math.log(n - 1.0) - np.log(shade)
+        d_log_g = (n / (n - 1.0) - dv) / shade
+    ok = np.isfinite(beta) & np.isfinite(d_log_s) & np.isfinite(log_g) & np.isfinite(d_log_g) & (shade > 0)
+    beta = beta[ok]
+    rising = beta > np.concatenate(([-math.inf], np.maximum.accumulate(beta)[:-1]))
+    if np.count_nonzero(rising) < 2:
+        return None
+    at = np.nonzero(ok)[0][rising]
+    return (interpolate.CubicHermiteSpline(beta[rising], np.log(s_grid[at]), d_log_s[at], extrapolate=False),
+            interpolate.CubicHermiteSpline(beta[rising], log_g[at], d_log_g[at], extrapolate=False), beta[rising])
+
+
+def _stretch(model, n, auc, b):
+    """(s_top, s_low): a stretch of s = -log F that holds every bid's value, each end a continuous
+    function of the parameters (so the likelihood moves smoothly with them): s_low = -log F at
+    the lowest bid (its value lies above it), capped at _S_FLOOR; s_top a quarter of the highest
+    bid's s read off a coarse grid of exact bids (1e-14 where that bid is beyond the grid)."""
+    lowest, highest = float(np.min(b)), float(np.max(b))
+    s_low = min(_S_FLOOR, neg_log_cdf(model, lowest)) if lowest > model.lower else _S_FLOOR
+    s_low = max(s_low, 1e-12)
+    coarse = np.geomspace(s_low, 1e-14, _COARSE)
+    beta = auc.bids.at_s(coarse)
+    if not highest < beta[-1]:
+        return 1e-14, s_low
+    return max(0.25 * math.exp(float(np.interp(highest, beta, np.log(coarse)))), 1e-14), s_low
+
+
+def invert_bids(model, n, b):
+    """``BidInverse`` of bids b (forward twin) with n >= 2 bidders. Exact equilibrium bids on a
+    grid over the stretch of s = -log F that holds the bids' values (``_stretch``; even in log s
+    where F is near 1, even in s where it is not) carry cubic Hermite splines of log s and log g
+    in the bid (``_bid_curves``), so the cost does not grow with the bids. A bid above the top
+    bid beta(upper), or below the bottom of the values, has no value. At the bottom of a bounded
+    support beta'(low) = (n - 1) / n, so g(low) = n f(low) / (n - 1)."""
+    auc = ForwardAuction(model, int(n))
+    s_top, s_low = _stretch(model, n, auc, b)
+    grid = np.unique(np.concatenate((np.geomspace(s_top, s_low, _GRID), np.linspace(s_top, s_low, _GRID))))[::-1]
+    if s_top == 1e-14:
+        grid = np.append(grid, 0.0)
+    curves = _bid_curves(auc, n, grid)
+    bottom = b == model.lower
+    s = np.full(b.shape, math.nan)
+    s[bottom] = math.inf
+    log_g = np.full(b.shape, -math.inf)
+    if curves is None:
+        return BidInverse(s, log_g)
+    log_s, log_density, grid_beta = curves
+    # a bid within rounding of the grid's ends (a fit whose top bid is the highest bid) is at that end
+    reach = 1e-12 * (abs(grid_beta[0]) + abs(grid_beta[-1]))
+    at = np.clip(b, grid_beta[0], grid_beta[-1])
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        move = ~bottom & (b >= grid_beta[0] - reach) & (b <= grid_beta[-1] + reach)
+        s[move] = np.exp(log_s(at[move]))
+        log_g[move] = log_density(at[move])
+        if bottom.any():
+            log_g[bottom] = math.log(n / (n - 1.0)) + math.log(float(model.pdf(np.array(model.lower))))
+    return BidInverse(s, np.where(np.isnan(log_g), -math.inf, log_g))
+
+
+def bid_log_likelihood(model, rec):
+    """Sum over the auctions of the log density of their bids: every bid's log g (all bids), or
+    the highest bid's log of n G^(n-1) g (winning bids alone); -inf where a bid has no value."""
+    total = 0.0
+    for n, b in rec.by_count.items():
+        inv = invert_bids(model, n, b)
+        logs = inv.log_density
+        if rec.winners_only:
+            with np.errstate(invalid="ignore"):
+                logs = math.log(n) - (n - 1.0) * inv.s + logs
+        total += float(np.sum(logs))
+        if not math.isfinite(total):
+            return -math.inf
+    return total
+
+
+def bid_transforms(model, rec):
+    """Each bid through the distribution the model implies for it, G(b) = F(beta^-1(b)) (the
+    highest bid's G^n for winning bids alone): uniform on [0, 1] when the model is right."""
+    out = []
+    for n, b in rec.by_count.items():
+        s = invert_bids(model, n, b).s
+        with np.errstate(invalid="ignore", over="ignore"):
+            u = np.exp(-(n if rec.winners_only else 1.0) * s)
+        # a bid no value makes (never so at a fitted optimum) sits at the end it lies beyond
+        reached = b[~np.isnan(u)]
+        out.append(np.where(np.isnan(u), np.where(b > (reached.max() if len(reached) else -math.inf), 1.0, 0.0), u))
+    return np.clip(np.concatenate(out), 0.0, 1.0) if out else np.empty(0)
+
+
+def log_likelihood(model, rec):
+    """The records' log-likelihood under a forward-twin model: prices or bids."""
+    return bid_log_likelihood(model, rec) if isinstance(rec, BidRecords) else price_log_likelihood(model, rec)
+
+
+def transforms(model, rec):
+    """The records' probability integral transforms under a forward-twin model, for the fit check."""
+    return bid_transforms(model, rec) if isinstance(rec, BidRecords) else price_transforms(model, rec)

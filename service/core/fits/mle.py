@@ -3,8 +3,9 @@
 Each family is fitted in its declared parameters (``ValueModel.parameters``): a positive
 parameter through its logarithm, others as they are, from a start read off the data. A
 reverse case fits the cost model C as the forward model of -C (``models.Reflected``).
-Nelder-Mead, restarted once from its own optimum (a standard guard against a simplex
-that collapsed early; Nelder and Mead, The Computer Journal 7(4), 1965), with tolerances
+Nelder-Mead, restarted from its own optimum (a standard guard against a simplex that
+collapsed early; Nelder and Mead, The Computer Journal 7(4), 1965) or, where a parameter
+went to a datum, with that parameter set there (``_snapped``), with tolerances
 far below the sampling error; a bootstrap refit takes two Newton steps from the full
 sample's optimum instead (``_newton_refit``).
 """
@@ -113,8 +114,9 @@ class _Objective:
 
 
 def _steps(theta):
-    """Central-difference steps in each coordinate of theta: 1e-4 of its size, at least 1e-4."""
-    return 1e-4 * np.maximum(np.abs(theta), 1.0)
+    """Central-difference steps in each coordinate of theta: 1e-5 of its size, at least 1e-5 (a
+    first-price fit can sit near the top bid, where -log L climbs steeply on one side)."""
+    return 1e-5 * np.maximum(np.abs(theta), 1.0)
 
 
 def _gradient(loss, theta, h):
@@ -146,15 +148,25 @@ def _newton_refit(loss, start):
         step = start.curvature @ _gradient(loss, theta, _steps(theta))
         if not np.all(np.isfinite(step)):
             return None
+        # halved where the step leaves some datum without likelihood (past a first-price top bid)
+        for _ in range(_HALVINGS):
+            if math.isfinite(loss(theta - step)):
+                break
+            step = 0.5 * step
         theta = theta - step
     return theta if math.isfinite(loss(theta)) else None
 
 
-def _optimise(loss, theta, precise=True):
-    """Nelder-Mead to far below the sampling error, restarted once; a resample's refit (which
-    starts at the full sample's optimum) to 1e-6 of its parameters, within 300 evaluations."""
-    tol = {"xatol": 1e-10, "fatol": 1e-11, "maxfev": 8000} if precise else {"xatol": 1e-6, "fatol": 1e-8, "maxfev": 300}
-    for _ in range(2 if precise else 1):
+#: How often a Newton step of a refit is halved before the refit falls back to Nelder-Mead.
+_HALVINGS = 4
+
+
+def _optimise(loss, theta, precise=True, rounds=2, maxfev=1500):
+    """Nelder-Mead to far below the sampling error, in ``rounds`` (a restart from the last
+    optimum); a resample's refit (which starts at the full sample's optimum) to 1e-6 of its
+    parameters, within 300 evaluations."""
+    tol = {"xatol": 1e-10, "fatol": 1e-11, "maxfev": maxfev} if precise else {"xatol": 1e-6, "fatol": 1e-8, "maxfev": 300}
+    for _ in range(rounds if precise else 1):
         budget.check()
         theta = optimize.minimize(loss, theta, method="Nelder-Mead", options=tol).x
     return theta
@@ -165,6 +177,46 @@ def _pinned(values, data):
     end, where the likelihood stops rather than turns), each with its end and its offset from it."""
     ends = {"min": float(np.min(data)), "max": float(np.max(data))}
     return {k: (end, v - x) for k, v in values.items() for end, x in ends.items() if abs(v - x) <= 1e-9 * max(abs(x), 1e-300)}
+
+
+#: Where a family's start leaves some datum without likelihood (a first-price bid above the
+#: highest bid the start allows), the start is read off the data stretched away from their
+#: lowest point by these factors in turn.
+START_STRETCH = (1.5, 2.5, 4.0, 8.0)
+
+
+def _feasible_start(loss, spec, data):
+    """theta where every datum has a positive likelihood: the family's start from the data,
+    else from the data stretched (START_STRETCH); None where none is."""
+    lo = float(np.min(data))
+    for c in (1.0,) + START_STRETCH:
+        with np.errstate(all="ignore"):
+            begin = spec.start(lo + c * (data - lo))
+        try:
+            theta = loss.theta({k: begin[k] for k in loss.free})
+        except (ValueError, OverflowError, ZeroDivisionError):  # a start off the domain (the log of a zero scale)
+            continue
+        if np.all(np.isfinite(theta)) and math.isfinite(loss(theta)):
+            return theta
+    return None
+
+
+def _snapped(family, fixed, free, values, best, data, log_likelihood, sign):
+    """The optimum (None where it is not better) with each parameter the optimiser left within 1e-4 of the data's spread from
+    the lowest or highest datum set at that datum, the rest optimised again, where that is no
+    worse: an optimum at a support's end (the uniform's ends at the lowest bid and the top
+    value the highest bid needs) is a corner that Nelder-Mead nears only slowly."""
+    ends = (float(np.min(data)), float(np.max(data)))
+    near = {k: e for k in free for e in ends if 0.0 < abs(values[k] - e) <= 1e-4 * _spread(data)}
+    if not near:
+        return None
+    rest = tuple(k for k in free if k not in near)
+    loss = _Objective(family, {**fixed, **near}, rest, log_likelihood, sign)
+    theta = loss.theta(values)
+    if not math.isfinite(loss(theta)):
+        return None
+    theta = _optimise(loss, theta) if rest else theta
+    return {**values, **near, **loss.values(theta)} if loss(theta) <= best else None
 
 
 def _full_fit(family, data, log_likelihood, sign):
@@ -178,17 +230,18 @@ def _full_fit(family, data, log_likelihood, sign):
         begin = spec.start(data)
     free = tuple(k for k in begin if k not in fixed)
     loss = _Objective(family, fixed, free, log_likelihood, sign)
-    try:
-        theta = loss.theta(begin)
-    except (ValueError, OverflowError, ZeroDivisionError):  # a start off the domain (the log of a zero scale)
+    theta = _feasible_start(loss, spec, data)
+    if theta is None:
         return None
-    if not np.all(np.isfinite(theta)) or not math.isfinite(loss(theta)):
-        return None
-    theta = _optimise(loss, theta)
+    theta = _optimise(loss, theta, rounds=1, maxfev=300)  # far enough to see whether a parameter goes to a datum
     best = loss(theta)
     if not math.isfinite(best):
         return None
-    values = loss.values(theta)
+    values = _snapped(family, fixed, free, loss.values(theta), best, data, log_likelihood, sign)
+    if values is None:  # the restart, where no parameter went to a datum
+        values = loss.values(_optimise(loss, theta, rounds=1))
+    theta = loss.theta(values)
+    best = loss(theta)
     pinned = _pinned(values, data)
     inner = _Objective(family, {**fixed, **{k: values[k] for k in pinned}}, tuple(k for k in free if k not in pinned),
                        log_likelihood, sign)
@@ -209,6 +262,8 @@ def _refit(start, data, log_likelihood, sign):
     free = tuple(k for k in start.free if k not in start.pinned)
     loss = _Objective(start.family, fixed, free, log_likelihood, sign)
     theta = _newton_refit(loss, start) if start.curvature is not None else None
+    if theta is None and not free:
+        theta = np.empty(0)  # every parameter at a datum of the resample's
     if theta is None:
         begin = loss.theta(start.params)
         if not math.isfinite(loss(begin)):

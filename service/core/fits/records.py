@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -41,6 +42,11 @@ class PriceRecords:
         """Every price that was paid, as a flat array (forward twin)."""
         return self.price[~self.unsold]
 
+    @property
+    def start_values(self):
+        """The values a fit starts from and pins a support's end to: the prices themselves."""
+        return self.observed
+
 
 @dataclass(frozen=True)
 class BidRecords:
@@ -58,6 +64,20 @@ class BidRecords:
     @property
     def observed(self):
         return np.concatenate(self.bids) if self.bids else np.empty(0)
+
+    @cached_property
+    def by_count(self):
+        """{n: every bid of the n-bidder auctions, flat}: what the likelihood takes per bidder count."""
+        return {float(n): np.concatenate([b for b, k in zip(self.bids, self.n) if k == n]) for n in np.unique(self.n)}
+
+    @property
+    def start_values(self):
+        """The values the bids would come from if values were uniform from the lowest bid up,
+        v = lo + n (b - lo) / (n - 1) (Krishna, Auction Theory, 2009, ch. 2): where a fit starts,
+        and the ends a support parameter is pinned to (the lowest bid, and for uniform values the
+        top value that the highest bid needs)."""
+        lo = float(np.min(self.observed))
+        return np.concatenate([lo + n * (b - lo) / (n - 1.0) for b, n in zip(self.bids, self.n)])
 
 
 def _kind(rule, auctions):

@@ -20,8 +20,8 @@ from ..topvalues import finite
 from . import inversion, mle, simulate
 from .counterfactual import counterfactual_figures
 from .covariates import homogenize
-from .likelihood import price_log_likelihood, price_transforms
-from .records import PriceRecords, records
+from .likelihood import log_likelihood, transforms
+from .records import BidRecords, PriceRecords, records
 
 #: A candidate whose fit check rejects it at this level is not selected.
 REJECT_AT = 0.05
@@ -37,10 +37,12 @@ def check_replications(replications):
     return 0 if replications == 0 else max(min(replications, CHECK_REPLICATIONS), MIN_CHECK_REPLICATIONS)
 
 
-def _families(asked, data):
-    """The families to try: those asked (each must hold the data), or every one that does."""
+def _families(asked, data, rec):
+    """The families to try: those asked (each must hold the data), or every one that does
+    (for first-price bids, none unless asked: each evaluation of their likelihood solves the
+    equilibrium bids afresh, too slow to try every family within a request's time)."""
     if asked is None:
-        return [f for f in mle.FITTED if mle.applicable(f, data)]
+        return [] if isinstance(rec, BidRecords) else [f for f in mle.FITTED if mle.applicable(f, data)]
     for i, f in enumerate(asked):
         if f not in mle.FITTED:
             raise ParameterError(f"families.{i}", f"one of {', '.join(mle.FITTED)}")
@@ -60,17 +62,17 @@ def _fit_check(fit, rec, data, sign, rng, replications):
     goodness-of-fit tests, Metrika 40, 1993); without replications, Kolmogorov's asymptotic
     p-value, which ignores the estimation (too large)."""
     twin = M.Reflected(fit.model) if sign < 0 else fit.model
-    d = _ks(price_transforms(twin, rec))
+    d = _ks(transforms(twin, rec))
     if replications == 0:
-        return d, float(stats.kstest(price_transforms(twin, rec), "uniform").pvalue)
+        return d, float(stats.kstest(transforms(twin, rec), "uniform").pvalue)
     beyond = 0
     for _ in range(replications):
         budget.check()
-        sim = simulate.price_records_like(twin, rec, rng)
-        refit = mle.fit_family(fit.family, sign * sim.observed, lambda m: price_log_likelihood(m, sim), sign, fit)
+        sim = simulate.records_like(twin, rec, rng)
+        refit = mle.fit_family(fit.family, sign * sim.start_values, lambda m: log_likelihood(m, sim), sign, fit)
         if refit is None:
             continue
-        beyond += _ks(price_transforms(M.Reflected(refit.model) if sign < 0 else refit.model, sim)) >= d
+        beyond += _ks(transforms(M.Reflected(refit.model) if sign < 0 else refit.model, sim)) >= d
     return d, (1.0 + beyond) / (1.0 + replications)
 
 
@@ -107,7 +109,7 @@ def _nonparametric(rec, sign):
         model = _table_model(*inversion.prices_to_cdf(rec), rec.price[rec.above], sign)
         twin = M.Reflected(model) if sign < 0 else model
         return model, {"method": "athey_haile", "bandwidth": None, "trimmed": 0,
-                       "fit": _counts_agree(price_transforms(twin, rec), rec.n[rec.above])}
+                       "fit": _counts_agree(transforms(twin, rec), rec.n[rec.above])}
     if rec.winners_only:
         xs, cdf, h, falls = inversion.winners_to_cdf(rec)
         model = _table_model(xs, cdf, xs, sign)
@@ -163,10 +165,10 @@ def _interval(draws, level):
 
 def _refit_all(rec, fits, sign, nonparametric):
     """One bootstrap replicate's models: each candidate refitted (warm), and the inversion."""
-    data = sign * rec.observed
+    data = sign * rec.start_values
     out = {}
     for fit in fits:
-        ll = (lambda r: lambda m: price_log_likelihood(m, r))(rec)
+        ll = (lambda r: lambda m: log_likelihood(m, r))(rec)
         out[fit.family] = mle.fit_family(fit.family, data, ll, sign, fit)
     if nonparametric:
         try:
@@ -225,14 +227,12 @@ def _bootstrap(draw, fits, sign, confidence, selected, direction, ask):
 
 def _candidates(rec, data, sign, families, check_reps, rng):
     """The parametric fits, best AIC first, each with its fit check; with the warnings."""
-    if not isinstance(rec, PriceRecords):
-        return [], ["no parametric family was fitted: maximum likelihood of first-price bids is not offered yet; "
-                    "the model is the nonparametric one"] if families else []
     fits, warnings = [], []
     for family in families:
-        fit = mle.fit_family(family, data, lambda m: price_log_likelihood(m, rec), sign)
+        fit = mle.fit_family(family, data, lambda m: log_likelihood(m, rec), sign)
         if fit is None:
-            warnings.append(f"{family}: no parameter value gives these prices a positive likelihood; not a candidate")
+            what = "prices" if isinstance(rec, PriceRecords) else "bids"
+            warnings.append(f"{family}: no parameter value gives these {what} a positive likelihood; not a candidate")
             continue
         fits.append((fit, _fit_check(fit, rec, data, sign, rng, check_reps)))
     fits.sort(key=lambda pair: pair[0].aic)
@@ -266,10 +266,10 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
         auctions, homogenization = homogenize(auctions, list(covariates))
         reference = homogenization.pop("_reference")
     rec = records(rule, direction, auctions)
-    data = sign * rec.observed
+    data = sign * rec.start_values
     rng = np.random.default_rng(confidence["seed"])
     check_reps = check_replications(confidence["replications"])
-    fits, warnings = _candidates(rec, data, sign, _families(families, data) if isinstance(rec, PriceRecords) else families, check_reps, rng)
+    fits, warnings = _candidates(rec, data, sign, _families(families, data, rec), check_reps, rng)
     np_model, np_entry = _nonparametric(rec, sign) if nonparametric or not fits else (None, None)
     selected, reason = _selection(fits, np_model is not None)
     model = next(f.model for f, _ in fits if f.family == selected) if selected else np_model
@@ -303,8 +303,10 @@ def _data_warnings(rec, nonparametric, selected):
         if selected is None:
             out.append("values below the lowest price and above the highest are not identified by the prices: the "
                        "nonparametric model puts that mass within a short distance beyond them")
-    elif not nonparametric:
-        out.append("nonparametric is off, but first-price records have only the nonparametric model: it is given")
+    elif selected is not None:
+        out.append("the highest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
+                   "(Donald and Paarsch 1993): a fit may sit where that top meets the highest bid, and there the "
+                   "bootstrap's intervals can run narrow")
     return out
 
 

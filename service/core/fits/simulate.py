@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .records import PriceRecords
+from ..auction import ForwardAuction
+from .records import BidRecords, PriceRecords
 
 
 def draw_values(model, n, rng):
@@ -31,3 +32,24 @@ def price_records_like(model, rec, rng):
         price[rows] = np.where(over, second, np.where(sold, r, np.nan))
         above[rows], at_reserve[rows] = over, sold & ~over
     return PriceRecords(rec.n, rec.reserve, price, above, at_reserve, ~(above | at_reserve))
+
+
+def bid_records_like(model, rec, rng):
+    """``BidRecords`` with rec's counts and fresh values bid at the symmetric first-price
+    equilibrium (every bid, or the winner's alone, as rec holds)."""
+    bids = [None] * len(rec.n)
+    for n in np.unique(rec.n):
+        rows = np.nonzero(rec.n == n)[0]
+        k = int(n)
+        v = draw_values(model, len(rows) * k, rng).reshape(len(rows), k)
+        b = ForwardAuction(model, k).bids.at_s(model.neg_log_cdf(v))
+        if rec.winners_only:
+            b = b.max(axis=1, keepdims=True)
+        for i, row in enumerate(rows):
+            bids[row] = b[i]
+    return BidRecords(rec.n, rec.reserve, tuple(bids), rec.winners_only)
+
+
+def records_like(model, rec, rng):
+    """Records like rec (prices or bids) from fresh values under a forward-twin model."""
+    return bid_records_like(model, rec, rng) if isinstance(rec, BidRecords) else price_records_like(model, rec, rng)
