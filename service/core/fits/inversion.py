@@ -39,6 +39,7 @@ class Inversion:
     bandwidth: float | None
     not_increasing: int  # pseudo-values that fall where their bids rise (a warning)
     method: str
+    cdf: tuple | None = None  # (values, F at them) where a reserve binds: F below it is its share alone
 
 
 def prices_to_cdf(rec):
@@ -103,44 +104,91 @@ def pseudo_value(b, G, g, n, winners_only=False):
     return b + (n if winners_only else 1.0) * G / ((n - 1.0) * g)
 
 
-def _pseudo_values(b, n, winners_only):
-    """Pseudo-values at each bid, G the empirical cdf, g the reflected kernel density."""
+def _pseudo_values(b, n, winners_only, below=0.0):
+    """Pseudo-values at each bid, G the empirical cdf, g the reflected kernel density. Under a
+    binding reserve the bids are those of the values above it, and ``below`` is the chance of a
+    value under it (all bids: F(r); winning bids: the auctions that did not sell, F(r)^n), so the
+    cdf and density the first-order condition takes are below + (1 - below) G* and
+    (1 - below) g* of the bids seen (GPV 2000, section 4)."""
     h = silverman_bandwidth(b) if np.ptp(b) > 0 else 0.0
     if not h > 0:
         return b.copy(), 0.0
     G = np.searchsorted(np.sort(b), b, side="right") / len(b)
-    return pseudo_value(b, G, _reflected_kde(b, b, h), n, winners_only), h
+    g = _reflected_kde(b, b, h)
+    return pseudo_value(b, below + (1.0 - below) * G, (1.0 - below) * g, n, winners_only), h
+
+
+def _groups(rec):
+    """(n, r, bids seen, share of values below r) per bidder count and reserve: without a reserve
+    that share is 0; with one, every bid is a value above it, so 1 - F(r) = bids / (n times the
+    auctions), pooled over the counts with that reserve (winning bids alone: the share of those
+    auctions unsold, F(r)^n, per count)."""
+    out = []
+    for r in np.unique(rec.reserve):
+        at_r = rec.reserve == r
+        if math.isfinite(r) and not rec.winners_only:
+            seen = sum(len(b) for b, here in zip(rec.bids, at_r) if here)
+            below = 1.0 - seen / float(np.sum(rec.n[at_r]))
+        for n in np.unique(rec.n[at_r]):
+            mine = at_r & (rec.n == n)
+            bids = np.concatenate([b for b, here in zip(rec.bids, mine) if here])
+            if not math.isfinite(r):
+                share = 0.0
+            elif rec.winners_only:
+                share = float(np.mean([len(b) == 0 for b, here in zip(rec.bids, mine) if here]))
+            else:
+                share = below
+            if len(bids):
+                out.append((float(n), float(r), bids, share))
+    return out
+
+
+def _pooled_cdf(per_group):
+    """F at every recovered value, pooled over groups by how many auctions each holds: a group
+    (n, r, values, F(r), weight, cdf of a value) speaks of F only at and above its reserve r,
+    where F = F(r) + (1 - F(r)) times its values' empirical cdf (winning bids: the same on the
+    highest value's cdf, then the n-th root), as Athey and Haile read reserves that differ."""
+    xs = np.unique(np.concatenate([x for _, r, x, *_ in per_group] + [[r] for _, r, *_ in per_group if math.isfinite(r)]))
+    total, weight = np.zeros(xs.shape), np.zeros(xs.shape)
+    for n, r, x, share, w, winners in per_group:
+        told = xs >= r
+        ecdf = share + (1.0 - share) * np.searchsorted(x, xs, side="right") / len(x)
+        total += np.where(told, w * (ecdf ** (1.0 / n) if winners else ecdf), 0.0)
+        weight += np.where(told, w, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return xs, np.maximum.accumulate(np.where(weight > 0, total / np.maximum(weight, 1.0), 0.0))
 
 
 def winners_to_cdf(rec):
     """(values, F at them) from winning bids: each auction's pseudo-value is its winner's value,
-    the highest of n, whose cdf is F^n; so F = (the winners' empirical cdf)^(1/n), pooled over
-    the bidder counts by their numbers of auctions."""
-    per_count, width, falls = [], [], 0
-    for n in np.unique(rec.n):
-        bids = np.concatenate([b for b, k in zip(rec.bids, rec.n) if k == n])
-        xi, h = _pseudo_values(bids, n, True)
+    the highest of n, whose cdf is F^n; so F = (the winners' cdf)^(1/n), pooled over the bidder
+    counts (and reserves) by their numbers of auctions."""
+    per_group, width, falls = [], [], 0
+    for n, r, bids, share in _groups(rec):
+        xi, h = _pseudo_values(bids, n, True, share)
         falls += int(np.sum(np.diff(xi[np.argsort(bids, kind="stable")]) < 0))
-        per_count.append((n, np.sort(xi)))
+        auctions = len(bids) / (1.0 - share) if share < 1.0 else len(bids)
+        per_group.append((n, r, np.sort(xi), share, auctions, True))
         width.append(h)
-    xs = np.unique(np.concatenate([x for _, x in per_count]))
-    total = sum(len(x) * (np.searchsorted(x, xs, side="right") / len(x)) ** (1.0 / n) for n, x in per_count)
-    cdf = np.maximum.accumulate(total / sum(len(x) for _, x in per_count))
+    xs, cdf = _pooled_cdf(per_group)
     return xs, cdf, float(np.mean(width)), falls
 
 
 def bids_to_values(rec, thin=True):
-    """Pseudo-values from every bid (GPV 2000), per bidder count; ``thin`` keeps at most
-    MAX_POINTS of them (evenly spaced order statistics) for the model."""
-    out, widths, falls = [], [], 0
-    for n in np.unique(rec.n):
-        bids = np.concatenate([b for b, k in zip(rec.bids, rec.n) if k == n])
-        xi, h = _pseudo_values(bids, n, False)
+    """Pseudo-values from every bid (GPV 2000), per bidder count and reserve; ``thin`` keeps at
+    most MAX_POINTS of them (evenly spaced order statistics) for the model. Under a binding
+    reserve, ``cdf`` is F at the values pooled over the groups (``_pooled_cdf``): the bids say
+    nothing of values below the reserve beyond their share F(r)."""
+    out, widths, falls, per_group = [], [], 0, []
+    for n, r, bids, share in _groups(rec):
+        xi, h = _pseudo_values(bids, n, False, share)
         order = np.argsort(bids, kind="stable")
         falls += int(np.sum(np.diff(xi[order]) < 0))
         out.append(xi)
         widths.append(h)
+        per_group.append((n, r, np.sort(xi), share, len(bids) / (1.0 - share) / n, False))
     values = np.sort(np.concatenate(out))
+    cdf = _pooled_cdf(per_group) if np.isfinite(rec.reserve).any() else None
     if thin and len(values) > MAX_POINTS:
         values = values[np.unique(np.linspace(0, len(values) - 1, MAX_POINTS).round().astype(int))]
-    return Inversion(values, float(np.mean(widths)), falls, "guerre_perrigne_vuong")
+    return Inversion(values, float(np.mean(widths)), falls, "guerre_perrigne_vuong", cdf)

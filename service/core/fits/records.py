@@ -71,6 +71,11 @@ class BidRecords:
         return {float(n): np.concatenate([b for b, k in zip(self.bids, self.n) if k == n]) for n in np.unique(self.n)}
 
     @property
+    def reserve_binds(self):
+        """Whether some auction ran under a reserve (maximum likelihood of its bids is not offered)."""
+        return bool(np.isfinite(self.reserve).any())
+
+    @property
     def start_values(self):
         """The values the bids would come from if values were uniform from the lowest bid up,
         v = lo + n (b - lo) / (n - 1) (Krishna, Auction Theory, 2009, ch. 2): where a fit starts,
@@ -126,28 +131,34 @@ def price_records(auctions, direction):
 
 
 def bid_records(auctions, direction, kind):
-    """``BidRecords`` from the request's records: every bid (a list as long as ``bidders``)
-    or the winner's alone; bids at or above the reserve (reverse: at or below the maximum price)."""
+    """``BidRecords`` from the request's records: every bid (a list as long as ``bidders``) or
+    the winner's alone, at or above the reserve (reverse: at or below the maximum price). Under a
+    reserve ``bidders`` counts those who could bid, and ``bids`` holds the bids made: the others'
+    values lay below the reserve; an unsold auction (no bid) says that all of them did."""
     sign = 1.0 if direction == "forward" else -1.0
     bids, n, reserve = [], [], []
+    word = "reserve" if sign > 0 else "maximum price"
     for i, a in enumerate(auctions):
-        if not a.get("sold", True):
-            continue
         r = -math.inf if a.get("reserve") is None else sign * a["reserve"]
-        b = sign * np.asarray(a["bids"] if kind == "bids" else [a["winning_bid"]], float)
-        if kind == "bids" and len(b) != a["bidders"]:
+        if a["bidders"] < 2:
+            raise ParameterError(f"auctions.{i}.bidders", "a first-price bid says nothing of values without a rival: at least 2")
+        if not a.get("sold", True):
+            if a.get("reserve") is None:
+                raise ParameterError(f"auctions.{i}.sold", "an auction without a reserve always sells: give its reserve")
+            b = np.empty(0)
+        else:
+            b = sign * np.asarray(a["bids"] if kind == "bids" else [a["winning_bid"]], float)
+        if kind == "bids" and a.get("sold", True) and a.get("reserve") is None and len(b) != a["bidders"]:
+            raise ParameterError(f"auctions.{i}.bids", f"has {len(b)} bids; bidders says {a['bidders']} (without a "
+                                                       f"{word}, every bidder bids)")
+        if kind == "bids" and len(b) > a["bidders"]:
             raise ParameterError(f"auctions.{i}.bids", f"has {len(b)} bids; bidders says {a['bidders']}")
         if np.any(b < r):
             raise ParameterError(f"auctions.{i}.{kind}", "a bid lies " + ("below the reserve" if sign > 0 else "above the maximum price"))
-        if a["bidders"] < 2:
-            raise ParameterError(f"auctions.{i}.bidders", "a first-price bid says nothing of values without a rival: at least 2")
-        if a.get("reserve") is not None:
-            raise ParameterError(f"auctions.{i}.reserve", "first-price records under a reserve are not offered yet: who stayed "
-                                                          "out is not seen, and ignoring it would misstate the values")
         bids.append(b)
         n.append(float(a["bidders"]))
         reserve.append(r)
-    if len(bids) < 2:
+    if sum(len(b) > 0 for b in bids) < 2:
         raise ParameterError("auctions", "at least 2 sold auctions are needed")
     return BidRecords(np.array(n), np.array(reserve), tuple(bids), kind == "winning_bid")
 

@@ -118,7 +118,7 @@ def _nonparametric(rec, sign):
     inv = inversion.bids_to_values(rec)
     _within_reach(inv.values)
     try:
-        model = M.empirical((sign * inv.values).tolist())
+        model = _table_model(*inv.cdf, inv.cdf[0], sign) if inv.cdf is not None else M.empirical((sign * inv.values).tolist())
     except ParameterError:
         raise ParameterError("auctions", "every bid recovers the same value: the bids need some spread") from None
     return model, {"method": inv.method, "bandwidth": inv.bandwidth, "trimmed": 0, "not_increasing": inv.not_increasing,
@@ -228,6 +228,9 @@ def _bootstrap(draw, fits, sign, confidence, selected, direction, ask):
 def _candidates(rec, data, sign, families, check_reps, rng):
     """The parametric fits, best AIC first, each with its fit check; with the warnings."""
     fits, warnings = [], []
+    if isinstance(rec, BidRecords) and rec.reserve_binds and families:
+        return [], ["no family was fitted: maximum likelihood of first-price bids under a reserve is not offered; "
+                    "the model is the nonparametric one"]
     for family in families:
         fit = mle.fit_family(family, data, lambda m: log_likelihood(m, rec), sign)
         if fit is None:
@@ -292,6 +295,9 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
         out["homogenization"] = homogenization
     if ask is not None:
         out["counterfactual"] = _counterfactual_entry(model, direction, ask, figures, confidence["level"])
+    if families is None and isinstance(rec, BidRecords):
+        warnings.append("no parametric family was fitted: for first-price bids each is fitted only when named in "
+                        "families (every evaluation of their likelihood solves the equilibrium bids afresh)")
     out["warnings"] = warnings + _inversion_warnings(np_entry) + _data_warnings(rec, nonparametric, selected)
     return out
 
@@ -303,7 +309,11 @@ def _data_warnings(rec, nonparametric, selected):
         if selected is None:
             out.append("values below the lowest price and above the highest are not identified by the prices: the "
                        "nonparametric model puts that mass within a short distance beyond them")
-    elif selected is not None:
+    elif rec.reserve_binds:
+        out.append("values below the reserve are not identified by the bids: only their share F(r) is (from how many "
+                   "could bid and how many did), and the nonparametric model puts it within a short distance below "
+                   "the reserve; a counterfactual with a lower reserve rests on that")
+    if isinstance(rec, BidRecords) and selected is not None:
         out.append("the highest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
                    "(Donald and Paarsch 1993): a fit may sit where that top meets the highest bid, and there the "
                    "bootstrap's intervals can run narrow")
