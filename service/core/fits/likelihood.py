@@ -104,7 +104,7 @@ def _bid_curves(auc, n, s_grid):
             interpolate.CubicHermiteSpline(beta[rising], log_g[at], d_log_g[at], extrapolate=False), beta[rising])
 
 
-def _stretch(model, n, auc, b):
+def _stretch(model, auc, b):
     """(s_top, s_low): a stretch of s = -log F that holds every bid's value, each end a continuous
     function of the parameters (so the likelihood moves smoothly with them): s_low = -log F at
     the lowest bid (its value lies above it), capped at _S_FLOOR; s_top a quarter of the highest
@@ -127,7 +127,7 @@ def invert_bids(model, n, b):
     bid beta(upper), or below the bottom of the values, has no value. At the bottom of a bounded
     support beta'(low) = (n - 1) / n, so g(low) = n f(low) / (n - 1)."""
     auc = ForwardAuction(model, int(n))
-    s_top, s_low = _stretch(model, n, auc, b)
+    s_top, s_low = _stretch(model, auc, b)
     grid = np.unique(np.concatenate((np.geomspace(s_top, s_low, _GRID), np.linspace(s_top, s_low, _GRID))))[::-1]
     if s_top == 1e-14:
         grid = np.append(grid, 0.0)

@@ -202,10 +202,11 @@ def _feasible_start(loss, spec, data):
 
 
 def _snapped(family, fixed, free, values, best, data, log_likelihood, sign):
-    """The optimum (None where it is not better) with each parameter the optimiser left within 1e-4 of the data's spread from
-    the lowest or highest datum set at that datum, the rest optimised again, where that is no
-    worse: an optimum at a support's end (the uniform's ends at the lowest bid and the top
-    value the highest bid needs) is a corner that Nelder-Mead nears only slowly."""
+    """The optimum with each parameter the optimiser left within 1e-4 of the data's spread from
+    the lowest or highest datum set at that datum and the rest optimised again; None where that
+    is worse or no parameter is so near. An optimum at a support's end (the uniform's ends at
+    the lowest bid and at the top value the highest bid needs) is a corner that Nelder-Mead
+    nears only slowly."""
     ends = (float(np.min(data)), float(np.max(data)))
     near = {k: e for k in free for e in ends if 0.0 < abs(values[k] - e) <= 1e-4 * _spread(data)}
     if not near:
