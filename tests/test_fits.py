@@ -212,7 +212,7 @@ def test_first_price_records_under_a_reserve_recover_the_values(winners_only):
     assert float(table.cdf(np.array(r))) == pytest.approx(true.cdf(r), abs=0.02)
     ps = np.linspace(0.5, 0.9, 5)
     assert np.max(np.abs(table.ppf(ps) - true.ppf(ps))) < 3.0
-    assert any("below the reserve are not identified" in w for w in out["warnings"])
+    assert "fit_beyond_reserve" in out["warnings"]  # the web layer words it per direction
 
 
 # ---- 3b. maximum likelihood of first-price bids --------------------------------------------
@@ -436,7 +436,10 @@ def test_reverse_tenders_under_a_maximum_price_fit_and_paste(client):
         auctions.append({"bidders": 4, "reserve": cap, **({"bids": bids.tolist()} if len(bids) else {"sold": False})})
     out = _post(client, {"rule": "first_price", "direction": "reverse", "auctions": auctions, "families": ["lognormal"],
                          "confidence": {"replications": 0}}).get_json()
-    assert out["candidates"] == [] and any("under a reserve is not offered" in w for w in out["warnings"])
+    assert out["candidates"] == [] and any("under a maximum price is not offered" in w for w in out["warnings"])
+    # the warnings speak of costs and the maximum price, never of values or a reserve
+    assert any("costs above the maximum price are not identified" in w for w in out["warnings"])
+    assert not any("value" in w or "reserve" in w for w in out["warnings"]), out["warnings"]
     model = out["bidder_costs"]
     table = M.QuantileTable([(q["p"], q["value"]) for q in model["points"]])
     assert 1.0 - float(table.cdf(np.array(cap))) == pytest.approx(true.sf(cap), abs=0.03)
@@ -670,6 +673,23 @@ def test_bad_covariates_are_named(client, change, field):
     assert r.status_code == 422 and field in {e["field"] for e in r.get_json()["errors"]}, r.get_json()
 
 
+def test_every_note_the_core_writes_has_words_for_both_directions():
+    # Every Note("code", ...) written under service/core has its words in web/wording.NOTES for
+    # forward and reverse, and they take the fields it carries (a check of the code, no numbers).
+    import pathlib
+    import re
+
+    from service.web import wording
+
+    root = pathlib.Path(__file__).resolve().parent.parent / "service" / "core"
+    for path in root.rglob("*.py"):
+        for code, args in re.findall(r'Note\("(\w+)"((?:, \w+=[^)]*)?)\)', path.read_text()):
+            assert set(wording.NOTES[code]) == {"forward", "reverse"}, code
+            fields = {name: 1.0 for name in re.findall(r"(\w+)=", args)}
+            for words in wording.NOTES[code].values():
+                assert words.format(**fields) and "{" not in words.format(**fields), code
+
+
 def test_counts_that_disagree_are_warned_of():
     # Athey and Haile 2002, section 6: under private values drawn independently of the number of
     # bidders, the value distribution recovered from each count is the same. Seeded data whose
@@ -678,9 +698,9 @@ def test_counts_that_disagree_are_warned_of():
     same = simulate_prices(stats.lognorm(0.3, scale=100.0), np.repeat([2, 5], 300), rng)
     shifted = [dict(a, price=a["price"] * (2.0 if a["bidders"] == 5 else 1.0)) for a in same]
     out = fit_report("second_price", "forward", same, families=["lognormal"], confidence={"replications": 0})
-    assert out["nonparametric"]["fit"]["p_value"] > 0.01 and not any("disagree" in w for w in out["warnings"])
+    assert out["nonparametric"]["fit"]["p_value"] > 0.01 and "fit_counts_disagree" not in out["warnings"]
     out = fit_report("second_price", "forward", shifted, families=["lognormal"], confidence={"replications": 0})
-    assert out["nonparametric"]["fit"]["p_value"] < 1e-6 and any("disagree" in w for w in out["warnings"])
+    assert out["nonparametric"]["fit"]["p_value"] < 1e-6 and "fit_counts_disagree" in out["warnings"]
 
 
 def test_prices_under_differing_reserves_recover_the_value_cdf():

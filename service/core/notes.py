@@ -7,11 +7,12 @@ from __future__ import annotations
 
 
 class Note(str):
-    """A warning named by its ``code``, written per direction by the web layer."""
+    """A warning named by its ``code``, written per direction by the web layer, with the
+    ``fields`` its words hold (a count, a p-value)."""
 
-    def __new__(cls, code):
+    def __new__(cls, code, **fields):
         self = super().__new__(cls, code)
-        self.code = code
+        self.code, self.fields = code, fields
         return self
 
 

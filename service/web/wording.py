@@ -61,6 +61,43 @@ NOTES = {
         "forward": "bids are null where the bidder does not take part (value below the reserve)",
         "reverse": "bids are null where the bidder does not take part (cost above the maximum price)",
     },
+    "fit_beyond_prices": {
+        "forward": "values below the lowest price and above the highest are not identified by the prices: the "
+                   "nonparametric model puts that mass within a short distance beyond them",
+        "reverse": "costs below the lowest price and above the highest are not identified by the prices: the "
+                   "nonparametric model puts that mass within a short distance beyond them",
+    },
+    "fit_beyond_reserve": {
+        "forward": "values below the reserve are not identified by the bids: only their share F(r) is (from how many "
+                   "could bid and how many did), and the nonparametric model puts it within a short distance below "
+                   "the reserve; a counterfactual with a lower reserve rests on that",
+        "reverse": "costs above the maximum price are not identified by the bids: only their share is (from how many "
+                   "could bid and how many did), and the nonparametric model puts it within a short distance above "
+                   "the maximum price; a counterfactual with a higher maximum price rests on that",
+    },
+    "fit_no_family_under_reserve": {
+        "forward": "no family was fitted: maximum likelihood of first-price bids under a reserve is not offered; the "
+                   "model is the nonparametric one",
+        "reverse": "no family was fitted: maximum likelihood of first-price bids under a maximum price is not offered; "
+                   "the model is the nonparametric one",
+    },
+    "fit_bids_not_regular": {
+        "forward": "the highest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
+                   "(Donald and Paarsch 1993): a fit may sit where that top meets the highest bid, and there the "
+                   "bootstrap's intervals can run narrow",
+        "reverse": "the lowest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
+                   "(Donald and Paarsch 1993): a fit may sit where that bottom meets the lowest bid, and there the "
+                   "bootstrap's intervals can run narrow",
+    },
+    "fit_not_increasing": {
+        d: "{count} pseudo-" + w + "s fall where their bids rise: the bids may not come from one symmetric private-" + w
+           + " equilibrium, or the sample is thin there" for d, w in (("forward", "value"), ("reverse", "cost"))
+    },
+    "fit_counts_disagree": {
+        d: "the " + w + "s recovered from auctions with different numbers of bidders disagree (p = {p:.3g}): private "
+           + w + "s drawn independently of the number of bidders may not hold, and every model here rests on them"
+        for d, w in (("forward", "value"), ("reverse", "cost"))
+    },
 }
 
 _MYERSON = {
@@ -98,7 +135,7 @@ def name(key, direction):
 def warning(text, direction):
     """A warning in the caller's words: a Note's per direction, a Finding's path under the caller's names."""
     if hasattr(text, "code"):
-        return NOTES[text.code][direction]
+        return NOTES[text.code][direction].format(**text.fields)
     if hasattr(text, "path"):
         return ".".join(name(part, direction) for part in text.path.split(".")) + " " + text.text
     return str(text)

@@ -16,6 +16,7 @@ from scipy import stats
 from .. import budget
 from .. import models as M
 from ..errors import ParameterError
+from ..notes import Note
 from ..topvalues import finite
 from . import inversion, mle, simulate
 from .counterfactual import counterfactual_figures
@@ -229,8 +230,7 @@ def _candidates(rec, data, sign, families, check_reps, rng):
     """The parametric fits, best AIC first, each with its fit check; with the warnings."""
     fits, warnings = [], []
     if isinstance(rec, BidRecords) and rec.reserve_binds and families:
-        return [], ["no family was fitted: maximum likelihood of first-price bids under a reserve is not offered; "
-                    "the model is the nonparametric one"]
+        return [], [Note("fit_no_family_under_reserve")]
     for family in families:
         fit = mle.fit_family(family, data, lambda m: log_likelihood(m, rec), sign)
         if fit is None:
@@ -307,16 +307,11 @@ def _data_warnings(rec, nonparametric, selected):
     out = []
     if isinstance(rec, PriceRecords):
         if selected is None:
-            out.append("values below the lowest price and above the highest are not identified by the prices: the "
-                       "nonparametric model puts that mass within a short distance beyond them")
+            out.append(Note("fit_beyond_prices"))
     elif rec.reserve_binds:
-        out.append("values below the reserve are not identified by the bids: only their share F(r) is (from how many "
-                   "could bid and how many did), and the nonparametric model puts it within a short distance below "
-                   "the reserve; a counterfactual with a lower reserve rests on that")
+        out.append(Note("fit_beyond_reserve"))
     if isinstance(rec, BidRecords) and selected is not None:
-        out.append("the highest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
-                   "(Donald and Paarsch 1993): a fit may sit where that top meets the highest bid, and there the "
-                   "bootstrap's intervals can run narrow")
+        out.append(Note("fit_bids_not_regular"))
     return out
 
 
@@ -344,10 +339,8 @@ def _counterfactual_entry(model, direction, ask, draws, level):
 def _inversion_warnings(entry):
     out = []
     if entry and entry.get("not_increasing"):
-        out.append(f"{entry['not_increasing']} pseudo-values fall where their bids rise: the bids may not come from one "
-                   "symmetric private-value equilibrium, or the sample is thin there")
+        out.append(Note("fit_not_increasing", count=entry["not_increasing"]))
     p = entry["fit"]["p_value"] if entry else None
     if p is not None and p < REJECT_AT:
-        out.append(f"the values recovered from auctions with different numbers of bidders disagree (p = {p:.3g}): private "
-                   "values drawn independently of the number of bidders may not hold, and every model here rests on them")
+        out.append(Note("fit_counts_disagree", p=p))
     return out
