@@ -119,7 +119,7 @@ def _pseudo_values(b, n, winners_only, below=0.0):
 
 
 def _groups(rec):
-    """(n, r, bids seen, share of values below r) per bidder count and reserve: without a reserve
+    """(n, r, bids seen, share of values below r, auctions) per bidder count and reserve: without a reserve
     that share is 0; with one, every bid is a value above it, so 1 - F(r) = bids / (n times the
     auctions), pooled over the counts with that reserve (winning bids alone: the share of those
     auctions unsold, F(r)^n, per count)."""
@@ -139,13 +139,13 @@ def _groups(rec):
             else:
                 share = below
             if len(bids):
-                out.append((float(n), float(r), bids, share))
+                out.append((float(n), float(r), bids, share, int(np.count_nonzero(mine))))
     return out
 
 
 def _pooled_cdf(per_group):
     """F at every recovered value, pooled over groups by how many auctions each holds: a group
-    (n, r, values, F(r), weight, cdf of a value) speaks of F only at and above its reserve r,
+    (n, r, sorted values, F(r), auctions, whether the values are winners') speaks of F only at and above its reserve r,
     where F = F(r) + (1 - F(r)) times its values' empirical cdf (winning bids: the same on the
     highest value's cdf, then the n-th root), as Athey and Haile read reserves that differ."""
     xs = np.unique(np.concatenate([x for _, r, x, *_ in per_group] + [[r] for _, r, *_ in per_group if math.isfinite(r)]))
@@ -164,10 +164,9 @@ def winners_to_cdf(rec):
     the highest of n, whose cdf is F^n; so F = (the winners' cdf)^(1/n), pooled over the bidder
     counts (and reserves) by their numbers of auctions."""
     per_group, width, falls = [], [], 0
-    for n, r, bids, share in _groups(rec):
+    for n, r, bids, share, auctions in _groups(rec):
         xi, h = _pseudo_values(bids, n, True, share)
         falls += int(np.sum(np.diff(xi[np.argsort(bids, kind="stable")]) < 0))
-        auctions = len(bids) / (1.0 - share) if share < 1.0 else len(bids)
         per_group.append((n, r, np.sort(xi), share, auctions, True))
         width.append(h)
     xs, cdf = _pooled_cdf(per_group)
@@ -180,13 +179,13 @@ def bids_to_values(rec, thin=True):
     reserve, ``cdf`` is F at the values pooled over the groups (``_pooled_cdf``): the bids say
     nothing of values below the reserve beyond their share F(r)."""
     out, widths, falls, per_group = [], [], 0, []
-    for n, r, bids, share in _groups(rec):
+    for n, r, bids, share, auctions in _groups(rec):
         xi, h = _pseudo_values(bids, n, False, share)
         order = np.argsort(bids, kind="stable")
         falls += int(np.sum(np.diff(xi[order]) < 0))
         out.append(xi)
         widths.append(h)
-        per_group.append((n, r, np.sort(xi), share, len(bids) / (1.0 - share) / n, False))
+        per_group.append((n, r, np.sort(xi), share, auctions, False))
     values = np.sort(np.concatenate(out))
     cdf = _pooled_cdf(per_group) if np.isfinite(rec.reserve).any() else None
     if thin and len(values) > MAX_POINTS:
