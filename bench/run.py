@@ -732,7 +732,7 @@ def _bid_ml_rows(rng):
     few = auctions[:6]
     rec = records("first_price", "forward", few)
     t_eval = median_time(lambda: bid_log_likelihood(model, rec), repeats=5, max_total_s=2)
-    by_n = {n: b for n, b in rec.by_count.items()}
+    by_n = {n: b for (n, _), (b, _) in rec.by_group.items()}
     _, t_naive, _ = capped(lambda: _naive_bid_loglik(st.lognorm(0.35, scale=62000.0), by_n))
     t_fit = median_time(lambda: fit_report("first_price", "forward", auctions, families=["lognormal"], nonparametric=False,
                                            confidence={"replications": 0}), repeats=3, max_total_s=10)

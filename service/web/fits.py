@@ -24,7 +24,7 @@ _SECONDS_PER_INVERSION = 4e-3
 #: Seconds per replicate's counterfactual figures (the second-price route and the reserve
 #: search under a kernel model of 400 points, the slowest a fit selects; about 0.025 s).
 _SECONDS_PER_COUNTERFACTUAL = 0.03
-#: Seconds per evaluation of first-price bids' likelihood and per bidder count in the records
+#: Seconds per evaluation of first-price bids' likelihood and per bidder count and reserve in the records
 #: (a grid of equilibrium bids and two splines, about 1 ms on one CPU, more for a family whose
 #: quantiles are not closed forms); evaluations per full fit, and per refit (Newton steps).
 _SECONDS_PER_BID_COUNT = 1.2e-3
@@ -92,8 +92,8 @@ def _admit(req):
     records = sum(len(a["bids"]) if a.get("bids") else 1 for a in req["auctions"])
     if req["rule"] == "first_price":
         # each replicate inverts every bid again (a kernel sum over a grid); each family named
-        # evaluates the bids' likelihood per bidder count
-        counts = len({a["bidders"] for a in req["auctions"]})
+        # evaluates the bids' likelihood per bidder count and reserve
+        counts = len({(a["bidders"], a.get("reserve")) for a in req["auctions"]})
         evaluations = len(req["families"] or ()) * (_BID_FIT_EVALUATIONS + _BID_REFIT_EVALUATIONS * refits)
         seconds = (_SECONDS_PER_INVERSION + _SECONDS_PER_BID_INVERSION * records) * (1 + conf["replications"]) \
             + _SECONDS_PER_BID_COUNT * counts * evaluations

@@ -75,12 +75,6 @@ NOTES = {
                    "could bid and how many did), and the nonparametric model puts it within a short distance above "
                    "the maximum price; a counterfactual with a higher maximum price rests on that",
     },
-    "fit_no_family_under_reserve": {
-        "forward": "no family was fitted: maximum likelihood of first-price bids under a reserve is not offered; the "
-                   "model is the nonparametric one",
-        "reverse": "no family was fitted: maximum likelihood of first-price bids under a maximum price is not offered; "
-                   "the model is the nonparametric one",
-    },
     "fit_bids_not_regular": {
         "forward": "the highest bid a model allows moves with its parameters, so the bids' likelihood is not regular "
                    "(Donald and Paarsch 1993): a fit may sit where that top meets the highest bid, and there the "

@@ -81,37 +81,50 @@ class BidInverse:
     log_density: np.ndarray
 
 
+def _abscissa(auc, b):
+    """The splines' abscissa and d(abscissa)/db: the bid itself, or log(b - r) above a binding
+    reserve r, near which b - r grows as (v - r)^2 and the density as (b - r)^(-1/2), so that
+    log g is nearly linear in log(b - r) where it is not in b."""
+    if not auc.reserve_binds:
+        return b, np.ones_like(b)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log(b - auc.floor), 1.0 / (b - auc.floor)
+
+
 def _bid_curves(auc, n, s_grid):
-    """(log s, log g) as functions of the bid, through the exact equilibrium bids at ``s_grid``
-    (descending, so bids rise): cubic Hermite splines with the first-order condition's slopes,
-    v' = dv/db = F / ((n - 1) f (v - beta)), d log s / db = -f v' / (F s) = -1 / ((n - 1) s (v - beta))
-    and d log g / db = (n / (n - 1) - v') / (v - beta); with the bids there. None with fewer than 2 points."""
+    """(log s, log g) as functions of the bid (``_abscissa``), through the exact equilibrium bids
+    at ``s_grid`` (descending, so bids rise): cubic Hermite splines with the first-order
+    condition's slopes, v' = dv/db = F / ((n - 1) f (v - beta)),
+    d log s / db = -f v' / (F s) = -1 / ((n - 1) s (v - beta)) and d log g / db = (n / (n - 1) - v') / (v - beta);
+    with the abscissa there. None with fewer than 2 points."""
     beta = auc.bids.at_s(s_grid)
     v = auc.model.value_at(np.exp(-s_grid), -np.expm1(-s_grid))
+    x, dx = _abscissa(auc, beta)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         shade = v - beta
         dv = np.exp(-s_grid - np.log(auc.model.pdf(v))) / ((n - 1.0) * shade)
-        d_log_s = -1.0 / ((n - 1.0) * s_grid * shade)
+        d_log_s = -1.0 / ((n - 1.0) * s_grid * shade) / dx
         log_g = -s_grid - math.log(n - 1.0) - np.log(shade)
-        d_log_g = (n / (n - 1.0) - dv) / shade
-    ok = np.isfinite(beta) & np.isfinite(d_log_s) & np.isfinite(log_g) & np.isfinite(d_log_g) & (shade > 0)
-    beta = beta[ok]
-    rising = beta > np.concatenate(([-math.inf], np.maximum.accumulate(beta)[:-1]))
+        d_log_g = (n / (n - 1.0) - dv) / shade / dx
+    ok = np.isfinite(x) & np.isfinite(d_log_s) & np.isfinite(log_g) & np.isfinite(d_log_g) & (shade > 0)
+    x = x[ok]
+    rising = x > np.concatenate(([-math.inf], np.maximum.accumulate(x)[:-1]))
     if np.count_nonzero(rising) < 2:
         return None
     at = np.nonzero(ok)[0][rising]
-    return (interpolate.CubicHermiteSpline(beta[rising], np.log(s_grid[at]), d_log_s[at], extrapolate=False),
-            interpolate.CubicHermiteSpline(beta[rising], log_g[at], d_log_g[at], extrapolate=False), beta[rising])
+    return (interpolate.CubicHermiteSpline(x[rising], np.log(s_grid[at]), d_log_s[at], extrapolate=False),
+            interpolate.CubicHermiteSpline(x[rising], log_g[at], d_log_g[at], extrapolate=False), x[rising])
 
 
 def _stretch(model, auc, b):
     """(s_top, s_low): a stretch of s = -log F that holds every bid's value, each end a continuous
     function of the parameters (so the likelihood moves smoothly with them): s_low = -log F at
-    the lowest bid (its value lies above it), capped at _S_FLOOR; s_top a quarter of the highest
-    bid's s read off a coarse grid of exact bids (1e-14 where that bid is beyond the grid)."""
+    the lowest bid (its value lies above it), capped at _S_FLOOR and at the reserve's s_r; s_top
+    a quarter of the highest bid's s read off a coarse grid of exact bids (1e-14 where that bid
+    is beyond the grid)."""
     lowest, highest = float(np.min(b)), float(np.max(b))
     s_low = min(_S_FLOOR, neg_log_cdf(model, lowest)) if lowest > model.lower else _S_FLOOR
-    s_low = max(s_low, 1e-12)
+    s_low = max(min(s_low, auc.s_r), 1e-12)
     coarse = np.geomspace(s_low, 1e-14, _COARSE)
     beta = auc.bids.at_s(coarse)
     if not highest < beta[-1]:
@@ -119,62 +132,89 @@ def _stretch(model, auc, b):
     return max(0.25 * math.exp(float(np.interp(highest, beta, np.log(coarse)))), 1e-14), s_low
 
 
-def invert_bids(model, n, b):
-    """``BidInverse`` of bids b (forward twin) with n >= 2 bidders. Exact equilibrium bids on a
-    grid over the stretch of s = -log F that holds the bids' values (``_stretch``; even in log s
-    where F is near 1, even in s where it is not) carry cubic Hermite splines of log s and log g
-    in the bid (``_bid_curves``), so the cost does not grow with the bids. A bid above the top
-    bid beta(upper), or below the bottom of the values, has no value. At the bottom of a bounded
-    support beta'(low) = (n - 1) / n, so g(low) = n f(low) / (n - 1)."""
-    auc = ForwardAuction(model, int(n))
-    s_top, s_low = _stretch(model, auc, b)
-    grid = np.unique(np.concatenate((np.geomspace(s_top, s_low, _GRID), np.linspace(s_top, s_low, _GRID))))[::-1]
-    if s_top == 1e-14:
-        grid = np.append(grid, 0.0)
-    curves = _bid_curves(auc, n, grid)
-    bottom = b == model.lower
+def _grid(auc, b):
+    """The s of the exact bids the splines run through: even in log s where F is near 1, even in s
+    where it is not, over ``_stretch``; above a binding reserve, also closing in on its s_r
+    geometrically down to a quarter of the lowest bid's distance from it (in s)."""
+    s_top, s_low = _stretch(auc.model, auc, b)
+    grid = [np.geomspace(s_top, s_low, _GRID), np.linspace(s_top, s_low, _GRID)]
+    if auc.reserve_binds:
+        over = b[b > auc.floor]
+        gap = auc.s_r - (min(_S_FLOOR, neg_log_cdf(auc.model, float(np.min(over)))) if len(over) else auc.s_r)
+        near = max(0.25 * gap, 1e-12 * auc.s_r)
+        grid.append(auc.s_r - np.geomspace(near, max(auc.s_r - s_top, 2.0 * near), _GRID))
+    grid = np.unique(np.concatenate(grid))[::-1]
+    return np.append(grid, 0.0) if s_top == 1e-14 else grid
+
+
+def invert_bids(model, n, b, reserve=None):
+    """``BidInverse`` of bids b (forward twin) with n >= 2 bidders and an optional reserve. Exact
+    equilibrium bids on a grid over the bids' values (``_grid``) carry cubic Hermite splines of
+    log s and log g in the bid (``_bid_curves``), so the cost does not grow with the bids. A bid
+    above the top bid beta(upper), or below the bottom of the values, has no value. At the bottom
+    of a bounded support beta'(low) = (n - 1) / n, so g(low) = n f(low) / (n - 1); a bid at a
+    binding reserve itself, where the density has no finite value, counts as a value at or above
+    it: log g is there log(1 - F(r)), and s = s_r."""
+    auc = ForwardAuction(model, int(n), reserve)
     s = np.full(b.shape, math.nan)
-    s[bottom] = math.inf
     log_g = np.full(b.shape, -math.inf)
+    if len(b) == 0:
+        return BidInverse(s, log_g)
+    curves = _bid_curves(auc, n, _grid(auc, b))
+    bottom = b == model.lower
+    at_reserve = (b == auc.floor) & auc.reserve_binds
+    s[bottom] = math.inf
     if curves is None:
         return BidInverse(s, log_g)
-    log_s, log_density, grid_beta = curves
+    log_s, log_density, grid_x = curves
+    x = _abscissa(auc, b)[0]
     # a bid within rounding of the grid's ends (a fit whose top bid is the highest bid) is at that end
-    reach = 1e-12 * (abs(grid_beta[0]) + abs(grid_beta[-1]))
-    at = np.clip(b, grid_beta[0], grid_beta[-1])
+    reach = 1e-12 * (abs(grid_x[0]) + abs(grid_x[-1]))
+    at = np.clip(x, grid_x[0], grid_x[-1])
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        move = ~bottom & (b >= grid_beta[0] - reach) & (b <= grid_beta[-1] + reach)
+        move = ~bottom & ~at_reserve & (x >= grid_x[0] - reach) & (x <= grid_x[-1] + reach)
         s[move] = np.exp(log_s(at[move]))
         log_g[move] = log_density(at[move])
-        if bottom.any():
+        if bottom.any() and not auc.reserve_binds:
             log_g[bottom] = math.log(n / (n - 1.0)) + math.log(float(model.pdf(np.array(model.lower))))
+        s[at_reserve] = auc.s_r
+        log_g[at_reserve] = math.log(-math.expm1(-auc.s_r))
     return BidInverse(s, np.where(np.isnan(log_g), -math.inf, log_g))
 
 
 def bid_log_likelihood(model, rec):
-    """Sum over the auctions of the log density of their bids: every bid's log g (all bids), or
-    the highest bid's log of n G^(n-1) g (winning bids alone); -inf where a bid has no value."""
+    """Sum over the auctions of the log probability of what each saw: every bid's log g (all
+    bids), or the highest bid's log of n G^(n-1) g (winning bids alone); under a reserve r, each
+    bidder who did not bid adds log F(r) (winning bids alone: an unsold auction adds n log F(r));
+    -inf where a bid has no value."""
     total = 0.0
-    for n, b in rec.by_count.items():
-        inv = invert_bids(model, n, b)
+    for (n, r), (b, absent) in rec.by_group.items():
+        inv = invert_bids(model, n, b, None if math.isinf(r) else r)
         logs = inv.log_density
         if rec.winners_only:
             with np.errstate(invalid="ignore"):
                 logs = math.log(n) - (n - 1.0) * inv.s + logs
         total += float(np.sum(logs))
+        if absent:
+            total += absent * (n if rec.winners_only else 1.0) * float(model.logcdf(np.array(r)))
         if not math.isfinite(total):
             return -math.inf
     return total
 
 
 def bid_transforms(model, rec):
-    """Each bid through the distribution the model implies for it, G(b) = F(beta^-1(b)) (the
-    highest bid's G^n for winning bids alone): uniform on [0, 1] when the model is right."""
+    """Each bid through the distribution the model implies for it given that it was made,
+    G(b) = F(beta^-1(b)) above F(r) (the highest bid's G^n for winning bids alone), rescaled to
+    [0, 1]: uniform when the model is right."""
     out = []
-    for n, b in rec.by_count.items():
-        s = invert_bids(model, n, b).s
-        with np.errstate(invalid="ignore", over="ignore"):
-            u = np.exp(-(n if rec.winners_only else 1.0) * s)
+    for (n, r), (b, _) in rec.by_group.items():
+        if len(b) == 0:
+            continue
+        power = n if rec.winners_only else 1.0
+        s = invert_bids(model, n, b, None if math.isinf(r) else r).s
+        floor = 0.0 if math.isinf(r) else float(model.cdf(np.array(r))) ** power
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            u = (np.exp(-power * s) - floor) / (1.0 - floor)
         # a bid no value makes (never so at a fitted optimum) sits at the end it lies beyond
         reached = b[~np.isnan(u)]
         out.append(np.where(np.isnan(u), np.where(b > (reached.max() if len(reached) else -math.inf), 1.0, 0.0), u))

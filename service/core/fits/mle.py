@@ -187,11 +187,13 @@ START_STRETCH = (1.5, 2.5, 4.0, 8.0)
 
 def _feasible_start(loss, spec, data):
     """theta where every datum has a positive likelihood: the family's start from the data,
-    else from the data stretched (START_STRETCH); None where none is."""
-    lo = float(np.min(data))
+    else from the data stretched (START_STRETCH) away from the forward twin's lowest point (a
+    reverse case's highest cost); None where none is."""
+    twin = loss.sign * data
+    lo = float(np.min(twin))
     for c in (1.0,) + START_STRETCH:
         with np.errstate(all="ignore"):
-            begin = spec.start(lo + c * (data - lo))
+            begin = spec.start(loss.sign * (lo + c * (twin - lo)))
         try:
             theta = loss.theta({k: begin[k] for k in loss.free})
         except (ValueError, OverflowError, ZeroDivisionError):  # a start off the domain (the log of a zero scale)

@@ -66,14 +66,16 @@ class BidRecords:
         return np.concatenate(self.bids) if self.bids else np.empty(0)
 
     @cached_property
-    def by_count(self):
-        """{n: every bid of the n-bidder auctions, flat}: what the likelihood takes per bidder count."""
-        return {float(n): np.concatenate([b for b, k in zip(self.bids, self.n) if k == n]) for n in np.unique(self.n)}
-
-    @property
-    def reserve_binds(self):
-        """Whether some auction ran under a reserve (maximum likelihood of its bids is not offered)."""
-        return bool(np.isfinite(self.reserve).any())
+    def by_group(self):
+        """{(n, r): (every bid of those auctions, flat; how many did not bid)}: what the likelihood
+        takes per bidder count and reserve. Those who did not bid are the bidders without a bid
+        (every bid), or the unsold auctions (winning bids alone)."""
+        out = {}
+        for key in sorted(set(zip(self.n.tolist(), self.reserve.tolist()))):
+            mine = [b for b, n, r in zip(self.bids, self.n, self.reserve) if (n, r) == key]
+            absent = sum(len(b) == 0 for b in mine) if self.winners_only else sum(key[0] - len(b) for b in mine)
+            out[key] = (np.concatenate(mine), int(absent))
+        return out
 
     @property
     def start_values(self):

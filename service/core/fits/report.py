@@ -229,8 +229,6 @@ def _bootstrap(draw, fits, sign, confidence, selected, direction, ask):
 def _candidates(rec, data, sign, families, check_reps, rng):
     """The parametric fits, best AIC first, each with its fit check; with the warnings."""
     fits, warnings = [], []
-    if isinstance(rec, BidRecords) and rec.reserve_binds and families:
-        return [], [Note("fit_no_family_under_reserve")]
     for family in families:
         fit = mle.fit_family(family, data, lambda m: log_likelihood(m, rec), sign)
         if fit is None:
@@ -308,7 +306,7 @@ def _data_warnings(rec, nonparametric, selected):
     if isinstance(rec, PriceRecords):
         if selected is None:
             out.append(Note("fit_beyond_prices"))
-    elif rec.reserve_binds:
+    elif np.isfinite(rec.reserve).any() and selected is None:
         out.append(Note("fit_beyond_reserve"))
     if isinstance(rec, BidRecords) and selected is not None:
         out.append(Note("fit_bids_not_regular"))

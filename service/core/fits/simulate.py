@@ -35,18 +35,18 @@ def price_records_like(model, rec, rng):
 
 
 def bid_records_like(model, rec, rng):
-    """``BidRecords`` with rec's counts and fresh values bid at the symmetric first-price
-    equilibrium (every bid, or the winner's alone, as rec holds)."""
+    """``BidRecords`` with rec's counts and reserves and fresh values bid at the symmetric
+    first-price equilibrium (every bid, or the winner's alone, as rec holds); under a reserve only
+    the values at or above it bid, and an auction where none is goes unsold."""
     bids = [None] * len(rec.n)
-    for n in np.unique(rec.n):
-        rows = np.nonzero(rec.n == n)[0]
+    for n, r in set(zip(rec.n.tolist(), rec.reserve.tolist())):
+        rows = np.nonzero((rec.n == n) & (rec.reserve == r))[0]
         k = int(n)
         v = draw_values(model, len(rows) * k, rng).reshape(len(rows), k)
-        b = ForwardAuction(model, k).bids.at_s(model.neg_log_cdf(v))
-        if rec.winners_only:
-            b = b.max(axis=1, keepdims=True)
+        b = ForwardAuction(model, k, None if np.isinf(r) else r).bids.at_s(model.neg_log_cdf(v))
         for i, row in enumerate(rows):
-            bids[row] = b[i]
+            made = b[i][v[i] >= r]
+            bids[row] = made.max(keepdims=True) if rec.winners_only and len(made) else made
     return BidRecords(rec.n, rec.reserve, tuple(bids), rec.winners_only)
 
 
