@@ -11,6 +11,10 @@ or the numerics core, so the file can be copied into any project on its own.
     for row in report["results"]:
         print(row["rule"], row["expected_revenue"])
 
+Wherever a body takes ``bidders`` it takes an integer or a distribution over the
+count, for example ``bidders={"distribution": "poisson", "mean": 4.5}``; ``quote``
+takes the flat form (``bidders_distribution="poisson", bidders_mean=4.5``).
+
 Every method sends one request and returns the parsed JSON answer as plain
 dicts and lists (``quote`` returns a float). Any 4xx or 5xx answer raises
 :class:`BidstatsError`, which carries the HTTP status and the parsed
@@ -288,7 +292,7 @@ class BidstatsClient:
         """POST /v1/sweeps: a grid of bidder counts x reserves x rules.
 
         Keywords: ``bidder_values`` or ``bidder_costs``; ``bidders`` as a list of
-        whole numbers or ``{"from", "to", "step"}``; ``reserves`` as a list or
+        whole numbers or count distributions, or ``{"from", "to", "step"}``; ``reserves`` as a list or
         ``{"from", "to", "steps"}``; ``rules``; ``metrics``; ``seller_value`` /
         ``buyer_value``. Returns ``{"columns": [...], "rows": [[...], ...]}``; the
         columns start with ``bidders``, ``reserve``, ``rule``, then one per

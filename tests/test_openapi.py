@@ -264,10 +264,11 @@ def test_caps_in_the_spec_are_the_service_caps():
     bid = web_auctions.BidStrategyRequest._declared_fields
     # (what the spec says, what the code enforces)
     pairs = {
-        "Bidders.maximum": (s["Bidders"]["maximum"], _max(tv["bidders"])),
-        "Bidders = CAPS.bidders": (s["Bidders"]["maximum"], caps.bidders),
-        "JointDensityRequest.bidders": (s["JointDensityRequest"]["properties"]["bidders"]["maximum"], _max(jd["bidders"])),
-        "JointDensityRequest.bidders.minimum": (s["JointDensityRequest"]["properties"]["bidders"]["minimum"], jd["bidders"].minimum),
+        "Bidders = CAPS.bidders": (s["Bidders"]["oneOf"][0]["maximum"], caps.bidders),
+        "count table maxItems = CAPS.bidder_counts": (s["Bidders"]["oneOf"][3]["properties"]["probabilities"]["maxItems"],
+                                                      caps.bidder_counts),
+        "entry potential = CAPS.bidder_counts": (s["Bidders"]["oneOf"][4]["properties"]["potential"]["maximum"], caps.bidder_counts),
+        "JointDensityRequest.bidders": (s["JointDensityRequest"]["properties"]["bidders"]["anyOf"][0]["maximum"], caps.bidders),
         "ranks.maxItems": (s["TopValuesRequest"]["properties"]["ranks"]["maxItems"], caps.ranks),
         "quantiles.maxItems": (s["QuantileLevels"]["maxItems"], caps.quantiles),
         "curve_points.maximum": (s["TopValuesRequest"]["properties"]["curve_points"]["maximum"], _max(tv["curve_points"])),
@@ -280,7 +281,6 @@ def test_caps_in_the_spec_are_the_service_caps():
         "inner components.maxItems": (s["InnerMixtureValues"]["properties"]["components"]["maxItems"], caps.components),
         "quantile_table points.maxItems": (s["QuantileTableValues"]["properties"]["points"]["maxItems"], _max(qt["points"])),
         "quantile_table points.minItems": (s["QuantileTableValues"]["properties"]["points"]["minItems"], qt["points"].minimum),
-        "auction bidders.maximum": (s["Bidders"]["maximum"], _max(rev["bidders"])),
         "revenue quantiles.maxItems": (s["QuantileLevels"]["maxItems"], _max(rev["quantiles"])),
         "revenue rules.maxItems": (s["RevenueRequest"]["properties"]["rules"]["maxItems"], _max(rev["rules"])),
         "bid-strategy points.minimum": (s["BidStrategyRequest"]["properties"]["points"]["minimum"], bid["points"].minimum),

@@ -103,8 +103,10 @@ class _Column(list):
 
 # ---- top values --------------------------------------------------------------------
 
-def top_values(report, model):
-    """Ranks in order, quantiles rising and inside the support, sds not negative."""
+def top_values(report, model, ordered=True):
+    """Ranks in order, quantiles rising and inside the support, sds not negative. Under an
+    uncertain count (``ordered`` False) each rank is given that it exists, and the ranks need
+    not be in order: the second-highest of many can exceed the highest of few."""
     a = Audit(report)
     results = report["results"]
     for i, item in enumerate(results):
@@ -118,7 +120,7 @@ def top_values(report, model):
             a.each(item["curve"]["pdf"], 0.0, math.inf, f"{path}.curve.pdf", "a density is never negative")
             a.each(item["curve"]["cdf"], 0.0, 1.0, f"{path}.curve.cdf", "a probability lies in [0, 1]")
             a.rising(item["curve"]["cdf"], f"{path}.curve.cdf", "a cdf rises")
-    order = sorted(range(len(results)), key=lambda i: results[i]["rank"])
+    order = sorted(range(len(results)), key=lambda i: results[i]["rank"]) if ordered else []
     for hi, lo in zip(order, order[1:]):
         upper, lower = results[hi], results[lo]
         law = f"rank {lower['rank']} never exceeds rank {upper['rank']}"
@@ -157,16 +159,17 @@ def _winner_pays(rule):
 EQUIVALENCE_RTOL = 1e-8
 
 
-def _floor(model, reserve, bidders, reverse):
+def _floor(model, reserve, lone, reverse):
     """The least a winner pays (forward) or the most it is paid (reverse): the reserve
-    where it binds; a lone bidder pays the reserve itself even outside the support."""
+    where it binds; a lone bidder (``lone``: one can take part) pays the reserve itself
+    even outside the support."""
     if reverse:
         if reserve is None:
             return model.upper
-        return reserve if bidders == 1 else min(reserve, model.upper)
+        return reserve if lone else min(reserve, model.upper)
     if reserve is None:
         return model.lower
-    return reserve if bidders == 1 else max(reserve, model.lower)
+    return reserve if lone else max(reserve, model.lower)
 
 
 def _trades_gain(model, reserve, own_value, reverse):
@@ -179,12 +182,13 @@ def _trades_gain(model, reserve, own_value, reverse):
     return (model.lower if reserve is None else max(reserve, model.lower)) >= own_value
 
 
-def revenue(report, model, reserve, own_value):
+def revenue(report, model, reserve, own_value, lone=None):
     """Each rule's figures, in the caller's sign (payments and costs when reverse) under the core's names."""
     a = Audit(report)
     reverse = report["direction"] == "reverse"
     mean_k, sd_k, q_k, p_k = "expected_revenue", "revenue_sd", "revenue_quantiles", "probability_of_sale"
-    floor = _floor(model, reserve, report["bidders"], reverse)
+    lone = report["bidders"] == 1 if lone is None else lone
+    floor = _floor(model, reserve, lone, reverse)
     gains = _trades_gain(model, reserve, own_value, reverse)
     for i, res in enumerate(report["results"]):
         path, p = f"results.{i}", res.get(p_k)
@@ -193,7 +197,7 @@ def revenue(report, model, reserve, own_value):
                  "efficiency is a share of the largest gains from trade")
         a.at_least(res, sd_k, 0.0, f"{path}.{sd_k}", "an sd is never negative")
         _surpluses(a, res, mean_k, path, floor, reverse)
-        if p is not None and math.isfinite(floor) and (_winner_pays(res["rule"]) or report["bidders"] == 1):
+        if p is not None and math.isfinite(floor) and (_winner_pays(res["rule"]) or lone):
             if reverse:
                 a.at_most(res, mean_k, floor * p, f"{path}.{mean_k}", "the winner is paid at most the maximum price")
             else:
@@ -242,7 +246,7 @@ def _equivalent(a, holders, mean_k, paths, scale, slack):
                                          "revenue equivalence makes them equal: it is not reliable"))
 
 
-def bids(report, model, reserve):
+def bids(report, model, reserve, lone=None):
     """Bids rise with the value; a winner-pays bid lies between the floor and the value,
     an all-pay bid (F^(n-1) times one) between 0 and the value when the floor is not
     negative. Reverse asks obey the same laws mirrored (checked on their negatives)."""
@@ -250,10 +254,11 @@ def bids(report, model, reserve):
     reverse = report["direction"] == "reverse"
     sign = -1.0 if reverse else 1.0
     at = report["values"]
-    floor = sign * _floor(model, reserve, report["bidders"], reverse)
+    lone = report["bidders"] == 1 if lone is None else lone
+    floor = sign * _floor(model, reserve, lone, reverse)
     twin = [None if b is None else sign * b for b in report["bids"]]  # forward bids
     word = "cost" if reverse else "value"
-    winner_pays = _winner_pays(report["rule"]) or report["bidders"] == 1
+    winner_pays = _winner_pays(report["rule"]) or lone
     for i, x in enumerate(at):
         if twin[i] is None or x is None:
             continue
@@ -289,7 +294,7 @@ def reserve_price(report, model, own_value):
     return a.done()
 
 
-def sweep(report, model, own_value=None):
+def sweep(report, model, own_value=None, groups=None, lone=None):
     """Each row: probabilities and efficiency in [0, 1], sds and surpluses not negative,
     revenue (payment) not negative when no value (cost) is; across the rules of one
     (bidders, reserve), revenue equivalence. Column by column, as arrays: a sweep holds up
@@ -301,8 +306,11 @@ def sweep(report, model, own_value=None):
     reverse = report["direction"] == "reverse"
     mean_k = "expected_revenue"
     table = _Table(cols, rows)
-    n, reserve = table.array("bidders"), table.array("reserve")
-    floor = _floor_array(model, reserve, n, reverse)
+    # each row's count as a number for grouping (``groups``: a distribution's rows share a code
+    # of their own) and whether a lone bidder can take part (``lone``)
+    reserve = table.array("reserve")
+    n = table.array("bidders") if groups is None else groups
+    floor = _floor_array(model, reserve, n == 1 if lone is None else lone, reverse)
     table.bound(a, "probability_of_sale", 0.0, 1.0, "a probability lies in [0, 1]")
     table.bound(a, "revenue_sd", 0.0, None, "an sd is never negative")
     if mean_k in table:
@@ -375,11 +383,11 @@ def _name_rows(a, bad, key, x, b, word, law, first=3):
         a.notes.append(Finding(key, f"breaks the same law in {len(bad) - first} more rows ({law}): they are not reliable"))
 
 
-def _floor_array(model, reserve, n, reverse):
-    """``_floor`` over a sweep's rows."""
+def _floor_array(model, reserve, lone, reverse):
+    """``_floor`` over a sweep's rows (``lone``: whether a lone bidder can take part)."""
     if reverse:
-        return np.where(n == 1, reserve, np.minimum(reserve, model.upper))
-    return np.where(n == 1, reserve, np.maximum(reserve, model.lower))
+        return np.where(lone, reserve, np.minimum(reserve, model.upper))
+    return np.where(lone, reserve, np.maximum(reserve, model.lower))
 
 
 def _trades_gain_array(model, reserve, own_value, reverse):

@@ -23,12 +23,12 @@ _GL = os_.GAUSS_RULES
 
 # M[q, j] = integral from node q to the panel end of the j-th Lagrange basis polynomial,
 # per rule, laid out transposed as one block-diagonal matrix for both rules side by side.
-_TAIL_BOTH = np.zeros((len(os_.BOTH_NODES),) * 2)
+TAIL_BOTH = np.zeros((len(os_.BOTH_NODES),) * 2)
 
 
 for _i, (_x, _) in enumerate(_GL):
     _block = slice(0, os_.RULE_SPLIT) if _i == 0 else slice(os_.RULE_SPLIT, None)
-    _TAIL_BOTH[_block, _block] = (os_.partial_panel_weights(1.0, _i) - os_.partial_panel_weights(_x, _i)).T
+    TAIL_BOTH[_block, _block] = (os_.partial_panel_weights(1.0, _i) - os_.partial_panel_weights(_x, _i)).T
 
 
 def _discounted_tails(panel, w, end):
@@ -40,6 +40,10 @@ def _discounted_tails(panel, w, end):
     for i in range(len(shrink) - 1, -1, -1):
         d[i] = shrink[i] * (panel[i] + d[i + 1])
     return np.array(d)
+
+
+#: Panel edges in w = (n-1)(s - s_q) for a bid integrated standalone (``EquilibriumBids._partial``).
+_W_EDGES = (0.0, 0.5, 1.5, 3.0, 5.5, 9.0, 14.0, 21.0, 30.0, 42.0, 58.0, 80.0)
 
 
 #: Where the highest value has no mean, the bid nodes stop at this value (see ``share_beyond_reach``).
@@ -83,11 +87,11 @@ class EquilibriumBids:
             mid = max(mid, self.floor)  # only bids above the floor are asked for
         return min(ends, key=lambda x: abs(x - mid)) if math.isfinite(mid) else ends[0]
 
-    def _reserve_mass(self, s_from):
-        """(floor - origin) e^(-(n-1)(s_r - s)): the reserve's part of the bid at s, from the origin."""
+    def _reserve_masses(self, s_from):
+        """(floor - origin) e^(-(n-1)(s_r - s)): the reserve's part of the bid at each s (array), from the origin."""
         if not (math.isfinite(self.s_r) and math.isfinite(self.floor)) or self.floor == self.origin:
-            return 0.0
-        return (self.floor - self.origin) * math.exp(-(self.rivals) * (self.s_r - s_from))
+            return np.zeros(np.shape(s_from))
+        return (self.floor - self.origin) * np.exp(-(self.rivals) * (self.s_r - s_from))
 
     def _growth(self):
         """Tail reach for the bid nodes' integrands: that of the highest value where its
@@ -155,26 +159,26 @@ class EquilibriumBids:
         return np.array([_discounted_tails(panels[:, i], k * nodes.se, end_mass) for i in (0, 1)]), g
 
     def _partial(self, s_q, s_end):
-        """Integral of (v - origin) (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone."""
+        """Integral of (v - origin) (n-1) e^(-(n-1)(s - s_q)) ds over [s_q, s_end], standalone,
+        for arrays of both: in w = (n-1)(s - s_q) on fixed panels out to w = 80 (e^-80 of the
+        first), split at the model's kinks, each panel by the 24-node Gauss-Legendre rule."""
         k = self.rivals
-        w_end = min(k * (s_end - s_q), 80.0)
-        if not w_end > 0:
-            return 0.0
-        m = self.model
-        edges = [0.0, *[x for x in (0.5, 1.5, 3.0, 5.5, 9.0, 14.0, 21.0, 30.0, 42.0, 58.0, 80.0) if x < w_end], w_end]
-        for uk in m.kinks_u():
-            wk = k * (-math.log(uk) - s_q)
-            if 0.0 < wk < w_end:
-                edges.append(wk)
-        edges = np.unique(edges)
+        s_q, s_end = np.broadcast_arrays(np.asarray(s_q, float), np.asarray(s_end, float))
+        w_end = np.minimum(k * (s_end - s_q), 80.0)
+        w_end = np.where(w_end > 0, w_end, 0.0)[..., None]
+        cuts = [np.broadcast_to(np.array(_W_EDGES), s_q.shape + (len(_W_EDGES),))]
+        kinks = np.array([-math.log(uk) for uk in self.model.kinks_u()])
+        if kinks.size:
+            cuts.append(k * (kinks - s_q[..., None]))
+        edges = np.sort(np.clip(np.concatenate(cuts, axis=-1), 0.0, w_end), axis=-1)
+        edges = edges[..., :int(np.sum(np.any(edges < w_end, axis=tuple(range(edges.ndim - 1))))) + 1]  # no empty panels
         (x, w) = _GL[0]
-        a, b = edges[:-1], edges[1:]
-        half, mid = 0.5 * (b - a), 0.5 * (b + a)
-        wp = (mid[:, None] + half[:, None] * x).ravel()
-        ww = (half[:, None] * w).ravel() * np.exp(-wp)
-        s = s_q + wp / k
-        vals = m.value_at(np.exp(-s), -np.expm1(-s))
-        return float(np.dot(ww, vals - self.origin))
+        a, b = edges[..., :-1, None], edges[..., 1:, None]
+        wp = 0.5 * (b + a) + 0.5 * (b - a) * x
+        ww = 0.5 * (b - a) * w * np.exp(-wp)
+        s = s_q[..., None, None] + wp / k
+        vals = self.model.value_at(np.exp(-s), -np.expm1(-s))
+        return (ww * (vals - self.origin)).sum(axis=(-1, -2))
 
     def at_s(self, s_q):
         """First-price equilibrium bids at values with -log F(v) = s_q (array): the floor
@@ -210,13 +214,16 @@ class EquilibriumBids:
             j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
             part = self.sub_integral(np.log(k * sq), edges[j + 1])
             res[on_panels] = self.origin + part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
-        for i in np.nonzero(~on_panels)[0]:
-            sq = flat[i]
-            if q.panels and sq < se[0]:
-                res[i] = self.origin + self._partial(sq, se[0]) + math.exp(-k * (se[0] - sq)) * d[0]
-            else:
-                end = self.s_r if math.isfinite(self.s_r) else sq + 80.0 / k
-                res[i] = self.origin + self._partial(sq, end) + self._reserve_mass(sq)
+        off = ~on_panels
+        above = off & (flat < se[0]) if q.panels else np.zeros(flat.shape, bool)
+        if above.any():  # above the panels: to the first edge, then the recurrence from there
+            sq = flat[above]
+            res[above] = self.origin + self._partial(sq, se[0]) + np.exp(-k * (se[0] - sq)) * d[0]
+        alone = off & ~above
+        if alone.any():
+            sq = flat[alone]
+            end = np.full(sq.shape, self.s_r) if math.isfinite(self.s_r) else sq + 80.0 / k
+            res[alone] = self.origin + self._partial(sq, end) + self._reserve_masses(sq)
         return res
 
     def sub_integral(self, t_q, t_end):
@@ -301,7 +308,7 @@ def _at_nodes(nodes, d, g):
     """The recurrence's integrals at the nodes: g integrated spectrally from every node to
     its panel's right end (no new value evaluations), plus each rule's tail beyond,
     shifted back to the node."""
-    return (nodes.half * (g @ _TAIL_BOTH) + d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
+    return (nodes.half * (g @ TAIL_BOTH) + d[:, 1:].T @ os_.RULE_COLUMNS.T) / nodes.growth
 
 
 @dataclass(frozen=True)

@@ -124,6 +124,7 @@ def _efficiency(auc, q, s0, warnings):
             (best, e_best), (lost, e_lost) = q.integrate_nodes(gain), q.integrate_nodes(gain, ~above)
         else:
             (best, e_best), (lost, e_lost) = q.integrate_nodes(gain, above), q.integrate_nodes(-gain, ~above)
+    auc.kept["efficiency_parts"] = (best, lost)  # an uncertain count mixes these, not the ratio
     if not best > 0:
         warnings.append("efficiency is null: no value exceeds the auctioneer's own, so there are no gains from trade")
         return None

@@ -185,6 +185,8 @@ def price_moment_exists(model, bidders, rule, p, floor=-math.inf):
     and an all-pay bid vanishes there once the bids exist ((n - 1) a_low > 1).
     """
     count = Bidders.of(bidders)
+    if not count.certain:
+        return all(price_moment_exists(model, n, rule, p, floor) for n in count.counts if n >= 1)
     if count.lone:
         return math.isfinite(floor)
     n, a, a_low = count.n, model.upper_tail_index, model.lower_tail_index
@@ -201,6 +203,11 @@ def check_price_exists(fmodel, bidders, floor=-math.inf):
     max(X2, r): with rivals it needs the second-highest value's mean, upper tail 2a > 1, and,
     unless the floor is finite, lower tail (n - 1) a_low > 1 (see ``price_moment_exists``)."""
     count = Bidders.of(bidders)
+    if not count.certain:
+        for n in count.counts:
+            if n >= 2:
+                check_price_exists(fmodel, n, floor)
+        return
     if not count.lone and not (2.0 * fmodel.upper_tail_index > 1.0
                                and (count.rivals * fmodel.lower_tail_index > 1.0 or math.isfinite(floor))):
         raise ParameterError("bidders", "the expected price does not exist: the value model's tail is too heavy")

@@ -10,10 +10,9 @@ import math
 
 import numpy as np
 
-from . import audit, bids, gains, price
+from . import audit, bids, gains, mixing, price
 from . import rules as R
 from .auction import ForwardAuction, forward_case
-from .bidders import Bidders
 from .errors import ParameterError
 from .notes import Note
 from .topvalues import finite
@@ -107,15 +106,15 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
     sign (a reverse auction's payments) under the core's names (service/web/wording.py
     names them for the caller)."""
     rules = R.names() if rules is None else rules
-    count = Bidders.of(bidders)
     fmodel, freserve, v0 = forward_case(model, direction, reserve, own_value)
+    count = mixing.resolve(bidders, fmodel, freserve)
     if direction == "forward" and v0 is None:
         v0 = 0.0
-    auc = ForwardAuction(fmodel, count, freserve, v0)
+    auc = ForwardAuction(fmodel, count, freserve, v0) if count.certain else mixing.MixedAuction(fmodel, count, freserve, v0)
     price.check_price_exists(fmodel, count, auc.floor)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
-    figures, warnings = forward_figures(auc, list(rules), fq)
+    figures, warnings = (forward_figures if count.certain else mixing.mixed_figures)(auc, list(rules), fq)
     warnings += _no_sale_note(auc)
     sign = 1.0 if direction == "forward" else -1.0
     results, err = [], 0.0
@@ -141,9 +140,29 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         "reserve": reserve,
         "results": results,
         "revenue_equivalence": finite(spread),
-        "numerics": {"method": "quantile_gauss_legendre+spectral_bid_integration", "abs_error": finite(err)},
+        **_count_fields(count),
+        "numerics": _numerics(count, "quantile_gauss_legendre+spectral_bid_integration", err),
         "warnings": warnings,
-    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0)
+    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0, count.may_be_lone)
+
+
+def _numerics(count, method, err):
+    """The method and error estimate, and for an uncertain count the counts summed over."""
+    out = {"method": method if count.certain else method + "+count_mixture", "abs_error": finite(err)}
+    if not count.certain:
+        out["bidder_counts"] = count.numerics()
+    return out
+
+
+def _count_fields(count):
+    """What a report says of an uncertain count beyond its JSON: the expected number of
+    bidders and, for costly entry, the entry probability found."""
+    if count.certain and count.entry is None:
+        return {}
+    out = {"expected_bidders": finite(count.mean)}
+    if count.entry is not None:
+        out["entry_probability"] = finite(count.entry["entry_probability"])
+    return out
 
 
 def _grid(model, points):
@@ -156,17 +175,20 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     """Equilibrium bids on a grid of values (forward) or costs (reverse: asks), the grid under
     the key ``values`` either way; where none is given, ``points`` values across the support."""
     fmodel, freserve, _ = forward_case(model, direction, reserve, None)
-    auc = ForwardAuction(fmodel, bidders, freserve, 0.0)
-    count, pricing = auc.bidders, R.get(rule).pricing
-    if not pricing.truthful and not count.lone and not auc.reserve_binds \
-            and not count.rivals * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
+    count = mixing.resolve(bidders, fmodel, freserve)
+    auc = ForwardAuction(fmodel, count, freserve, 0.0) if count.certain else mixing.MixedAuction(fmodel, count, freserve, 0.0)
+    pricing = R.get(rule).pricing
+    least_rivals = min([n - 1.0 for n in count.counts if n >= 2], default=0.0)
+    if not pricing.truthful and least_rivals and not auc.reserve_binds \
+            and not least_rivals * fmodel.lower_tail_index > 1.0:  # b(v) needs E[Y; Y < v]: the lower tail alone
         raise ParameterError("bidders", "the equilibrium bids do not exist: the expected best rival value diverges "
                                         "(the value model's tail is too heavy); give a reserve")
     grid = np.asarray(at, float) if at is not None else _grid(model, points)
     v = grid if direction == "forward" else -grid
     inside = (v >= fmodel.lower) & (v <= fmodel.upper)
     takes_part = inside & (v >= auc.floor)
-    bids = v.copy() if pricing.truthful else _equilibrium_bids(auc, pricing, v)
+    bids = v.copy() if pricing.truthful else _equilibrium_bids(auc, pricing, v) if count.certain \
+        else mixing.mixed_bids(auc, pricing, v)
     if direction == "reverse":
         bids = -bids
     out_bids = [finite(b) if ok else None for b, ok in zip(bids.tolist(), takes_part.tolist())]
@@ -176,8 +198,9 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     if not all(takes_part[inside]):
         warnings.append(Note("not_taking_part"))
     warnings += _no_sale_note(auc)
-    return audit.bids({"direction": direction, "rule": rule, "bidders": count.to_params(),
-                       "values": [finite(x) for x in grid.tolist()], "bids": out_bids, "warnings": warnings}, model, reserve)
+    return audit.bids({"direction": direction, "rule": rule, "bidders": count.to_params(), **_count_fields(count),
+                       "values": [finite(x) for x in grid.tolist()], "bids": out_bids, "warnings": warnings}, model, reserve,
+                      count.may_be_lone)
 
 
 def _equilibrium_bids(auc, pricing, v):

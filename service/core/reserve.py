@@ -9,9 +9,9 @@ import math
 import numpy as np
 from scipy import optimize
 
-from . import audit, revenue
+from . import audit, mixing, revenue
 from .auction import ForwardAuction, forward_case
-from .bidders import Bidders
+from .bidders import Bidders, CostlyEntry
 from .errors import ParameterError
 from .price import check_price_exists
 from .topvalues import finite
@@ -19,8 +19,14 @@ from .valuespace import refined_value_integral
 
 
 def _sp_payoff(model, bidders, r, v0):
-    """Seller's expected payoff with reserve r: revenue plus v0 P(no sale)."""
-    auc = ForwardAuction(model, bidders, r, v0)
+    """Seller's expected payoff with reserve r: revenue plus v0 P(no sale); for an uncertain
+    count each count's revenue mixed (no bidder: no sale)."""
+    count = Bidders.of(bidders)
+    if not count.certain:
+        parts = [(w, _sp_payoff(model, n, r, v0)) for n, w in zip(count.counts, count.weights) if n >= 1]
+        rev, p_sale = sum(w * x[1] for w, x in parts), sum(w * x[2] for w, x in parts)
+        return rev + v0 * (1.0 - p_sale), rev, p_sale
+    auc = ForwardAuction(model, count, r, v0)
     rev = auc.lone_price * auc.p_sale if auc.bidders.lone else revenue.second_price_revenue(auc)[0]
     return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
 
@@ -119,10 +125,10 @@ def _best_reserve(model, bidders, v0, x, lo, hi, scale):
     if len(peaks) == 1:
         return peaks[0]
 
-    def slope(r):
+    def slope(r):  # H'(F(r)) = E[N F^(N-1)], n F^(n-1) for a certain count
         with np.errstate(all="ignore"):
-            rivals = 1.0 if count.lone else np.exp(-count.rivals * model.neg_log_cdf(r))
-            return count.n * np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
+            rivals = count.highest_density_s(model.neg_log_cdf(r))
+            return np.where(rivals > 0.0, rivals * _payoff_slope(model, r, v0), 0.0)
 
     gains = [0.0]
     for a, b in zip(peaks[:-1], peaks[1:]):
@@ -133,22 +139,54 @@ def _best_reserve(model, bidders, v0, x, lo, hi, scale):
     return peaks[int(np.argmax(gains))]
 
 
+def _entry_optimum(model, entry, v0):
+    """The reserve that maximises the seller's expected payoff when the reserve also sets who
+    enters (Levin and Smith 1994): entry re-solved at each reserve (``mixing.entry_count``),
+    the payoff scanned on a quantile grid (with v0) and refined by a bounded search between
+    the best point's neighbours."""
+    grid = _reserve_grid(model)[::25]
+    if model.lower < v0 < model.upper:
+        grid = np.unique(np.append(grid, v0))
+    grid = grid[np.isfinite(grid)]
+
+    def payoff(r):
+        return _sp_payoff(model, mixing.resolve(entry, model, float(r)), float(r), v0)[0]
+
+    values = [payoff(r) for r in grid]
+    i = int(np.argmax(values))
+    a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, len(grid) - 1)])
+    if not b > a:
+        return float(grid[i])
+    best = optimize.minimize_scalar(lambda r: -payoff(r), bounds=(a, b), method="bounded",
+                                    options={"xatol": 1e-10 * max(abs(a), abs(b), b - a)})
+    return float(best.x) if -best.fun >= values[i] else float(grid[i])
+
+
 def reserve_report(model, direction, bidders, own_value):
     """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's)
     expected payoff, in the caller's sign under the core's names; ``outcome`` says how the
     optimum was found (see :func:`optimal_reserve`), for the web layer's note."""
-    count = Bidders.of(bidders)
     fmodel, _, v0 = forward_case(model, direction, None, own_value)
-    r_star, regular, outcome = optimal_reserve(fmodel, count, v0)
+    if isinstance(bidders, CostlyEntry):
+        count0 = mixing.resolve(bidders, fmodel, None)
+        regular = optimal_reserve(fmodel, count0, v0)[1]  # a property of the value model alone
+        r_star, outcome = _entry_optimum(fmodel, bidders, v0), "entry"
+        count = mixing.resolve(bidders, fmodel, r_star)
+    else:
+        count = count0 = Bidders.of(bidders)
+        r_star, regular, outcome = optimal_reserve(fmodel, count, v0)
     check_price_exists(fmodel, count)
     payoff, rev, p_sale = _sp_payoff(fmodel, count, r_star, v0)
-    payoff0, rev0, _ = _sp_payoff(fmodel, count, None, v0) if (not count.lone or math.isfinite(fmodel.lower)) else (None, None, None)
+    payoff0, rev0, _ = _sp_payoff(fmodel, count0, None, v0) if (not count0.may_be_lone or math.isfinite(fmodel.lower)) \
+        else (None, None, None)
     # the buyer's payoff, own_value P(award) - payment, from the forward twin's revenue + v0 P(no sale)
     to_payoff = (lambda x: x) if direction == "forward" else (lambda x: x + own_value)
     sign = 1.0 if direction == "forward" else -1.0
     out = {
         "direction": direction,
         "bidders": count.to_params(),
+        **({} if count.certain and count.entry is None else {"expected_bidders": finite(count.mean)}),
+        **({} if count.entry is None else {"entry_probability": finite(count.entry["entry_probability"])}),
         "optimal_reserve": finite(sign * r_star),
         "expected_revenue_at_optimum": finite(sign * rev),
         "expected_revenue_without_reserve": finite(None if rev0 is None else sign * rev0),

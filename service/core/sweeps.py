@@ -18,7 +18,7 @@ import math
 
 import numpy as np
 
-from . import audit, budget, gains, price, reports
+from . import audit, budget, gains, mixing, price, reports
 from . import rules as R
 from . import orderstats as os_
 from .auction import FAR_RESERVE, ForwardAuction, forward_case
@@ -326,14 +326,23 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
     for i, m in enumerate(metrics):
         if m not in METRICS:
             raise ParameterError(f"metrics.{i}", f"one of {', '.join(METRICS)}")
-    for n in sorted(set(bidders)):  # every row comes from the bids without a reserve, which must exist
+    for n in sorted({n for n in bidders if isinstance(n, int)}):  # every row comes from the bids without a reserve, which must exist
         check_price_exists(fmodel, n)
     res = np.asarray(reserves, float)
     fres = res if direction == "forward" else -res
     sign = 1.0 if direction == "forward" else -1.0
-    rows, warnings = [], []
-    for n in bidders:
+    rows, warnings, groups, lone = [], [], [], []
+    for i, n in enumerate(bidders):
         budget.check()
+        if not isinstance(n, int):  # a distribution over the count: each reserve by the single-scenario route
+            for row in _count_rows(fmodel, n, res, fres, rules, metrics, v0, sign, warnings):
+                rows.append(row)
+                groups.append(-1.0 - i)
+                lone.append(row[-1])
+                row.pop()
+            continue
+        groups += [float(n)] * (len(res) * len(rules))
+        lone += [n == 1] * (len(res) * len(rules))
         blk = _block(fmodel, n, fres, v0)
         # a finite floor (the reserve, or the bottom of the support) is all the sd's existence asks of a row
         has_var = {(rule, f): price_moment_exists(fmodel, n, rule, 2, 0.0 if f else -math.inf) for rule in rules for f in (0, 1)}
@@ -344,7 +353,30 @@ def sweep(model, direction, bidders, reserves, rules, metrics, own_value=None):
                 rows.append([n, r, rule, *[finite(cells[m]) for m in metrics]])
         _note_nulls(blk, has_var, rules, n, warnings)
     table = {"direction": direction, "columns": ["bidders", "reserve", "rule", *metrics], "rows": rows, "warnings": warnings}
-    return audit.sweep(table, model, own_value if own_value is not None or direction == "reverse" else 0.0)
+    return audit.sweep(table, model, own_value if own_value is not None or direction == "reverse" else 0.0,
+                       groups=np.array(groups), lone=np.array(lone, bool))
+
+
+def _count_rows(fmodel, count, res, fres, rules, metrics, v0, sign, warnings):
+    """The rows of one uncertain count (``Bidders``, or costly entry, solved at each reserve):
+    every reserve computed as /v1/revenue computes it, each row ending with whether a lone
+    bidder can take part (for the audit; the caller takes it off)."""
+    out = []
+    for r, fr in zip(res.tolist(), fres.tolist()):
+        budget.check()
+        reserve = None if not math.isfinite(fr) else fr
+        c = mixing.resolve(count, fmodel, reserve)
+        check_price_exists(fmodel, c, max(fr, fmodel.lower))
+        auc = ForwardAuction(fmodel, c, reserve, v0) if c.certain else mixing.MixedAuction(fmodel, c, reserve, v0)
+        figures, notes = (reports.forward_figures if c.certain else mixing.mixed_figures)(auc, list(rules), [])
+        warnings += [f"{c.to_params()}: {w}" for w in notes if isinstance(w, str) and f"{c.to_params()}: {w}" not in warnings]
+        for rule in rules:
+            f = figures[rule]
+            rev, p = f["expected_revenue"], f["probability_of_sale"]
+            cells = {**f, "expected_revenue": None if rev is None else sign * rev,
+                     "expected_payoff": None if v0 is None or rev is None else (rev + v0 * (1.0 - p) if sign > 0 else rev - v0 * p)}
+            out.append([c.to_params(), r, rule, *[finite(cells[m]) for m in metrics], c.may_be_lone])
+    return out
 
 
 def _note_nulls(blk, has_var, rules, n, warnings):

@@ -5,8 +5,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import special
 
-from .bidders import Bidders
 from . import audit, budget
 from . import orderstats as os_
 from .errors import ParameterError
@@ -37,7 +37,11 @@ def _numerics(summaries, gap_error=0.0):
 def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
     """Mean, sd, quantiles (and optionally the pdf/cdf curve) of each rank; ``bidders`` a count
     or :class:`bidders.Bidders`."""
-    count = Bidders.of(bidders)
+    from . import mixing  # mixing builds on the auction modules, which import this one
+
+    count = mixing.resolve(bidders, model)
+    if not count.certain:
+        return _mixed_top_values(model, count, ranks, quantiles, curve_points)
     bidders = count.n
     if ranks is None:
         ranks = [1] if count.lone else [1, 2]
@@ -74,6 +78,37 @@ def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.9
     out["warnings"] = warnings
     out["ranks_counted_from"] = "highest"
     return audit.top_values(out, model)
+
+
+def _mixed_top_values(model, count, ranks, quantiles, curve_points):
+    """The top-values report under an uncertain count: each rank's chance to exist
+    (``probability_exists``, P(N >= rank)) and its figures given that it does."""
+    from . import mixing
+
+    if ranks is None:
+        ranks = [1, 2]
+    for i, r in enumerate(ranks):
+        if r > count.counts[-1]:
+            raise ParameterError(f"ranks.{i}", f"rank {r} exceeds the largest number of bidders ({count.counts[-1]})")
+    if curve_points:
+        raise ParameterError("curve_points", "curves are drawn for a certain number of bidders; give an integer bidders")
+    results, warnings, summaries = [], [], []
+    for r in ranks:
+        exists, mean, sd, qs, parts = mixing.top_value_figures(model, count, r, quantiles)
+        summaries += parts
+        for x in parts:
+            warnings += [w for w in x.warnings if w not in warnings]
+        results.append({"rank": r, "probability_exists": finite(exists), "mean": finite(mean), "sd": finite(sd),
+                        "quantiles": [{"p": float(p), "value": finite(q)} for p, q in zip(quantiles, np.asarray(qs, float))]})
+    gap, gap_error = mixing.mixed_gap(model, count)
+    numerics = _numerics(summaries, gap_error)
+    numerics["method"] += "+count_mixture"
+    numerics["bidder_counts"] = count.numerics()
+    out = {"bidders": count.to_params(), "expected_bidders": finite(count.mean), "results": results,
+           "expected_gap": finite(gap), "numerics": numerics, "warnings": warnings, "ranks_counted_from": "highest"}
+    if count.entry is not None:
+        out["entry_probability"] = finite(count.entry["entry_probability"])
+    return audit.top_values(out, model, ordered=False)
 
 
 def lowest_costs(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
@@ -120,12 +155,22 @@ def _overflow_note(dens, warnings):
 
 def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     """Joint density of two ranks on a grid (with its mass) or at given points."""
-    bidders = Bidders.of(bidders).n
+    from . import mixing
+
+    count = mixing.resolve(bidders, model)
+    bidders = count.to_params()
     i, j = ranks
     if not i < j:
         raise ParameterError("ranks.1", "the second rank must be lower (a larger number) than the first")
-    if j > bidders:
-        raise ParameterError("ranks.1", f"rank {j} exceeds the number of bidders ({bidders})")
+    if j > count.counts[-1]:
+        raise ParameterError("ranks.1", f"rank {j} exceeds the number of bidders ({count.counts[-1]})")
+    live = [(n, w) for n, w in zip(count.counts, count.weights) if n >= j]
+    exists = sum(w for _, w in live)
+
+    def log_density(x, y):
+        """The joint log density given that both ranks exist: each count's, mixed."""
+        parts = [math.log(w / exists) + os_.joint_logdensity(model, n, i, j, x, y) for n, w in live]
+        return special.logsumexp(np.stack(np.broadcast_arrays(*parts)), axis=0) if len(parts) > 1 else parts[0]
     if model.discrete:
         raise ParameterError("smoothing", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
     if points is not None:
@@ -136,23 +181,24 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
             budget.check()
             part = slice(start, start + _CHUNK)
             with np.errstate(over="ignore"):
-                d[part] = np.exp(os_.joint_logdensity(model, bidders, i, j, hx[part], ly[part]))
+                d[part] = np.exp(log_density(hx[part], ly[part]))
         warnings = []
         _overflow_note(d, warnings)
         return audit.joint_density({
             "bidders": bidders,
+            **({} if count.certain else {"probability_exists": finite(exists)}),
             "ranks": [i, j],
             "points": [{"higher": float(a), "lower": float(b), "density": finite(c)} for a, b, c in zip(hx, ly, d)],
             "warnings": warnings,
         })
-    lo = max(float(os_.rank_quantiles(model, bidders, j, [5e-4])[0]), model.lower)
-    hi = min(float(os_.rank_quantiles(model, bidders, i, [1 - 5e-4])[0]), model.upper)
+    lo = max(float(os_.rank_quantiles(model, live[0][0], j, [5e-4])[0]), model.lower)
+    hi = min(float(os_.rank_quantiles(model, live[-1][0], i, [1 - 5e-4])[0]), model.upper)
     if not (math.isfinite(lo) and math.isfinite(hi)):
         raise ParameterError("bidder_values", "the ranks' quantiles pass double range (about 1e308): no grid can hold "
                                               "their density; ask for the density at points instead")
     axis = np.linspace(lo, hi, grid_points)
     budget.check()
-    log_dens = os_.joint_logdensity(model, bidders, i, j, axis[:, None], axis[None, :])
+    log_dens = log_density(axis[:, None], axis[None, :])
     with np.errstate(over="ignore"):
         dens = np.exp(log_dens)
     mass = _triangle_mass(log_dens, axis)
@@ -164,6 +210,7 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
         warnings.append(f"the grid holds {mass:.3f} of the probability; the density may be too sharp for {grid_points} grid points")
     return audit.joint_density({
         "bidders": bidders,
+        **({} if count.certain else {"probability_exists": finite(exists)}),
         "ranks": [i, j],
         "higher": finite_list(axis),
         "lower": finite_list(axis),

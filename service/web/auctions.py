@@ -10,7 +10,7 @@ from marshmallow import Schema, ValidationError, validates_schema
 
 from ..core import reports, reserve
 from ..core import rules as core_rules
-from .fields import CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
+from .fields import BiddersField, count_work, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
 from . import admission, wording
 from .io import core_call, load, register_posts
 
@@ -22,7 +22,7 @@ class _AuctionRequest(Schema):
 
     bidder_values = ValueModelField(load_default=None)
     bidder_costs = ValueModelField(load_default=None)
-    bidders = StrictInteger(minimum=1, maximum="bidders", required=True)
+    bidders = BiddersField(required=True)
     seller_value = StrictFloat(load_default=None)
     buyer_value = StrictFloat(load_default=None)
 
@@ -77,7 +77,7 @@ class ReservePriceRequest(_AuctionRequest):
 
 def revenue_handler(body):
     req = load(RevenueRequest, body)
-    admission.admit(work=_model_work(body) * len(req["rules"]), numbers=len(req["rules"]) * (24 + 2 * len(req["quantiles"])),
+    admission.admit(work=_model_work(body) * len(req["rules"]) * count_work(req["bidders"]), numbers=len(req["rules"]) * (24 + 2 * len(req["quantiles"])),
                     field="quantiles")
     model, direction, own = _case(req)
     return wording.revenue(core_call(
@@ -90,7 +90,7 @@ def revenue_handler(body):
 def bid_strategy_handler(body):
     req = load(BidStrategyRequest, body)
     count = len(req["at"]) if req["at"] is not None else req["points"] or 51
-    admission.admit(work=_model_work(body) * (1 + count / 100), numbers=2 * count,
+    admission.admit(work=_model_work(body) * (1 + count / 100) * count_work(req["bidders"]), numbers=2 * count,
                     field="at" if req["at"] is not None else "points")
     model, direction, _ = _case(req)
     return wording.bids(core_call(
@@ -102,7 +102,7 @@ def bid_strategy_handler(body):
 
 def reserve_price_handler(body):
     req = load(ReservePriceRequest, body)
-    admission.admit(work=_model_work(body) * 20, numbers=16, field="bidders")
+    admission.admit(work=_model_work(body) * 20 * count_work(req["bidders"]), numbers=16, field="bidders")
     model, direction, own = _case(req)
     return wording.reserve(core_call(
         reserve.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",

@@ -10,11 +10,12 @@ import functools
 import math
 
 from flask import current_app, has_app_context
-from marshmallow import Schema, ValidationError, fields, validate
+from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from .. import settings
 from ..core import models as M
 from ..core import rules
+from ..core.bidders import Bidders, CostlyEntry, check_counts
 from ..core.errors import ParameterError
 
 
@@ -241,6 +242,88 @@ def build_value_model(data, depth=0):
         return M.Mixture(comps)
     except ParameterError as e:
         raise ValidationError(_at(e.field, e.message)) from None
+
+
+class _PoissonCount(Schema):
+    distribution = fields.String(required=True)
+    mean = StrictFloat(bound="positive", required=True)
+
+
+class _BinomialCount(Schema):
+    distribution = fields.String(required=True)
+    potential = StrictInteger(minimum=1, maximum="bidders", required=True)
+    entry_probability = StrictFloat(bound="probability", required=True)
+
+
+class _CountRow(Schema):
+    bidders = StrictInteger(minimum=0, maximum="bidders", required=True)
+    p = StrictFloat(bound="probability", required=True)
+
+
+class _TableCount(Schema):
+    distribution = fields.String(required=True)
+    probabilities = CappedList(fields.Nested(_CountRow), 1, "bidder_counts", required=True)
+
+    @validates_schema
+    def _sums_to_one(self, data, **kw):
+        total = math.fsum(row["p"] for row in data.get("probabilities", ()))
+        if abs(total - 1.0) > 1e-9:
+            raise ValidationError({"probabilities": [f"The probabilities sum to {total:.12g}; they must sum to 1 (within 1e-9)."]})
+
+
+class _EntryCount(Schema):
+    distribution = fields.String(required=True)
+    potential = StrictInteger(minimum=1, maximum="bidder_counts", required=True)
+    entry_cost = StrictFloat(bound="nonnegative", required=True)
+
+
+_COUNTS = {"poisson": _PoissonCount(), "binomial": _BinomialCount(), "table": _TableCount(), "entry": _EntryCount()}
+
+
+def build_bidders(value):
+    """An integer count, or a distribution object, as the core's ``Bidders`` (``CostlyEntry``
+    for costly entry, which the core resolves against the value model and the reserve)."""
+    if not isinstance(value, dict):
+        return StrictInteger(minimum=1, maximum="bidders").deserialize(value)
+    kind = value.get("distribution")
+    if kind not in _COUNTS:
+        raise ValidationError({"distribution": [f"Must be one of: {', '.join(_COUNTS)} (or give an integer)."]})
+    d = _COUNTS[kind].load(value)
+    if kind == "entry":
+        return CostlyEntry(d["potential"], d["entry_cost"])
+    if kind == "poisson":
+        count, field = Bidders.poisson(d["mean"]), "mean"
+    elif kind == "binomial":
+        count, field = Bidders.binomial(d["potential"], d["entry_probability"]), "entry_probability"
+    else:
+        count, field = Bidders.table([(row["bidders"], row["p"]) for row in d["probabilities"]]), "probabilities"
+    try:
+        return check_counts(count, field, caps().bidder_counts, caps().bidders)
+    except ParameterError as e:
+        raise ValidationError(_at(e.field, e.message + f" (the service's caps, {settings.ENV_NAMES['bidder_counts']} "
+                                                       f"and {settings.ENV_NAMES['bidders']})")) from None
+
+
+class BiddersField(fields.Field):
+    """``bidders``: an integer, or a distribution over the count (see ``build_bidders``)."""
+
+    def _deserialize(self, value, attr, data, **kw):
+        return build_bidders(value)
+
+
+def count_work(count):
+    """How many auctions' figures a count asks for: one per count it spans (costly entry
+    adds one per potential bidder to find the entry probability)."""
+    if isinstance(count, int):
+        return 1
+    return 2 * count.potential if isinstance(count, CostlyEntry) else len(count.counts)
+
+
+def most_bidders(count):
+    """The largest count that can occur (an integer as it is)."""
+    if isinstance(count, int):
+        return count
+    return count.potential if isinstance(count, CostlyEntry) else count.counts[-1]
 
 
 class ValueModelField(fields.Field):

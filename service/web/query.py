@@ -110,7 +110,28 @@ def case_body(args, door, errors, keys):
     for key in keys:
         if key in args:
             body[key] = door.number(key, args[key], errors)
+    if "bidders" in keys and "bidders_distribution" in args:
+        if "bidders" in args:
+            errors["bidders"] = ["Give bidders (a number) or bidders_distribution with its parameters, not both."]
+        body["bidders"] = count_body(args, door, errors)
     return body
+
+
+#: The flat names of a count's distribution: bidders_distribution and its parameters.
+COUNT_KEYS = ("bidders_distribution", "bidders_mean", "bidders_potential", "bidders_entry_probability", "bidders_entry_cost")
+
+
+def count_body(args, door, errors):
+    """``bidders`` as a distribution object from the flat names (``COUNT_KEYS``); a table of
+    counts needs POST."""
+    kind = args["bidders_distribution"]
+    if kind == "table":
+        errors["bidders_distribution"] = ["A table of counts needs POST; here poisson, binomial or entry."]
+    out = {"distribution": kind}
+    for key in COUNT_KEYS[1:]:
+        if key in args:
+            out[key.removeprefix("bidders_")] = door.number(key, args[key], errors)
+    return out
 
 
 def unknown(args, known, errors):

@@ -43,7 +43,8 @@ def _rule(args, door, errors):
 def _body_from_query(args, door):
     """(metric, direction, rule, POST body) from the query, or ValidationError."""
     errors = {}
-    query.unknown(args, {"metric", "rule", "rules", "direction", "family", *_CASE_KEYS, *query.model_keys()}, errors)
+    query.unknown(args, {"metric", "rule", "rules", "direction", "family", *_CASE_KEYS, *query.COUNT_KEYS, *query.model_keys()},
+                  errors)
     metric = args.get("metric")
     if metric not in METRICS:
         errors["metric"] = [f"One of: {', '.join(METRICS)}."]

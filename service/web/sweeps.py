@@ -15,7 +15,7 @@ from ..core.budget import BudgetSpent
 from . import query
 from . import admission, wording
 from .auctions import _AuctionRequest, _case, _model_work
-from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
+from .fields import BiddersField, CappedList, StrictFloat, StrictInteger, caps, count_work, rule_list
 from .io import core_call, json_body, json_response, load
 from .problems import spent_error, validation_problem
 
@@ -115,7 +115,7 @@ def _float_range(r):
 
 
 class SweepRequest(_AuctionRequest):
-    bidders = _ListOrRange(StrictInteger(minimum=1, maximum="bidders"), IntRange, _int_range, required=True)
+    bidders = _ListOrRange(BiddersField(), IntRange, _int_range, required=True)
     reserves = _ListOrRange(StrictFloat(), FloatRange, _float_range, required=True)
     rules = rule_list(load_default=lambda: ["first_price", "second_price"])
     metrics = CappedList(fields.String(), 1, len(sweeps.METRICS), load_default=None)
@@ -133,7 +133,9 @@ def sweeps_handler(body):
     model, direction, own = _case(req)
     metrics = _core_metrics(req["metrics"], direction)
     rows = len(req["bidders"]) * len(req["reserves"]) * len(req["rules"])
-    admission.admit(work=_model_work(body) * len(req["bidders"]) * (1 + len(req["reserves"]) / 50),
+    fixed = sum(isinstance(n, int) for n in req["bidders"])
+    mixed = sum(count_work(n) for n in req["bidders"] if not isinstance(n, int))
+    admission.admit(work=_model_work(body) * (fixed * (1 + len(req["reserves"]) / 50) + mixed * len(req["reserves"]) * len(req["rules"])),
                     numbers=rows * (3 + len(metrics)), field="bidders")
     return wording.sweep(core_call(
         sweeps.sweep, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
@@ -163,9 +165,27 @@ def to_csv(table, decimal=".", separator=","):
     buf = _io.StringIO()
     w = csv.writer(buf, delimiter=separator, lineterminator="\r\n")
     w.writerow(table["columns"])
+    def cell(x):
+        if isinstance(x, dict):
+            return count_label(x, decimal)
+        return "" if x is None else (repr(x).replace(".", decimal) if isinstance(x, float) else x)
+
     for row in table["rows"]:
-        w.writerow(["" if x is None else (repr(x).replace(".", decimal) if isinstance(x, float) else x) for x in row])
+        w.writerow([cell(x) for x in row])
     return Response(buf.getvalue(), mimetype="text/csv")
+
+
+def count_label(count, decimal="."):
+    """A distribution over the count in one CSV cell: ``poisson(mean=4.5)``,
+    ``binomial(potential=8 entry_probability=0.6)``, ``table(0:0.1 3:0.9)``."""
+    def num(x):
+        return repr(x).replace(".", decimal) if isinstance(x, float) else str(x)
+
+    if count["distribution"] == "table":
+        inner = " ".join(f"{row['bidders']}:{num(row['p'])}" for row in count["probabilities"])
+    else:
+        inner = " ".join(f"{k}={num(v)}" for k, v in count.items() if k != "distribution")
+    return f"{count['distribution']}({inner})"
 
 
 def _wants_csv():
@@ -184,12 +204,19 @@ SEPARATOR_NAMES = {",": ",", ";": ";", "tab": "\t"}
 def _known():
     """The query names this door takes (the families' parameters read when a request loads)."""
     return {"direction", "family", "seller_value", "buyer_value", "rule", "rules", "metrics", "separator", "bidders", "reserves",
-            *query.model_keys(), *(f"{axis}_{k}" for axis in ("bidders", "reserves") for k in _RANGE)}
+            *query.model_keys(), *(f"{axis}_{k}" for axis in ("bidders", "reserves") for k in _RANGE), *query.COUNT_KEYS}
 
 
 def _axes(args, door, body, errors):
     """Each axis from its list (items separated as ``door`` says) or its range keys, not both."""
+    if "bidders_distribution" in args:
+        given = [k for k in ("bidders", *(f"bidders_{k}" for k in _RANGE)) if k in args]
+        if given:
+            errors[given[0]] = ["Give bidder counts or bidders_distribution with its parameters, not both."]
+        body["bidders"] = _count_axis(args, door, errors)
     for axis in ("bidders", "reserves"):
+        if axis == "bidders" and "bidders_distribution" in args:
+            continue
         ranged = [f"{axis}_{k}" for k in _RANGE if f"{axis}_{k}" in args]
         if axis in args and ranged:
             errors[axis] = [f"Give either the list {axis} or the range {', '.join(ranged)}, not both."]
@@ -197,6 +224,22 @@ def _axes(args, door, body, errors):
             body[axis] = door.number_list(axis, args[axis], errors)
         elif ranged:
             body[axis] = {k: door.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors) for k in _RANGE if f"{axis}_{k}" in args}
+
+
+def _count_axis(args, door, errors):
+    """Distributions over the count from flat parameters: ``bidders_distribution`` and its
+    parameters, each one number or a list; the lists (all of one length) make one
+    distribution per item, so ``bidders_mean=2,4,8`` sweeps a Poisson count's mean."""
+    kind = args["bidders_distribution"]
+    if kind == "table":
+        errors["bidders_distribution"] = ["A table of counts needs POST; here poisson, binomial or entry."]
+    params = {k.removeprefix("bidders_"): door.number_list(k, args[k], errors) or [None] for k in query.COUNT_KEYS[1:] if k in args}
+    lengths = {len(v) for v in params.values() if len(v) > 1}
+    if len(lengths) > 1:
+        errors["bidders_distribution"] = ["The lists of its parameters must be of one length."]
+        return []
+    size = lengths.pop() if lengths else 1
+    return [{"distribution": kind, **{k: v[i] if len(v) > 1 else v[0] for k, v in params.items()}} for i in range(size)]
 
 
 @bp.get("/v1/sweeps.csv")

@@ -5,7 +5,7 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from ..core import topvalues
-from .fields import CappedList, StrictFloat, StrictInteger, ValueModelField
+from .fields import BiddersField, count_work, CappedList, StrictFloat, StrictInteger, ValueModelField, most_bidders
 from . import admission
 from .io import core_call, load, register_posts
 
@@ -16,7 +16,7 @@ class TopValuesRequest(Schema):
     """Values (ranks from the highest) or costs (ranks from the lowest), one of the two."""
     bidder_values = ValueModelField()
     bidder_costs = ValueModelField()
-    bidders = StrictInteger(minimum=1, maximum="bidders", required=True)
+    bidders = BiddersField(required=True)
     ranks = CappedList(StrictInteger(minimum=1), 1, "ranks", load_default=None)
     quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
@@ -28,7 +28,8 @@ class TopValuesRequest(Schema):
             raise ValidationError({"bidder_values": ["Give bidder_values (ranks counted from the highest) or bidder_costs "
                                                      "(ranks counted from the lowest), one of the two."]})
         if data.get("ranks") and "bidders" in data:
-            bad = {i: [f"Must be at most bidders ({data['bidders']})."] for i, r in enumerate(data["ranks"]) if r > data["bidders"]}
+            most = most_bidders(data["bidders"])
+            bad = {i: [f"Must be at most bidders ({most})."] for i, r in enumerate(data["ranks"]) if r > most}
             if bad:
                 raise ValidationError({"ranks": bad})
         if data.get("curve_points") == 1:
@@ -42,7 +43,7 @@ class JointPoint(Schema):
 
 class JointDensityRequest(Schema):
     bidder_values = ValueModelField(required=True)
-    bidders = StrictInteger(minimum=2, maximum="bidders", required=True)
+    bidders = BiddersField(required=True)
     ranks = CappedList(StrictInteger(minimum=1), 2, 2, load_default=lambda: [1, 2])
     grid_points = StrictInteger(minimum=2, maximum="grid_points", load_default=None)
     points = CappedList(fields.Nested(JointPoint), 1, "points", load_default=None)
@@ -51,19 +52,21 @@ class JointDensityRequest(Schema):
     def _one_of(self, data, **kw):
         if data.get("grid_points") is not None and data.get("points") is not None:
             raise ValidationError({"points": ["Give grid_points or points, not both."]})
+        if data.get("bidders") == 1:
+            raise ValidationError({"bidders": ["Must be at least 2."]})
         if "ranks" in data and "bidders" in data:
             i, j = data["ranks"]
             if not i < j:
                 raise ValidationError({"ranks": {1: ["Must be a lower rank (a larger number) than ranks.0."]}})
-            if j > data["bidders"]:
-                raise ValidationError({"ranks": {1: [f"Must be at most bidders ({data['bidders']})."]}})
+            if j > most_bidders(data["bidders"]):
+                raise ValidationError({"ranks": {1: [f"Must be at most bidders ({most_bidders(data['bidders'])})."]}})
 
 
 def top_values_handler(body):
     req = load(TopValuesRequest, body)
     ranks, curve = len(req["ranks"] or [1, 2]), req["curve_points"]
     name = "bidder_values" if "bidder_values" in req else "bidder_costs"
-    admission.admit(work=admission.model_work(body.get(name)) * ranks * (1 + curve / 200),
+    admission.admit(work=admission.model_work(body.get(name)) * ranks * (1 + curve / 200) * count_work(req["bidders"]),
                     numbers=ranks * (4 + 2 * len(req["quantiles"]) + 3 * curve),
                     field="curve_points" if curve else "ranks")
     return core_call(
@@ -76,7 +79,7 @@ def top_values_handler(body):
 def joint_density_handler(body):
     req = load(JointDensityRequest, body)
     grid, npts = req["grid_points"] or 61, len(req["points"] or [])
-    admission.admit(work=admission.model_work(body.get("bidder_values")) * (npts / 50 if npts else grid / 20),
+    admission.admit(work=admission.model_work(body.get("bidder_values")) * (npts / 50 if npts else grid / 20) * count_work(req["bidders"]),
                     numbers=3 * npts if npts else grid * grid + 2 * grid,
                     field="points" if npts else "grid_points")
     pts = None if req["points"] is None else [(p["higher"], p["lower"]) for p in req["points"]]

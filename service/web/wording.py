@@ -37,6 +37,26 @@ ASSUMPTIONS = {
     "reverse": ["independent private costs drawn from the stated cost model", *_COMMON_ASSUMPTIONS],
 }
 
+#: The assumption about the count that replaces "no entry costs" when the count is uncertain.
+_COUNT_ASSUMPTIONS = {
+    "poisson": "a number of bidders drawn independently of their {w}s; bidders know its distribution, not the count",
+    "binomial": "a number of bidders drawn independently of their {w}s; bidders know its distribution, not the count",
+    "table": "a number of bidders drawn independently of their {w}s; bidders know its distribution, not the count",
+    "entry": "costly entry (Levin and Smith 1994): each potential bidder, knowing only the {w} model and the rules, "
+             "enters with the chance that leaves it indifferent; entrants do not learn how many entered",
+}
+
+
+def assumptions(direction, bidders):
+    """The assumptions for this direction and count: an uncertain count says how it arises."""
+    out = list(ASSUMPTIONS[direction])
+    if isinstance(bidders, dict):
+        w = "value" if direction == "forward" else "cost"
+        out[-1] = "a single indivisible item or contract, no collusion"
+        out.append(_COUNT_ASSUMPTIONS[bidders["distribution"]].format(w=w))
+    return out
+
+
 #: What a model recovered from past auctions assumes of them, in the caller's direction.
 FIT_ASSUMPTIONS = {
     d: [f"independent private {w}s, drawn in every auction from one {w} model (items alike, or scaled to one)",
@@ -110,6 +130,8 @@ _RESERVE_NOTES = {
         "kept": _MYERSON["forward"] + "; here no value's virtual value reaches it, so the item is best kept",
         "irregular": "the virtual value is not increasing over the support (an irregular model), so every local maximum "
                      "of the expected payoff over reserves was found, and the highest taken",
+        "entry": "with costly entry the reserve also sets who enters (Levin and Smith 1994): the entry probability "
+                 "re-solved at each reserve, the seller's expected payoff maximised numerically over the reserve",
     },
     "reverse": {
         "root": _MYERSON["reverse"],
@@ -117,6 +139,8 @@ _RESERVE_NOTES = {
         "kept": _MYERSON["reverse"] + "; here no cost's virtual cost is below it, so the contract is best not awarded",
         "irregular": "the virtual cost c + F(c)/f(c) is not increasing over the support (an irregular model), so every "
                      "local maximum of the expected payoff over maximum prices was found, and the highest taken",
+        "entry": "with costly entry the maximum price also sets who enters (Levin and Smith 1994): the entry probability "
+                 "re-solved at each maximum price, the buyer's expected payoff maximised numerically over it",
     },
 }
 
@@ -162,19 +186,22 @@ def _with(report, direction, before, extra):
 def revenue(report):
     """/v1/revenue's answer: the core's report named for its direction, with the assumptions."""
     d = report["direction"]
-    return _with(report, d, "bidders", {"assumptions": ASSUMPTIONS[d]})
+    return _with(report, d, "bidders", {"assumptions": assumptions(d, report["bidders"])})
 
 
 def bids(report):
     """/v1/bid-strategy's answer, with what the rule's bids mean and the assumptions."""
     d = report["direction"]
-    return _with(report, d, "warnings", {"note": core_rules.get(report["rule"]).note[d], "assumptions": ASSUMPTIONS[d]})
+    note = core_rules.get(report["rule"]).note[d]
+    if isinstance(report["bidders"], dict) and not core_rules.get(report["rule"]).pricing.truthful:
+        note += "; with an uncertain number of bidders, G(v) = E over the rival count of F(v)^k (Krishna 2009, ch. 3)"
+    return _with(report, d, "warnings", {"note": note, "assumptions": assumptions(d, report["bidders"])})
 
 
 def reserve(report):
     """/v1/reserve-price's answer, with what the optimum means (by how it was found) and the assumptions."""
     d = report["direction"]
-    out = _with(report, d, "warnings", {"note": _RESERVE_NOTES[d][report["outcome"]], "assumptions": ASSUMPTIONS[d]})
+    out = _with(report, d, "warnings", {"note": _RESERVE_NOTES[d][report["outcome"]], "assumptions": assumptions(d, report["bidders"])})
     del out["outcome"]
     return out
 
