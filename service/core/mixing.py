@@ -362,13 +362,50 @@ def bidder_surplus_each(model, n, reserve):
     return got[0] / n
 
 
+def entry_payoff(model, entry, reserve, v0):
+    """The seller's expected payoff at ``reserve`` under costly entry, for the reserve search:
+    the winner's expected value less what the entrants keep, E[X1; sale] - E[N] u(N) summed over
+    the entry count, plus v0 P(no sale), all on one value's quadrature (``surpluses_each``); the
+    optimum's own figures are then computed count by count."""
+    count = resolve(entry, model, reserve)
+    if count.p_sale(ForwardAuction(model, 1, reserve, 0.0).s_r) == 0.0:
+        return v0
+    u = surpluses_each(model, entry.potential, reserve)
+    kept = sum(w * n * u[n - 1] for n, w in zip(count.counts, count.weights) if n >= 1)
+    auc = ForwardAuction(model, 1, reserve, 0.0)
+    q = os_.filled_rank_quadrature(model, 1, 1, power=1, s_cut=auc.s_r, fine=True, checked=True)
+    top = q.integrate_nodes(q.values * count.highest_density_s(np.exp(q.stacked()[0])))[0] if q.panels else 0.0
+    p_sale = count.p_sale(auc.s_r)
+    return top - kept + v0 * (1.0 - p_sale)
+
+
+def surpluses_each(model, potential, reserve):
+    """u(n) for n = 1..potential at once, u(n) = int_{F(r)}^1 u^(n-1) (1 - u) Q'(u) du (by parts, as
+    ``gains._second_price_surplus``; (1 - u) Q'(u) = S/f, ``ValueModel.inverse_hazard``), on one
+    value's quadrature above the floor; a lone bidder also keeps floor - r where a reserve below the
+    support is what it pays. Count by count where the model has no precise S/f."""
+    auc = ForwardAuction(model, 1, reserve, 0.0)
+    q = os_.filled_rank_quadrature(model, 1, 1, power=1, s_cut=auc.s_r, fine=True, checked=True)
+    ih = model.inverse_hazard(q.u, q.v, q.anchor, q.delta) if q.panels and model.upper_tail_index > 1.0 else None
+    if ih is None:
+        return np.array([bidder_surplus_each(model, n, reserve) for n in range(1, potential + 1)])
+    log_u = -np.exp(q.stacked()[0])  # log F at the nodes (the rule runs in t = log s)
+    n = np.arange(1, potential + 1)
+    with np.errstate(invalid="ignore", over="ignore"):
+        parts = np.exp(np.multiply.outer(n - 1.0, log_u)) * (q.w * ih)
+    u = parts[:, :, :os_.RULE_SPLIT].sum(axis=(1, 2))
+    if auc.lone_price < auc.floor:
+        u[0] += (auc.floor - auc.lone_price) * auc.p_sale
+    return u
+
+
 def entry_count(model, potential, cost, reserve, spec):
     """The symmetric mixed-strategy entry equilibrium of Levin and Smith (1994): each of N
     potential bidders enters with the chance q at which entering pays its cost on average,
     sum_k C(N-1, k) q^k (1-q)^(N-1-k) u(k + 1) = c; everyone enters where u(N) >= c, nobody
     where u(1) <= c. Entrants do not learn how many entered; under risk-neutral private
     values their expected surplus is the same either way."""
-    u = np.array([bidder_surplus_each(model, n, reserve) for n in range(1, potential + 1)])
+    u = surpluses_each(model, potential, reserve)
     k = np.arange(potential)
 
     def gain(q):

@@ -150,16 +150,26 @@ def _entry_optimum(model, entry, v0):
     grid = grid[np.isfinite(grid)]
 
     def payoff(r):
-        return _sp_payoff(model, mixing.resolve(entry, model, float(r)), float(r), v0)[0]
+        return mixing.entry_payoff(model, entry, float(r), v0)
 
     values = [payoff(r) for r in grid]
     i = int(np.argmax(values))
     a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, len(grid) - 1)])
-    if not b > a:
-        return float(grid[i])
-    best = optimize.minimize_scalar(lambda r: -payoff(r), bounds=(a, b), method="bounded",
-                                    options={"xatol": 1e-10 * max(abs(a), abs(b), b - a)})
-    return float(best.x) if -best.fun >= values[i] else float(grid[i])
+    r_best, best = float(grid[i]), values[i]
+    if b > a:
+        found = optimize.minimize_scalar(lambda r: -payoff(r), bounds=(a, b), method="bounded",
+                                         options={"xatol": 1e-10 * max(abs(a), abs(b), b - a)})
+        if -found.fun >= best:
+            r_best, best = float(found.x), -found.fun
+    # Where the payoff is flat within rounding, the reserves theory names are taken: the seller's
+    # own value (the optimum when entry is mixed, Levin and Smith 1994) and Myerson's (1981) for
+    # all N entering (the optimum when entry stays full).
+    myerson = optimal_reserve(model, Bidders.exactly(entry.potential), v0)[0]
+    full = mixing.resolve(entry, model, myerson).entry["entry_probability"] == 1.0
+    for named in ((myerson, v0) if full else (v0, myerson)):
+        if model.lower <= named <= model.upper and payoff(named) >= best - 1e-12 * abs(best):
+            return float(named)
+    return r_best
 
 
 def reserve_report(model, direction, bidders, own_value):

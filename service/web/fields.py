@@ -292,6 +292,8 @@ def build_bidders(value):
     if kind == "entry":
         return CostlyEntry(d["potential"], d["entry_cost"])
     if kind == "poisson":
+        if d["mean"] > caps().bidders:
+            raise ValidationError({"mean": [f"Must be at most {caps().bidders} (the service's cap, {settings.ENV_NAMES['bidders']})."]})
         count, field = Bidders.poisson(d["mean"]), "mean"
     elif kind == "binomial":
         count, field = Bidders.binomial(d["potential"], d["entry_probability"]), "entry_probability"
