@@ -57,9 +57,12 @@ def _second_price_surplus(auc, q):
     (``orderstats.expected_gap``), int from F(r) to 1 of n u^(n-1) (1 - u) Q'(u) du; with one
     bidder, E[X - floor; X >= floor] alike, plus (floor - reserve) P(sale) where a reserve
     below the support is what the lone bidder pays. Without a precise S / f, E[X1; sale]
-    less the revenue."""
+    less the revenue. A lone bidder's surplus is E[X - floor; sale] from the value offsets
+    themselves: its S / f has no weight u^(n-1) to damp it at the bottom, where the quadrature
+    (whose reach is set by the values) stops short of the part a thin lower tail puts there
+    (a gamma of shape 30 lost 7% of it so)."""
     above = _panels_above(q, auc.s_r)
-    ih = auc.model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
+    ih = None if auc.bidders.lone else auc.model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
     below_support = (auc.floor - auc.lone_price) * auc.p_sale if auc.bidders.lone else 0.0
     with np.errstate(invalid="ignore", over="ignore"):
         if ih is not None:

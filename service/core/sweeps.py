@@ -73,7 +73,7 @@ def _block(model, n, reserves, v0):
         for key in ("second", "first", "all_pay"):
             out[key] = (rev, sd, rev)
         out["e1"] = _weigh(W, dens * v)
-        gains = _gains(model, q, dens, W, s_r, 1.0, v0)
+        gains = _gains(model, q, dens, W, s_r, 1.0, v0, lone_floor=floor)
         if gains is not None and gains[0] is not None:  # E[X - floor; sale] and what a reserve below the support adds
             gains = (gains[0] + (floor - reserves) * p_sale, *gains[1:])
         out["gains"] = gains
@@ -234,20 +234,26 @@ def _bid_block(auc, W1, floor, binds, s_r, p_sale):
     return out, loose | _lost(winner_pays, paid, lift * p_sale, bound=bound)
 
 
-def _gains(model, q, dens, W_r, s_r, k, v0):
+def _gains(model, q, dens, W_r, s_r, k, v0, lone_floor=None):
     """Per reserve, on the highest value's nodes (weights per dt ``dens``, 24-node rule; ``W_r``
     the cut weights at the reserves, s_r = -log F there, ``k`` the quadrature's n - r + 1):
     the bidders' surplus E[(X1 - max(X2, r)) 1{X1 >= r}] = E[(1 - U) Q'(U); U >= F(r)]
     (see ``orderstats.expected_gap``; None without a precise S / f), and the efficiency's best
     gain E[(X1 - v0)^+] and lost gain, the band between r and v0 integrated as one quantity:
     the difference of two cut-weight rows is the band's own weights. None where E[X1] does
-    not exist."""
+    not exist. A lone bidder's (``lone_floor``: the floor at each reserve) is E[X - floor; sale]
+    from the value offsets, as in ``gains._second_price_surplus``."""
     if not model.upper_tail_index > 1.0:
         return None
     first = lambda a: a[:, :os_.RULE_SPLIT].ravel()  # noqa: E731
-    ih = model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
-    with np.errstate(invalid="ignore", over="ignore"):
-        surplus = None if ih is None else _weigh(W_r, dens * first(ih))
+    if lone_floor is not None:
+        ref, o = q.offsets()
+        with np.errstate(invalid="ignore", over="ignore"):
+            surplus = _weigh(W_r, dens * first(o)) - (lone_floor - ref) * _weigh(W_r, dens)
+    else:
+        ih = model.inverse_hazard(q.u, q.v, q.anchor, q.delta)
+        with np.errstate(invalid="ignore", over="ignore"):
+            surplus = None if ih is None else _weigh(W_r, dens * first(ih))
     if v0 is None:
         return surplus, None, None
     s0 = model.neg_log_cdf(np.array([v0]))[0] if v0 > model.lower else np.inf
