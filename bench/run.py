@@ -820,6 +820,9 @@ def section_summary(ctx):
         rows.append(row("fits: parametric fit of 1,000 prices, 9 families", fmt_time(f["fit"]), "<= 1 s", f["fit"] <= 1.0))
         rows.append(row(f"fits: first-price pseudo-values of {f['gpv_bids']:,} bids", fmt_time(f["gpv"]), "<= 0.3 s", f["gpv"] <= 0.3))
         rows.append(row("fits: 200 bootstrap replications of 500 auctions", fmt_time(f["boot"]), "<= 10 s", f["boot"] <= 10.0))
+    if get("simulation_max") is not None:
+        rows.append(row("simulation check, 10^6 draws, two rules (worst model)", fmt_time(get("simulation_max")), "<= 1 s",
+                        get("simulation_max") <= 1.0))
     if get("counts_ratio") is not None:
         rows.append(row("Poisson count (mean 8) / fixed count of 8, five rules (worst model)", f"{get('counts_ratio'):.1f}x", "<= 4x",
                         get("counts_ratio") <= 4.0))
@@ -879,11 +882,78 @@ def section_counts(ctx):
     ctx["counts_ratio"] = worst
 
 
+def naive_second_price_simulation(model, n, draws, seed):
+    """The simulation most people write: every value by the quantile function, sorted per auction,
+    the second-highest paid (second price only)."""
+    rng = np.random.default_rng(seed)
+    out = 0.0
+    for start in range(0, draws, 100_000):
+        size = min(100_000, draws - start)
+        x = np.sort(model.ppf(rng.uniform(size=(size, n))), axis=1)
+        out += float(x[:, -2].sum())
+    return out / draws
+
+
+def section_simulation(ctx):
+    from service.core import reports
+    from service.core.models import Gamma, Uniform
+
+    heading("Simulation check: 10^6 draws (POST /v1/revenue with monte_carlo), 8 bidders")
+    print("ours:   the check alone (the report with monte_carlo less the report without), two rules (first and second price)")
+    print("        and all five; values by inverse transform, the top two through order-statistic spacings")
+    print("naive:  every value by ppf, sorted per auction, the second-highest averaged (second price only)")
+    print("target: 10^6 draws within 1 s (here: two rules)")
+    print()
+    rows, worst = [], 0.0
+    for name, model in [("uniform[0,1]", Uniform(0, 1)), ("lognormal s=0.35", LogNormal(median=62000, sigma=0.35)),
+                        ("gamma k=30", Gamma(30, 5200))]:
+        base = median_time(lambda: reports.revenue_report(model, "forward", 8, None, 0.0, rules=["first_price", "second_price"]),
+                           repeats=5)
+        t0 = time.perf_counter()
+        rep = reports.revenue_report(model, "forward", 8, None, 0.0, rules=["first_price", "second_price"],
+                                     monte_carlo={"draws": 1_000_000, "seed": 1})
+        t_two = time.perf_counter() - t0 - base
+        t0 = time.perf_counter()
+        reports.revenue_report(model, "forward", 8, None, 0.0, monte_carlo={"draws": 1_000_000, "seed": 1})
+        t_all = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        naive = naive_second_price_simulation(model, 8, 1_000_000, 1)
+        t_naive = time.perf_counter() - t0
+        zs = [abs(e["z"]) for block in rep["monte_carlo"]["results"].values() for e in block.values() if e["z"] is not None]
+        exact = rep["results"][1]["expected_revenue"]
+        worst = max(worst, t_two)
+        rows.append([name, fmt_time(t_two), fmt_time(t_all), f"{max(zs):.2f}", fmt_time(t_naive), fmt_err(abs(naive / exact - 1)),
+                     fmt_ratio(t_naive, t_two)])
+    print(table(["case", "ours, 2 rules", "ours, 5 rules (with report)", "largest |z|", "naive (second price)",
+                 "naive rel.err", "naive/ours"], rows))
+    ctx["simulation_max"] = worst
+
+
+def section_risk_aversion(ctx):
+    from service.core import reports
+    from service.core.models import Uniform
+
+    heading("Risk-averse bidders (CRRA 0.4): five-rule report against risk-neutral, and the closed form")
+    print("ours:   reports.revenue_report(..., risk_aversion=0.4), four rules (all-pay is not offered under risk aversion)")
+    print("ref:    uniform values: first-price revenue n (n-1) / ((n+1)(n-1+alpha)), alpha = 0.6 (Krishna 2009, ch. 4)")
+    print()
+    rows = []
+    model = Uniform(0, 1)
+    for n in (2, 8, 100):
+        t_rn, t_ra = interleaved_medians([lambda: reports.revenue_report(model, "forward", n, None, 0.0),
+                                          lambda: reports.revenue_report(model, "forward", n, None, 0.0, risk_aversion=0.4)],
+                                         rounds=7)
+        got = reports.revenue_report(model, "forward", n, None, 0.0, risk_aversion=0.4)["results"][0]["expected_revenue"]
+        ref = n * (n - 1) / ((n + 1) * (n - 1 + 0.6))
+        rows.append([f"uniform n={n}", fmt_time(t_rn), fmt_time(t_ra), f"{t_ra / t_rn:.2f}x", fmt_err(abs(got / ref - 1))])
+    print(table(["case", "risk-neutral (5 rules)", "CRRA 0.4 (4 rules)", "ratio", "first-price rel.err"], rows))
+
+
 # Sections that send requests to the app in-process.
 IN_PROCESS = {"section_request", "section_sweeps", "section_expensive"}
 
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
-            section_expensive, section_fits, section_counts,
+            section_expensive, section_fits, section_counts, section_simulation, section_risk_aversion,
             section_http, section_summary]
 
 

@@ -41,13 +41,20 @@ def forward_case(model, direction, reserve, own_value):
 
 class ForwardAuction:
     """``bidders`` (a count or :class:`Bidders`) symmetric bidders with values from ``model``;
-    ``reserve`` may be None; ``seller_value`` is the auctioneer's own value (None: not given)."""
+    ``reserve`` may be None; ``seller_value`` is the auctioneer's own value (None: not given);
+    ``risk_aversion`` is the bidders' constant relative risk aversion rho (utility x^(1 - rho))."""
 
-    def __init__(self, model, bidders, reserve=None, seller_value=0.0):
+    def __init__(self, model, bidders, reserve=None, seller_value=0.0, risk_aversion=0.0):
         if model.discrete:
             raise ParameterError("smoothing", "equilibrium bidding needs a continuous value model; use smoothing: kernel")
         self.bidders = Bidders.of(bidders)
         self.model, self.n = model, self.bidders.n
+        self.risk_aversion = float(risk_aversion)
+        # The first-price bids' exponent: b' = (n - 1)/alpha (f/F)(v - b), alpha = 1 - rho (the
+        # first-order condition of F(z)^(n-1) (v - b(z))^alpha), so b(v) = v - int_r^v (F(x)/F(v))^k dx
+        # with k = (n - 1)/alpha: the risk-neutral bid against k rivals (Riley and Samuelson 1981;
+        # Maskin and Riley 1984; Krishna 2009, ch. 4).
+        self.bid_rivals = self.bidders.rivals / (1.0 - self.risk_aversion) if self.n >= 1 else 0.0
         self.reserve = None if reserve is None else float(reserve)
         self.v0 = seller_value
         # The effective floor: the reserve, or the bottom of the support.
@@ -94,6 +101,27 @@ class ForwardAuction:
         if rank not in self._closed:
             self._closed[rank] = None if self.reserve_binds else self.model.closed_rank_moments(self.n, rank)
         return self._closed[rank]
+
+    #: The chance that a lone bidder buys at its own price (``lone_price``), apart from the floor: 0 for a
+    #: certain count (a lone bidder's case is ``single_price``'s); an uncertain count's is its own.
+    lone_buys = 0.0
+
+    def second_sf(self, x):
+        """P(X2 > x), the second-highest value's survival (the ascending clock's price)."""
+        return os_.rank_sf(self.model, self.n, 2, x)
+
+    def second_cdf(self, x):
+        """P(X2 <= x)."""
+        return os_.rank_cdf(self.model, self.n, 2, x)
+
+    def second_quantiles(self, ps):
+        """The second-highest value's quantiles."""
+        return os_.rank_quantiles(self.model, self.n, 2, ps)
+
+    @property
+    def second_lower_index(self):
+        """The lower tail index of the second-highest value, (n - 1) a_low."""
+        return (self.n - 1.0) * self.model.lower_tail_index
 
     def sale_atoms(self):
         """The second-price price max(X2, r) on a sale has atoms: P(no sale) and P(price = r)."""

@@ -182,7 +182,7 @@ def _trades_gain(model, reserve, own_value, reverse):
     return (model.lower if reserve is None else max(reserve, model.lower)) >= own_value
 
 
-def revenue(report, model, reserve, own_value, lone=None):
+def revenue(report, model, reserve, own_value, lone=None, equivalent=True):
     """Each rule's figures, in the caller's sign (payments and costs when reverse) under the core's names."""
     a = Audit(report)
     reverse = report["direction"] == "reverse"
@@ -209,8 +209,9 @@ def revenue(report, model, reserve, own_value, lone=None):
         if res.get(q_k):
             a.rising(_Column(res[q_k], "value"), f"{path}.{q_k}", "quantiles rise with p")
     error = (report.get("numerics") or {}).get("abs_error") or 0.0
-    _equivalent(a, report["results"], mean_k, [f"results.{i}.{mean_k}" for i in range(len(report["results"]))],
-                (reserve,), 100.0 * error)
+    if equivalent:  # revenue equivalence holds for risk-neutral bidders only
+        _equivalent(a, report["results"], mean_k, [f"results.{i}.{mean_k}" for i in range(len(report["results"]))],
+                    (reserve,), 100.0 * error)
     return a.done()
 
 

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from .errors import ParameterError
 
@@ -142,23 +142,51 @@ class Bidders:
             return {0: 1.0}
         return {n - 1: n * w / m for n, w in zip(self.counts, self.weights) if n >= 1}
 
+    @cached_property
+    def arrays(self):
+        """(counts, weights) as float arrays."""
+        return np.array(self.counts, float), np.array(self.weights, float)
+
+    def _series(self, coef, power, s):
+        """sum_n coef_n F^power_n at F = e^-s (array; s = inf is F = 0, where F^0 = 1)."""
+        s = np.asarray(s, float)
+        finite = np.where(np.isinf(s), 1e308, s)  # 0 * 1e308 = 0 keeps F^0 = 1 at F = 0
+        with np.errstate(over="ignore"):
+            return (coef @ np.exp(-np.multiply.outer(power, finite.ravel()))).reshape(s.shape)
+
     def highest_cdf_s(self, s):
         """H(F) = E[F^N] at F = e^-s (array): the chance that no value exceeds the one with
         -log F = s (no bidder at all included)."""
-        s = np.asarray(s, float)
-        n = np.array(self.counts, float)
-        with np.errstate(invalid="ignore"):
-            return np.tensordot(self.weights, np.exp(-np.multiply.outer(n, s), where=n.reshape((-1,) + (1,) * s.ndim) > 0,
-                                                     out=np.ones((len(n),) + s.shape)), axes=1)
+        n, w = self.arrays
+        return self._series(w, n, s)
 
     def highest_density_s(self, s):
         """H'(F) = E[N F^(N-1)] at F = e^-s (array): the highest value's density over one value's."""
-        s = np.asarray(s, float)
-        n = np.array(self.counts, float)
-        with np.errstate(invalid="ignore"):
-            powers = np.exp(-np.multiply.outer(n - 1.0, s), where=n.reshape((-1,) + (1,) * s.ndim) > 1,
-                            out=np.ones((len(n),) + s.shape))
-        return np.tensordot(np.array(self.weights) * n, powers, axes=1)
+        n, w = self.arrays
+        return self._series(w * n, np.maximum(n - 1.0, 0.0), s)
+
+    def second_tail_s(self, s, v, terms=12):
+        """P(X2 > x) = E[P(Binomial(N, v) >= 2)] at -log F(x) = s, v = S(x) (arrays), summed term
+        by term, sum_{j=2}^{terms} C(n, j) v^j u^(n-j), each term from the last by (n-j)/(j+1) v/u:
+        for v small, where 1 - H(u) - v H'(u) would lose its digits (the next term is below
+        v^(terms-1) of the first)."""
+        s, v = np.broadcast_arrays(np.asarray(s, float), np.asarray(v, float))
+        n = np.array(self.counts, float).reshape((-1,) + (1,) * s.ndim)
+        w = np.array(self.weights).reshape(n.shape)
+        with np.errstate(invalid="ignore", over="ignore", under="ignore"):
+            term = np.where(n >= 2, 0.5 * n * (n - 1.0) * v * v * np.exp(-np.maximum(n - 2.0, 0.0) * s), 0.0)
+            total = term.copy()
+            ratio = v * np.exp(s)  # v / u
+            for j in range(2, terms):
+                term = term * np.maximum(n - j, 0.0) / (j + 1.0) * ratio
+                total += term
+        return np.tensordot(w.ravel(), total, axes=1)
+
+    def second_density_s(self, s):
+        """H''(F) = E[N (N-1) F^(N-2)] at F = e^-s (array): with (1 - F) it is the second-highest
+        value's density over one value's (P(X2 <= x) = H(F) + (1 - F) H'(F))."""
+        n, w = self.arrays
+        return self._series(w * n * (n - 1.0), np.maximum(n - 2.0, 0.0), s)
 
     def p_sale(self, s_floor):
         """P(some value beats the floor) = E[1 - F(floor)^N], from s = -log F(floor) (a float,

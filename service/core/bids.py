@@ -67,7 +67,12 @@ class EquilibriumBids:
 
     def __init__(self, auction):
         self.auction, self.model, self.n = auction, auction.model, auction.n
-        self.rivals, self.lone = auction.bidders.rivals, auction.bidders.lone
+        # the bids' exponent k: n - 1 for risk-neutral bidders, (n - 1)/alpha under constant
+        # relative risk aversion (``ForwardAuction.bid_rivals``); the winner is still the highest of n
+        self.rivals, self.lone = auction.bid_rivals, auction.bidders.lone
+        # the nodes are those of the highest of the n - 1 rivals' values, in t = log(m s), m = n - 1,
+        # so that they cover the winner's values whatever the bids' exponent
+        self.m = auction.bidders.rivals
         self.s_r, self.floor, self.lone_price = auction.s_r, auction.floor, auction.lone_price
         self.origin = self._origin()
         self._quadrature = self._tail = self._nodes = self._shading_cache = None
@@ -97,7 +102,7 @@ class EquilibriumBids:
         """Tail reach for the bid nodes' integrands: that of the highest value where its
         mean exists; otherwise that of the price b^p, b growing as v^(1 - a) (see
         ``price_moment_exists``)."""
-        up, low = os_.tail_growth(self.model, self.auction.power(self.n - 1, 1))
+        up, low = os_.tail_growth(self.model, self.auction.power(self.m, 1))
         a = self.model.upper_tail_index
         if a <= 1.0:
             up = (2.0 if price_moment_exists(self.model, self.auction.bidders, "first_price", 2, self.floor) else 1.0) * (1.0 - a) / a
@@ -107,13 +112,13 @@ class EquilibriumBids:
         """Panels for the highest of the other n-1 values, cut at the reserve."""
         if self._quadrature is None:
             # where the highest value has no mean, the panels reach no further than values of 1e300
-            a, k = self.model.upper_tail_index, self.rivals
+            a, k = self.model.upper_tail_index, self.m
             s_top, splits = 0.0, ()
             if a <= 1.0:  # the bids' own tail matters: see ``_heavy_tail_edges``
                 s_top = neg_log_cdf(self.model, TOP_VALUE)
                 splits = _heavy_tail_edges(a, k, s_top)
             self._quadrature = os_.filled_rank_quadrature(
-                self.model, self.n - 1, 1, power=self.auction.power(self.n - 1, 1), growth=self._growth(), s_cut=self.s_r,
+                self.model, self.m, 1, power=self.auction.power(self.m, 1), growth=self._growth(), s_cut=self.s_r,
                 fine=True, s_top=s_top, splits_s=splits, checked=True,
                 fill={"conditional": True, "floor": 0.0 if a <= 1.0 else 1e-12})
         return self._quadrature
@@ -140,7 +145,7 @@ class EquilibriumBids:
         if self._tail is not None:
             return self._tail
         q = self.inner_quadrature()
-        nodes = q.kept(("bid_nodes", self.n), lambda: _bid_nodes(q, self.n))
+        nodes = q.kept(("bid_nodes", self.n, self.rivals), lambda: _bid_nodes(q, self.n, self.rivals))
         d, g = self._conditional_tails(nodes, q.values - self.origin, self.floor - self.origin)
         self._tail = BidTail(nodes, q.values, d, g)
         return self._tail
@@ -212,7 +217,7 @@ class EquilibriumBids:
             # Within the panels: the node's partial panel, then the recurrence from its right edge.
             sq = flat[on_panels]
             j = np.minimum(np.searchsorted(se, sq, side="right") - 1, len(se) - 2)
-            part = self.sub_integral(np.log(k * sq), edges[j + 1])
+            part = self.sub_integral(np.log(self.m * sq), edges[j + 1])
             res[on_panels] = self.origin + part + np.exp(-k * (se[j + 1] - sq)) * d[j + 1]
         off = ~on_panels
         above = off & (flat < se[0]) if q.panels else np.zeros(flat.shape, bool)
@@ -227,15 +232,15 @@ class EquilibriumBids:
         return res
 
     def sub_integral(self, t_q, t_end):
-        """Integral of (v - origin) (n-1) s e^(-(n-1)(s - s_q)) dt over [t_q, t_end] (arrays),
-        each by one 24-node Gauss-Legendre rule."""
+        """Integral of (v - origin) k s e^(-k (s - s_q)) dt over [t_q, t_end] (arrays; t = log(m s),
+        the nodes' coordinate), each by one 24-node Gauss-Legendre rule."""
         k = self.rivals
         xs, ws = _GL[0]
         hh = 0.5 * (t_end - t_q)
         tt = (0.5 * (t_end + t_q))[..., None] + hh[..., None] * xs
-        ss = np.exp(tt) / k
+        ss = np.exp(tt) / self.m
         vv = self.model.value_at(np.exp(-ss), -np.expm1(-ss))
-        sq = (np.exp(t_q) / k)[..., None]
+        sq = (np.exp(t_q) / self.m)[..., None]
         return (hh[..., None] * ws * (vv - self.origin) * k * ss * np.exp(-k * (ss - sq))).sum(axis=-1)
 
     def nodes(self):
@@ -331,14 +336,15 @@ class BidNodes:
     rule_dt: np.ndarray  # (nodes, 2): dt in each rule's column
 
 
-def _bid_nodes(q, n):
-    k = n - 1.0
+def _bid_nodes(q, n, k):
+    """The bid route's node arrays for n bidders whose bids weigh rivals as F^k (k = n - 1 for
+    risk-neutral bidders); q runs in t = log(m s), m = q.m = n - 1."""
     edges = np.append(q.a, q.b[-1]) if q.panels else np.empty(0)
-    se = np.exp(edges) / k
+    se = np.exp(edges) / q.m
     t, dt, _ = q.stacked()
-    s = np.exp(t) / k
+    s = np.exp(t) / q.m
     growth = np.exp(k * (se[1:, None] - s))
-    rivals = np.exp(-k * s)
+    rivals = np.exp(-(n - 1.0) * s)
     one = np.exp(-s) * s
     rule_dt = dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1))
     return BidNodes(edges, se, 0.5 * (q.b - q.a)[:, None], t, dt, s, growth, k * s * growth, rivals, one, n * rivals * one, rule_dt)

@@ -31,16 +31,17 @@ def top_gains(auc, warnings):
     return _second_price_surplus(auc, q), _efficiency(auc, q, s0, warnings)
 
 
-def _top_quadrature(auc):
-    """(quadrature, s0): the highest value's quadrature over the values at or above the lower
-    of the floor and the seller's own value v0 (s = -log F up to the larger of s_r and s0),
-    split at the higher of the two, where the reserve's gains and losses begin."""
+def _top_quadrature(auc, n=None):
+    """(quadrature, s0): the highest value's quadrature (of ``n`` values, default the auction's
+    count) over the values at or above the lower of the floor and the seller's own value v0
+    (s = -log F up to the larger of s_r and s0), split at the higher of the two, where the
+    reserve's gains and losses begin."""
     m = auc.model
     s0 = None if auc.v0 is None else (math.inf if auc.v0 <= m.lower else neg_log_cdf(m, auc.v0))
     s_cut = auc.s_r if s0 is None else max(auc.s_r, s0)
     split = () if s0 is None or s0 == auc.s_r else (min(auc.s_r, s0),)
     up, low = os_.tail_growth(m, 1)
-    q = os_.rank_quadrature(auc.n, 1, kinks_u=m.kinks_u(), s_cut=s_cut, splits_s=split, upper_growth=up,
+    q = os_.rank_quadrature(auc.n if n is None else n, 1, kinks_u=m.kinks_u(), s_cut=s_cut, splits_s=split, upper_growth=up,
                             lower_growth=low, model=m, power=1, checked=True).fill(m)
     return q, s0
 
@@ -110,7 +111,7 @@ def winner_value(auc):
     return auc.quadrature(1).integrate(lambda x: x)[0]
 
 
-def _efficiency(auc, q, s0, warnings):
+def _efficiency(auc, q, s0, warnings, weight=1.0):
     """(1 - lost / best, its error): best = E[(X1 - v0)^+], the largest expected gain from
     trade; lost = the gains a reserve above v0 gives up, E[(X1 - v0) 1{v0 <= X1 < r}], or the
     losses of selling below v0, E[(v0 - X1) 1{r <= X1 < v0}]. Each is one integral of X1 - v0
@@ -120,7 +121,7 @@ def _efficiency(auc, q, s0, warnings):
         warnings.append("efficiency is null: give buyer_value to measure gains from trade")
         return None
     ref, o = q.offsets()
-    gain = o - (auc.v0 - ref)
+    gain = (o - (auc.v0 - ref)) * weight  # ``weight``: the highest value's density over the rule's own
     above = _panels_above(q, min(auc.s_r, s0))
     with np.errstate(invalid="ignore", over="ignore"):
         if auc.s_r <= s0:  # the reserve at or above v0

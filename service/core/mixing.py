@@ -26,7 +26,8 @@ import math
 import numpy as np
 from scipy import optimize, special
 
-from . import gains, price
+from . import gains, price, revenue
+from .auction import FAR_RESERVE
 from .bids import TAIL_BOTH
 from . import orderstats as os_
 from . import rules as R
@@ -49,23 +50,95 @@ class MixedAuction:
 
     def __init__(self, model, bidders, reserve=None, seller_value=0.0):
         self.model, self.bidders, self.v0 = model, bidders, seller_value
-        self.parts = {n: ForwardAuction(model, n, reserve, seller_value) for n in bidders.counts if n >= 1}
+        self._parts = {}
         # the floor, its -log F and the lone bidder's price are the same for every count
         ref = ForwardAuction(model, max(bidders.counts[-1], 1), reserve, seller_value)
         self.reserve, self.floor, self.s_r, self.f_r = ref.reserve, ref.floor, ref.s_r, ref.f_r
         self.reserve_binds, self.lone_price = ref.reserve_binds, ref.lone_price
         self.p_sale = bidders.p_sale(self.s_r)
         self._single = None
+        self.kept = {}
+
+    @property
+    def lone_buys(self):
+        """P(a lone bidder takes part and its value beats the floor): it pays the reserve itself
+        under a truthful rule, apart from the floor where the reserve lies below the support."""
+        return dict(zip(self.bidders.counts, self.bidders.weights)).get(1, 0.0) * (-math.expm1(-self.s_r) if math.isfinite(self.s_r) else 1.0)
+
+    def second_sf(self, x):
+        """P(X2 > x) over the count (no second value with fewer than two bidders): 1 - H(u) -
+        (1 - u) H'(u) at u = F(x), and where n S(x) is below 0.05 for the largest count n, where
+        that difference would lose digits, the binomial tail term by term (``Bidders.second_tail_s``,
+        whose 12 terms then leave out less than 0.05^11 of it)."""
+        x = np.asarray(x, float)
+        v = np.asarray(self.model.sf(x), float)
+        s = np.asarray(self.model.neg_log_cdf(x), float)
+        with np.errstate(invalid="ignore", over="ignore"):
+            direct = 1.0 - self._second_cdf_s(s)
+        small = v * self.bidders.counts[-1] < 0.05  # where the direct form would lose more than a digit or two
+        if np.any(small):
+            direct = np.where(small, direct, direct)
+            direct[small] = self.bidders.second_tail_s(s[small], v[small])
+        return direct
+
+    def second_cdf(self, x):
+        """P(X2 <= x) = H(u) + (1 - u) H'(u) at u = F(x), a missing second value counting as below every x."""
+        return self._second_cdf_s(np.asarray(self.model.neg_log_cdf(np.asarray(x, float)), float))
+
+    def second_quantiles(self, ps):
+        """The quantiles of X2 over the count from P(X2 <= x) = H(u) + (1 - u) H'(u), u = F(x);
+        -inf where p falls on a missing second value."""
+        ps = np.asarray(ps, float)
+        low = float(self.bidders.highest_cdf_s(np.inf) + self.bidders.highest_density_s(np.inf))  # P(N <= 1)
+        out = np.full(ps.shape, -math.inf)
+        live = ps > low
+        if live.any():
+            out[live] = _value_at_s(self.model, _solve_s(ps[live], 0.0, math.inf, self._second_cdf_s, self._second_slope_s))
+        return out
+
+    def _second_cdf_s(self, s):
+        """P(X2 <= x) at -log F(x) = s: H(u) + (1 - u) H'(u)."""
+        return self.bidders.highest_cdf_s(s) - np.expm1(-s) * self.bidders.highest_density_s(s)
+
+    def _second_slope_s(self, s):
+        """d/ds of ``_second_cdf_s``: -u (1 - u) H''(u)."""
+        return np.exp(-s) * np.expm1(-s) * self.bidders.second_density_s(s)
+
+    @property
+    def second_lower_index(self):
+        """The second-highest's lower tail index, that of the fewest bidders (two or more) that can occur."""
+        return (min(n for n in self.bidders.counts if n >= 2) - 1.0) * self.model.lower_tail_index
+
+    def part(self, n):
+        """The auction of exactly n bidders (built on first use)."""
+        if n not in self._parts:
+            self._parts[n] = ForwardAuction(self.model, n, self.reserve, self.v0)
+        return self._parts[n]
 
     def weighted(self):
         """(n, P(N = n), that count's auction) for every count of at least one bidder."""
-        return [(n, w, self.parts[n]) for n, w in zip(self.bidders.counts, self.bidders.weights) if n >= 1]
+        return [(n, w, self.part(n)) for n, w in zip(self.bidders.counts, self.bidders.weights) if n >= 1]
 
     def bids_at_s(self, s):
-        """The mixed first-price bid at values with -log F(v) = s (array), the floor's bid
-        at and below the floor: each fixed-count bid weighted by pi_k F^k, in logs so that
-        no weight underflows before the others."""
+        """The mixed first-price bid at values with -log F(v) = s (array), the floor's bid at
+        and below the floor: on one value's quadrature where it is built and reaches
+        (``_bids_between``), else each fixed-count bid weighted by pi_k F^k, in logs so that no
+        weight underflows before the others."""
         s = np.minimum(np.asarray(s, float), self.s_r)
+        if self._single is not None:
+            q = self._single[1]
+            t = np.log(np.where(s > 0.0, s, 1.0))
+            inside = (s > 0.0) & (t >= q.a[0]) & (t <= q.b[-1]) & (s < self.s_r)
+            if inside.all():
+                return self._bids_between(q, s)
+            if inside.any():
+                out = self._counts_bids(s)
+                out[inside] = self._bids_between(q, s[inside])
+                return out
+        return self._counts_bids(s)
+
+    def _counts_bids(self, s):
+        """The mixed bid from every count's own bids (``EquilibriumBids.at_s``)."""
         pis = self.bidders.rival_weights
         with np.errstate(invalid="ignore", over="ignore"):
             logw = np.stack([np.full(s.shape, math.log(p)) - (k * s if k else 0.0) for k, p in pis.items()])
@@ -77,7 +150,7 @@ class MixedAuction:
         for i, k in enumerate(pis):
             live = w[i] > 1e-20
             if live.any():
-                bids[i, live] = self.lone_price if k == 0 else self.parts[k + 1].bids.at_s(s[live])
+                bids[i, live] = self.lone_price if k == 0 else self.part(k + 1).bids.at_s(s[live])
         w = np.where(w > 1e-20, w, 0.0)
         with np.errstate(invalid="ignore"):
             total = w.sum(axis=0)
@@ -94,33 +167,60 @@ class MixedAuction:
                             self.bidders.highest_density_s(s))
         return self._single[1:]
 
-    def _bids_on(self, q, s):
-        """The mixed bids at the nodes of one value's quadrature ``q`` (s = -log F there), from
-        G(v) (b(v) - o) = pi_0 (r - o) + (G(F(floor)) - pi_0) (floor - o) + int_floor^v (x - o) dG,
-        the integral taken from the cut up to each node on q's own panels: whole panels summed
-        from the cut, the node's own panel by the spectral partial-panel rule (as
-        ``bids._at_nodes`` does for one count). The origin o is the floor where it is finite,
+    def _bid_parts(self, q, s):
+        """What the mixed bids on one value's quadrature ``q`` are built from, by
+        G(v) (b(v) - o) = pi_0 (r - o) + (G(F(floor)) - pi_0) (floor - o) + int_floor^v (x - o) dG:
+        (o, the integrand per unit t at the nodes, each panel's integral from its right edge to
+        the cut by each rule, the constant term). The origin o is the floor where it is finite,
         so every term is positive and small bids keep their digits."""
         pis = self.bidders.rival_weights
         ref, off = q.offsets()
         o = self.floor if math.isfinite(self.floor) else ref
-        xo = off + (ref - o)
+        count = self.bidders
+        g = np.exp(-s) * count.second_density_s(s) / count.mean  # -dG/ds = u G'(u), G' = H''/E[N]
         with np.errstate(over="ignore", invalid="ignore"):
-            g = sum(p * k * np.exp(-k * s) for k, p in pis.items() if k >= 1)  # -dG/ds
-            big_g = sum(p * np.exp(-k * s) for k, p in pis.items())
-            h = xo * g * s  # per unit t
+            h = (off + (ref - o)) * g * s
         _, dt, _ = q.stacked()
         whole = (dt * h) @ os_.RULE_COLUMNS  # (panels, 2): each panel's integral by each rule
-        beyond = np.vstack((np.cumsum(whole[::-1], axis=0)[::-1][1:], np.zeros((1, 2))))  # from each panel's right edge to the cut
-        half = 0.5 * (q.b - q.a)[:, None]
-        above = half * (h @ TAIL_BOTH) + beyond @ os_.RULE_COLUMNS.T
+        beyond = np.vstack((np.cumsum(whole[::-1], axis=0)[::-1][1:], np.zeros((1, 2))))
         pi0 = pis.get(0, 0.0)
         g_floor = float(sum(p * math.exp(-k * self.s_r) for k, p in pis.items() if k >= 1)) if math.isfinite(self.s_r) else 0.0
         start = pi0 * (self.lone_price - o) + (g_floor * (self.floor - o) if g_floor else 0.0)
+        return o, h, beyond, start
+
+    def _win_chance(self, s):
+        """G(F) = sum_k pi_k F^k = H'(F) / E[N] at F = e^-s: a bidder's chance to beat every rival."""
+        count = self.bidders
+        return count.highest_density_s(s) / count.mean if count.mean > 0 else np.ones(np.shape(s))
+
+    def _finished(self, o, start, above, big_g, values):
+        """b = o + (start + the integral) / G, held between the floor's bid and the value."""
         with np.errstate(over="ignore", invalid="ignore"):
             bids = o + (start + above) / big_g
-        values = ref + off
         return np.where(big_g > 0.0, np.minimum(np.maximum(bids, min(self.floor, self.lone_price)), values), self.floor)
+
+    def _bids_on(self, q, s):
+        """The mixed bids at the nodes of one value's quadrature ``q`` (s = -log F there): the
+        integral from the cut up to each node on q's own panels, whole panels summed from the
+        cut, the node's own panel by the spectral partial-panel rule (as ``bids._at_nodes``
+        does for one count)."""
+        o, h, beyond, start = self._bid_parts(q, s)
+        half = 0.5 * (q.b - q.a)[:, None]
+        above = half * (h @ TAIL_BOTH) + beyond @ os_.RULE_COLUMNS.T
+        return self._finished(o, start, above, self._win_chance(s), q.values)
+
+    def _bids_between(self, q, s):
+        """The mixed bids at points inside the panels of one value's quadrature ``q``: the
+        point's own panel from it to the panel's end by the spectral partial-panel rule on the
+        24-node rule's node values, then the panels beyond."""
+        o, h, beyond, start = self._bid_parts(q, np.exp(q.stacked()[0]))
+        t = np.log(s)
+        j = np.clip(np.searchsorted(q.a, t, side="right") - 1, 0, q.panels - 1)
+        half = 0.5 * (q.b - q.a)[j]
+        x = (t - 0.5 * (q.a + q.b)[j]) / half
+        rest = os_.GAUSS_RULES[0][1] - os_.partial_panel_weights(x)  # the integral from x to 1 of each basis polynomial
+        above = half * np.einsum("pi,pi->p", rest, h[j, :os_.RULE_SPLIT]) + beyond[j, 0]
+        return self._finished(o, start, above, self._win_chance(s), _value_at_s(self.model, s))
 
 
 def _mix_moments(parts):
@@ -132,13 +232,134 @@ def _mix_moments(parts):
 
 def mixed_figures(auc, rules, quantiles):
     """Each rule's figures under an uncertain count, as :func:`reports.forward_figures`
-    gives them for one count."""
-    from .reports import forward_figures  # reports dispatches here
-
+    gives them for one count: on one value's quadrature (:func:`one_pass`) where it applies,
+    else count by count."""
     if auc.p_sale == 0.0:  # nobody takes part, or no value reaches the reserve
         return {rule: {"rule": rule, "expected_revenue": 0.0, "revenue_sd": 0.0, "revenue_quantiles": [0.0] * len(quantiles),
                        "probability_of_sale": 0.0, "expected_winner_surplus": 0.0, "expected_bidder_surplus": 0.0,
                        "efficiency": None, "_err": 0.0} for rule in rules}, []
+    warnings = []
+    got = one_pass(auc, rules, warnings)
+    if got is None:
+        return count_by_count(auc, rules, quantiles)
+    out, shared = {}, {}  # the quantiles depend on the pricing alone
+    for rule in rules:
+        f = got[rule]
+        pricing = R.get(rule).pricing
+        if pricing is not R.SECOND:
+            f["revenue_sd"], sd_err = bid_revenue_sd(auc, pricing, f["expected_revenue"])
+            f["_err"] = max(f["_err"], sd_err)
+        if pricing.name not in shared:
+            shared[pricing.name] = (second_price_quantiles(auc, quantiles) if pricing is R.SECOND
+                                    else None if pricing is R.ALL_PAY else bid_price_quantiles(auc, quantiles))
+        qs = shared[pricing.name]
+        out[rule] = {"rule": rule, **f, "revenue_quantiles": None if qs is None else np.asarray(qs, float).tolist(),
+                     "probability_of_sale": auc.p_sale}
+    return out, warnings
+
+
+def one_pass(auc, rules, warnings):
+    """Each rule's expected revenue (by its own route), the second-price sd, the surpluses and
+    the efficiency, all on one value's quadrature above the floor (``single_quadrature``),
+    weighted by the count's generating function H(u) = E[u^N]: the highest value's density
+    over one value's is H'(u), the second-highest's (1 - u) H''(u), the highest rival's G(u) =
+    H'(u)/E[N]. Its cost grows little with the counts kept. None (count by count instead)
+    where a value's variance does not exist, the floor is not finite, or the reserve is beyond
+    the nodes' reach.
+
+    Routes (forward revenue; a lone bidder, who knows the count's distribution only, pays the
+    reserve under a truthful rule and its bid under a bid-priced one):
+    second price: lone + floor P(X2 < r <= X1) + int Q(u) (1 - u) H''(u) du;
+    ascending: the value-space route of one count (``revenue.ascending_revenue``) on the
+    mixture's second-highest, P(X2 <= x) = K2(F(x)), K2 = H + (1 - u) H';
+    first price: int b H' du; descending: by parts, b(r) (1 - H(F(r))) + int (v - b) G'/G (1 - H) du
+    (b' = (v - b) G'/G from the first-order condition); all-pay: E[N] int G b du.
+    """
+    m, count = auc.model, auc.bidders
+    if not (m.upper_tail_index > 2.0 and math.isfinite(auc.floor)) or 0.0 < auc.s_r < FAR_RESERVE:
+        return None
+    q, bids, hp = auc.single_quadrature(2)
+    if not q.panels:
+        return None
+    if any(n >= 2 for n in count.counts) and not any(n >= 2 for n, w in zip(count.counts, count.weights) if w > 0):
+        return None
+    s = np.exp(q.stacked()[0])
+    h2 = -np.expm1(-s) * count.second_density_s(s)
+    ref, off = q.offsets()
+    pis = count.rival_weights
+    big_g = auc._win_chance(s)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        slope = np.where(big_g > 0.0, count.second_density_s(s) / count.mean / big_g, 0.0)  # G'/G, G' = H''/E[N]
+    n_arr, w_arr = count.arrays
+    one_less_h = -(w_arr @ np.expm1(-np.multiply.outer(n_arr, s.ravel()))).reshape(s.shape)  # 1 - H(u), its digits kept
+    s_r = auc.s_r
+    h_r = float(count.highest_cdf_s(s_r))
+    omu_r = -math.expm1(-s_r) if math.isfinite(s_r) else 1.0
+    k2_r = h_r + omu_r * float(count.highest_density_s(s_r))
+    lone_mass = dict(zip(count.counts, count.weights)).get(1, 0.0) * omu_r
+    atom = max(k2_r - h_r - lone_mass, 0.0)  # n >= 2 with X2 below the floor and X1 above it: the price is the floor
+    if lone_mass > 0.0 and not math.isfinite(auc.lone_price):
+        return None
+
+    def integral(h):
+        with np.errstate(over="ignore", invalid="ignore"):
+            return q.integrate_nodes(np.nan_to_num(h, nan=0.0, posinf=0.0, neginf=0.0))
+
+    top, top_err = integral((off + ref) * hp)  # E[X1; sale]
+    out = {}
+    for rule in rules:
+        route = R.get(rule).revenue
+        pricing = R.get(rule).pricing
+        if route is revenue.second_price_revenue:
+            inner, err = integral((off + ref) * h2)
+            mean = lone_mass * auc.lone_price + atom * auc.floor + inner
+        elif route is revenue.ascending_revenue:  # the same value-space route as one count's, on the mixture's X2
+            mean, err = revenue.ascending_revenue(auc)
+        elif route is revenue.first_price_revenue:
+            mean, err = integral(bids * hp)
+        elif route is revenue.descending_revenue:
+            g_r = float(sum(p * math.exp(-k * s_r) if k else p for k, p in pis.items())) if math.isfinite(s_r) else pis.get(0, 0.0)
+            b_r = (pis.get(0, 0.0) * auc.lone_price + (g_r - pis.get(0, 0.0)) * auc.floor) / g_r if g_r > 0 else auc.floor
+            inner, err = integral((off + ref - bids) * slope * one_less_h)
+            mean = b_r * auc.p_sale + inner
+        elif route is revenue.all_pay_revenue:
+            each, err = integral(big_g * bids)
+            mean, err = count.mean * each, count.mean * err
+        else:
+            return None  # a rule registered later: count by count
+        if pricing is R.SECOND:
+            sd2, sd_err = integral(((off + ref) - mean) ** 2 * h2)
+            sd2 += h_r * mean ** 2 + lone_mass * (auc.lone_price - mean) ** 2 + atom * (auc.floor - mean) ** 2
+            sd = math.sqrt(max(sd2, 0.0))
+            winner, w_err = top - mean, top_err + err
+        elif pricing is R.FIRST:
+            sd, sd_err = None, 0.0
+            winner, w_err = integral((off + ref - bids) * hp)
+        else:
+            sd, sd_err = None, 0.0
+            winner, w_err = integral((off + ref - big_g * bids) * hp)
+        bidder = winner if pricing is not R.ALL_PAY else top - mean
+        out[rule] = {"expected_revenue": mean, "revenue_sd": sd, "expected_winner_surplus": winner,
+                     "expected_bidder_surplus": bidder, "_err": max(err, w_err, sd_err / (2.0 * sd) if sd else 0.0)}
+    eff = _one_pass_efficiency(auc, warnings)
+    for f in out.values():
+        f["efficiency"] = eff
+    return out
+
+
+def _one_pass_efficiency(auc, warnings):
+    """The efficiency on one value's quadrature between the floor and the seller's value,
+    weighted by H'(u) (``gains._efficiency``)."""
+    q, s0 = gains._top_quadrature(auc, n=1)
+    hp = auc.bidders.highest_density_s(np.exp(q.stacked()[0]))
+    got = gains._efficiency(auc, q, s0, warnings, weight=hp)
+    return None if got is None else got[0]
+
+
+def count_by_count(auc, rules, quantiles):
+    """Each rule's figures from every count's own auction, mixed (see the module's docstring)."""
+    from .reports import forward_figures  # reports dispatches here
+
     warnings, per_count = [], []
     for n, w, part in auc.weighted():
         figures, notes = forward_figures(part, rules, [])
@@ -196,23 +417,33 @@ def price_moments_exist(auc, rule):
     return all(price.price_moment_exists(auc.model, n, rule, 2, auc.floor) for n, _, _ in auc.weighted())
 
 
-def bid_revenue_sd(auc, pricing, mean):
-    """(sd, its error) of the revenue under a bid pricing, with the mixed bids: first price
-    E[b(X1)^2; sale] over one value's quadrature weighted by H'(F); all-pay, the sum of N
-    bids a = G b, E[N] Var(a) + Var(N) E[a]^2 (a compound sum's variance)."""
+def bid_revenue_sd(auc, pricing, mean=None):
+    """(sd, its error) of the revenue under a bid pricing, with the mixed bids, each taken about
+    its own mean on the same nodes so that no digit is lost to a difference of squares: first
+    price, E[(R - m)^2] = int (b - m)^2 H'(F) dF over a sale + P(no sale) m^2, m = int b H'(F) dF;
+    all-pay, the sum of N bids a = G b: E[N] Var(a) + Var(N) E[a]^2 (a compound sum's variance),
+    Var(a) about E[a] alike (a = 0 below the floor). ``mean`` is not used: the pricing's own
+    nodes give the mean the spread is taken about."""
     q, bids, hp = auc.single_quadrature(2)
     if not q.panels:
         return 0.0, 0.0
     if pricing is R.ALL_PAY:
         a = _all_pay_bids(auc, q)
-        (ea, e_err), (ea2, e2_err) = q.integrate_nodes(a), q.integrate_nodes(a * a)
+        mass = float(q.w_hi.sum())  # P(X >= floor), by the same rule
+        ea, e_err = q.integrate_nodes(a)
+        spread, s_err = q.integrate_nodes((a - ea) ** 2)
+        var_a = spread + (1.0 - mass) * ea * ea
         count = auc.bidders
-        var_n = count.expect(lambda n: n * n) - count.mean ** 2
-        var = count.mean * (ea2 - ea * ea) + var_n * ea * ea
-        return math.sqrt(max(var, 0.0)), math.sqrt(abs(count.mean * e2_err)) + abs(ea) * e_err
-    second, err = q.integrate_nodes(hp * bids * bids)
-    var = second - mean * mean
-    sd = math.sqrt(max(var, 0.0))
+        var_n = count.expect(lambda n: (n - count.mean) ** 2)
+        var = count.mean * var_a + var_n * ea * ea
+        sd = math.sqrt(max(var, 0.0))
+        err = count.mean * s_err + 2.0 * var_n * abs(ea) * e_err
+    else:
+        m, m_err = q.integrate_nodes(hp * bids)
+        spread, err = q.integrate_nodes(hp * (bids - m) ** 2)
+        var = spread + (1.0 - auc.p_sale) * m * m
+        sd = math.sqrt(max(var, 0.0))
+        err = err + 2.0 * abs(m) * m_err
     return sd, (err / (2.0 * sd) if sd > 0 else math.sqrt(err))
 
 
@@ -232,17 +463,39 @@ def _all_pay_winner_surplus(auc, per_count):
     return winner_value - paid
 
 
-def _solve_s(target, lo, hi, fn):
-    """s in [lo, hi] with fn(s) = target for each target (fn decreasing in s), by bisection
-    in log s, so that values near the top (s tiny) keep their digits."""
+def _solve_s(target, lo, hi, fn, slope=None):
+    """s in [lo, hi] with fn(s) = target for each target (fn decreasing in s), in x = log s, so
+    that values near the top (s tiny) keep their digits: by bisection, or, given ``slope``
+    (d fn / ds), by Newton's method kept inside a bracket that every step narrows (a step
+    that would leave it bisects instead), from the bracket a coarse grid gives."""
     target = np.asarray(target, float)
     a = np.full(target.shape, math.log(max(lo, 1e-300)))
     b = np.full(target.shape, math.log(hi) if math.isfinite(hi) else math.log(800.0))
-    for _ in range(120):
-        mid = 0.5 * (a + b)
-        above = fn(np.exp(mid)) > target
-        a, b = np.where(above, mid, a), np.where(above, b, mid)
-    return np.exp(0.5 * (a + b))
+    if slope is None:
+        for _ in range(64):  # the bracket spans under 2^10 in log s: 64 halvings reach rounding
+            mid = 0.5 * (a + b)
+            above = fn(np.exp(mid)) > target
+            a, b = np.where(above, mid, a), np.where(above, b, mid)
+        return np.exp(0.5 * (a + b))
+    # a bracket 0.6 wide in log s wherever s > e^-70 (1 - F below 4e-31), one more below
+    grid = np.unique(np.concatenate(([a[0]], np.linspace(max(a[0], min(-70.0, b[0] - 1.0)), b[0], 128))))
+    values = fn(np.exp(grid))  # decreasing
+    i = np.clip(np.searchsorted(-values, -target, side="left"), 1, len(grid) - 1)
+    a, b = grid[i - 1], grid[i]
+    x = 0.5 * (a + b)
+    for _ in range(60):
+        e = np.exp(x)
+        f = fn(e) - target
+        done = np.abs(f) <= 4.0 * np.finfo(float).eps  # as close as fn's rounding allows
+        a, b = np.where(f > 0, x, a), np.where(f < 0, x, b)  # fn above the target: the root lies to the right
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            step = x - f / (slope(e) * e)
+        inside = np.isfinite(step) & (step >= a) & (step <= b)
+        new = np.where(done, x, np.where(inside, step, 0.5 * (a + b)))
+        if np.all(done | (np.abs(new - x) <= 4.0 * np.finfo(float).eps * np.maximum(np.abs(x), 1.0))):
+            return np.exp(new)
+        x = new
+    return np.exp(x)
 
 
 def _value_at_s(model, s):
@@ -270,7 +523,7 @@ def second_price_quantiles(auc, ps):
             out = np.where(q <= p_one, auc.lone_price, out)
         rest = q > at_floor
         if rest.any():
-            s = _solve_s(q[rest] + h_r, 0.0, auc.s_r, second_cdf_s)
+            s = _solve_s(q[rest] + h_r, 0.0, auc.s_r, second_cdf_s, auc._second_slope_s)
             out[rest] = _value_at_s(auc.model, s)
         return out
 
@@ -284,7 +537,8 @@ def bid_price_quantiles(auc, ps):
     h_r = float(count.highest_cdf_s(auc.s_r))  # P(no sale): no value beats the floor, or no bidder
 
     def sale_quantile(q):
-        s = _solve_s(np.asarray(q, float) + h_r, 0.0, auc.s_r, count.highest_cdf_s)
+        s = _solve_s(np.asarray(q, float) + h_r, 0.0, auc.s_r, count.highest_cdf_s,
+                     lambda e: -np.exp(-e) * count.highest_density_s(e))
         return auc.bids_at_s(s)
 
     return price._with_no_sale(auc, ps, sale_quantile, lambda: _cdf_at_zero(auc, sale_quantile))

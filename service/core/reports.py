@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from . import audit, bids, gains, mixing, price
+from . import audit, bids, gains, mixing, price, simulation
 from . import rules as R
 from .auction import ForwardAuction, forward_case
 from .errors import ParameterError
@@ -100,17 +100,42 @@ def _out_of_reach(auc, rule, p, warnings):
     return True
 
 
+def risk_averse_rules(rules, risk_aversion, field="rules"):
+    """The rules asked (default: every registered rule but all-pay under risk aversion, whose
+    equilibrium is not offered); all-pay asked under risk aversion is a ParameterError."""
+    if not risk_aversion:
+        return list(R.names()) if rules is None else list(rules)
+    if rules is None:
+        return [r for r in R.names() if R.get(r).pricing is not R.ALL_PAY]
+    for i, r in enumerate(rules):
+        if R.get(r).pricing is R.ALL_PAY:
+            raise ParameterError(f"{field}.{i}" if field == "rules" else field,
+                                 "all-pay under risk aversion is not offered; drop it or set risk_aversion to 0")
+    return list(rules)
+
+
+def _auction(fmodel, count, freserve, v0, risk_aversion):
+    """The forward auction: one count's, or the mixture's for an uncertain count (risk-neutral only)."""
+    if count.certain:
+        return ForwardAuction(fmodel, count, freserve, v0, risk_aversion)
+    if risk_aversion:
+        raise ParameterError("risk_aversion", "risk aversion with an uncertain number of bidders is not offered yet; "
+                                              "give an integer bidders, or risk_aversion 0")
+    return mixing.MixedAuction(fmodel, count, freserve, v0)
+
+
 def revenue_report(model, direction, bidders, reserve=None, own_value=None, rules=None,
-                   quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
+                   quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), risk_aversion=0.0, monte_carlo=None):
     """Revenue figures for each rule asked (default: every registered rule), in the caller's
     sign (a reverse auction's payments) under the core's names (service/web/wording.py
-    names them for the caller)."""
-    rules = R.names() if rules is None else rules
+    names them for the caller). Under risk aversion (``risk_aversion``, CRRA rho) revenue
+    equivalence fails: ``rule_comparison`` says which rule does best for the auctioneer."""
+    rules = risk_averse_rules(rules, risk_aversion)
     fmodel, freserve, v0 = forward_case(model, direction, reserve, own_value)
     count = mixing.resolve(bidders, fmodel, freserve)
     if direction == "forward" and v0 is None:
         v0 = 0.0
-    auc = ForwardAuction(fmodel, count, freserve, v0) if count.certain else mixing.MixedAuction(fmodel, count, freserve, v0)
+    auc = _auction(fmodel, count, freserve, v0, risk_aversion)
     price.check_price_exists(fmodel, count, auc.floor)
     # Payment quantile p is minus the forward revenue quantile 1 - p.
     fq = list(quantiles) if direction == "forward" else [1.0 - p for p in quantiles]
@@ -134,16 +159,35 @@ def revenue_report(model, direction, bidders, reserve=None, own_value=None, rule
         })
     means = [r["expected_revenue"] for r in results]
     spread = (max(means) - min(means)) if len(means) > 1 and None not in means else None
+    extra = {"risk_aversion": {"crra": risk_aversion}, "rule_comparison": _comparison(results, direction)} if risk_aversion else {}
+    if monte_carlo:
+        sims, notes = simulation.revenue_check(auc, list(rules), monte_carlo["draws"], monte_carlo["seed"],
+                                               {r["rule"]: r for r in results}, sign)
+        extra["monte_carlo"] = {"draws": monte_carlo["draws"], "seed": monte_carlo["seed"], "method": simulation.METHOD,
+                                "results": sims, "notes": notes}
     return audit.revenue({
         "direction": direction,
         "bidders": count.to_params(),
         "reserve": reserve,
         "results": results,
-        "revenue_equivalence": finite(spread),
+        "revenue_equivalence": None if risk_aversion else finite(spread),
+        **extra,
         **_count_fields(count),
         "numerics": _numerics(count, "quantile_gauss_legendre+spectral_bid_integration", err),
         "warnings": warnings,
-    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0, count.may_be_lone)
+    }, model, reserve, own_value if own_value is not None or direction == "reverse" else 0.0, count.may_be_lone,
+        equivalent=not risk_aversion)
+
+
+def _comparison(results, direction):
+    """Under risk aversion: the rule that does best for the auctioneer (the highest revenue, or
+    the lowest payment), the one that does worst, and by how much (None where a figure is)."""
+    live = [(r["expected_revenue"], r["rule"]) for r in results if r["expected_revenue"] is not None]
+    if len(live) < 2:
+        return None
+    live.sort(reverse=direction == "forward")
+    (best, best_rule), (worst, worst_rule) = live[0], live[-1]
+    return {"best_for_auctioneer": best_rule, "worst_for_auctioneer": worst_rule, "difference": finite(abs(best - worst))}
 
 
 def _numerics(count, method, err):
@@ -171,12 +215,13 @@ def _grid(model, points):
     return np.linspace(lo, hi, points)
 
 
-def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", points=51, at=None):
+def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", points=51, at=None, risk_aversion=0.0):
     """Equilibrium bids on a grid of values (forward) or costs (reverse: asks), the grid under
     the key ``values`` either way; where none is given, ``points`` values across the support."""
+    risk_averse_rules([rule], risk_aversion, field="rule")
     fmodel, freserve, _ = forward_case(model, direction, reserve, None)
     count = mixing.resolve(bidders, fmodel, freserve)
-    auc = ForwardAuction(fmodel, count, freserve, 0.0) if count.certain else mixing.MixedAuction(fmodel, count, freserve, 0.0)
+    auc = _auction(fmodel, count, freserve, 0.0, risk_aversion)
     pricing = R.get(rule).pricing
     least_rivals = min([n - 1.0 for n in count.counts if n >= 2], default=0.0)
     if not pricing.truthful and least_rivals and not auc.reserve_binds \
@@ -198,7 +243,8 @@ def bid_strategy(model, direction, bidders, reserve=None, rule="first_price", po
     if not all(takes_part[inside]):
         warnings.append(Note("not_taking_part"))
     warnings += _no_sale_note(auc)
-    return audit.bids({"direction": direction, "rule": rule, "bidders": count.to_params(), **_count_fields(count),
+    extra = {"risk_aversion": {"crra": risk_aversion}} if risk_aversion else {}
+    return audit.bids({"direction": direction, "rule": rule, "bidders": count.to_params(), **_count_fields(count), **extra,
                        "values": [finite(x) for x in grid.tolist()], "bids": out_bids, "warnings": warnings}, model, reserve,
                       count.may_be_lone)
 

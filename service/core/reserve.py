@@ -10,6 +10,7 @@ import numpy as np
 from scipy import optimize
 
 from . import audit, mixing, revenue
+from . import rules as R
 from .auction import ForwardAuction, forward_case
 from .bidders import Bidders, CostlyEntry
 from .errors import ParameterError
@@ -152,15 +153,7 @@ def _entry_optimum(model, entry, v0):
     def payoff(r):
         return mixing.entry_payoff(model, entry, float(r), v0)
 
-    values = [payoff(r) for r in grid]
-    i = int(np.argmax(values))
-    a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, len(grid) - 1)])
-    r_best, best = float(grid[i]), values[i]
-    if b > a:
-        found = optimize.minimize_scalar(lambda r: -payoff(r), bounds=(a, b), method="bounded",
-                                         options={"xatol": 1e-10 * max(abs(a), abs(b), b - a)})
-        if -found.fun >= best:
-            r_best, best = float(found.x), -found.fun
+    r_best, best = _scanned_maximum(payoff, grid)
     # Where the payoff is flat within rounding, the reserves theory names are taken: the seller's
     # own value (the optimum when entry is mixed, Levin and Smith 1994) and Myerson's (1981) for
     # all N entering (the optimum when entry stays full).
@@ -172,7 +165,61 @@ def _entry_optimum(model, entry, v0):
     return r_best
 
 
-def reserve_report(model, direction, bidders, own_value):
+def _rule_payoff(model, count, r, v0, rule, risk_aversion):
+    """(the auctioneer's payoff, the revenue, P(sale)) under ``rule`` with reserve r (None: none),
+    the revenue by the rule's own route."""
+    from .reports import forward_figures  # reports builds on this module's neighbours
+
+    auc = ForwardAuction(model, count, r, v0, risk_aversion)
+    rev = forward_figures(auc, [rule], [])[0][rule]["expected_revenue"] if auc.p_sale > 0 else 0.0
+    return rev + v0 * (1.0 - auc.p_sale), rev, auc.p_sale
+
+
+def _rule_optimum(model, count, v0, rule, risk_aversion, lo):
+    """The reserve maximising the auctioneer's payoff under a bid-priced rule when bidders are
+    risk averse (no closed form: the bids themselves move with the reserve): the payoff scanned
+    on a quantile grid, no reserve included, and refined by a bounded search between the best
+    point's neighbours."""
+    grid = _reserve_grid(model)[::25]
+    grid = np.unique(np.concatenate((grid[np.isfinite(grid)], [lo] if math.isfinite(lo) else [])))
+
+    def payoff(r):
+        return _rule_payoff(model, count, float(r), v0, rule, risk_aversion)[0]
+
+    return _scanned_maximum(payoff, grid)[0]
+
+
+def _scanned_maximum(payoff, grid):
+    """(reserve, payoff) at the payoff's maximum: the best grid point, refined by a bounded
+    search between its neighbours (kept only where it does better)."""
+    values = [payoff(r) for r in grid]
+    i = int(np.argmax(values))
+    a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, len(grid) - 1)])
+    r_best, best = float(grid[i]), values[i]
+    if b > a:
+        found = optimize.minimize_scalar(lambda r: -payoff(r), bounds=(a, b), method="bounded",
+                                         options={"xatol": 1e-10 * max(abs(a), abs(b), b - a)})
+        if -found.fun > best:
+            r_best, best = float(found.x), -found.fun
+    return r_best, best
+
+
+def _by_rule(fmodel, count, v0, r_star, risk_aversion, to_payoff, sign):
+    """Under risk aversion, each rule's own optimum (``optimal_reserve_by_rule``): Myerson's for
+    the rules where bidding one's value stays dominant, a search for the bid-priced ones."""
+    from .reports import risk_averse_rules
+
+    lo = fmodel.lower
+    out = {}
+    for rule in risk_averse_rules(None, risk_aversion):
+        r = r_star if R.get(rule).pricing.truthful or count.lone else _rule_optimum(fmodel, count, v0, rule, risk_aversion, lo)
+        payoff, rev, p_sale = _rule_payoff(fmodel, count, r, v0, rule, risk_aversion)
+        out[rule] = {"optimal_reserve": finite(sign * r), "expected_revenue_at_optimum": finite(sign * rev),
+                     "probability_of_sale_at_optimum": finite(p_sale), "expected_payoff_at_optimum": finite(to_payoff(payoff))}
+    return out
+
+
+def reserve_report(model, direction, bidders, own_value, risk_aversion=0.0):
     """The reserve (forward) or maximum price (reverse) that maximises the seller's (buyer's)
     expected payoff, in the caller's sign under the core's names; ``outcome`` says how the
     optimum was found (see :func:`optimal_reserve`), for the web layer's note."""
@@ -207,4 +254,10 @@ def reserve_report(model, direction, bidders, own_value):
         "outcome": outcome,
         "warnings": [],
     }
+    if risk_aversion:
+        if not count.certain:
+            raise ParameterError("risk_aversion", "risk aversion with an uncertain number of bidders is not offered yet; "
+                                                  "give an integer bidders, or risk_aversion 0")
+        out["risk_aversion"] = {"crra": risk_aversion}
+        out["optimal_reserve_by_rule"] = _by_rule(fmodel, count, v0, r_star, risk_aversion, to_payoff, sign)
     return audit.reserve_price(out, model, own_value)

@@ -65,7 +65,7 @@ def _from_top(auc):
     top, floor = auc.model.upper, auc.floor
     if not (math.isfinite(top) and math.isfinite(floor)):
         return False
-    mid = float(os_.rank_quantiles(auc.model, auc.n, 2, [0.5])[0])
+    mid = float(auc.second_quantiles([0.5])[0])
     return abs(top - mid) < abs(mid - floor)
 
 
@@ -76,13 +76,8 @@ def _clock_integral(auc, edges, split, from_top=False):
     """(the clock price's mean over the edges, its two-rule error, and bounds on what the
     light tails beyond the edges would add: P(X2 > top) |top| above the last edge and,
     where the support is unbounded below, P(X2 <= bottom) |bottom| below the first)."""
-    m, n = auc.model, auc.n
-
-    def sf2(x):
-        return os_.rank_sf(m, n, 2, x)
-
-    def cdf2(x):
-        return os_.rank_cdf(m, n, 2, x)
+    m = auc.model
+    sf2, cdf2 = auc.second_sf, auc.second_cdf
 
     a, b, same_side, log_ratio = value_spans(edges)
     # Panels spanning a wide ratio on one side of zero run in log|x|, where a
@@ -105,8 +100,10 @@ def _clock_integral(auc, edges, split, from_top=False):
         return out
 
     base = auc.model.upper * auc.p_sale if from_top else auc.floor * auc.p_sale if split is None else split
+    if auc.lone_buys:  # a lone bidder who pays a reserve below the support
+        base -= auc.lone_buys * (auc.floor - auc.lone_price)
     totals = [base + s for s in refined_value_integral(la, lb, logp, sgn, integrand, abs(base))]
-    tail = _power_tails(m, n, edges, sf2, cdf2, split is not None)
+    tail = _power_tails(m, auc.second_lower_index, edges, sf2, cdf2, split is not None)
     above = below = 0.0  # light tails beyond the end edges: bounds on what they would add
     if not (math.isfinite(m.upper) or math.isfinite(m.upper_tail_index)):
         above = float(sf2(np.array(edges[-1]))) * abs(edges[-1])
@@ -116,17 +113,17 @@ def _clock_integral(auc, edges, split, from_top=False):
     return totals[0] + tail, err, above, below
 
 
-def _power_tails(m, n, edges, sf2, cdf2, lower):
+def _power_tails(m, lower_index, edges, sf2, cdf2, lower):
     """The clock price's power-law tails beyond the last edges (and, with ``lower``, below
     the first), integrated in closed form: int_T^inf P(X2 > x) dx = T P(X2 > T) / (2a - 1)
-    for P(X2 > x) ~ x^-2a, and alike below with index (n - 1) a_low."""
+    for P(X2 > x) ~ x^-2a, and alike below with the second-highest's index (n - 1) a_low."""
     tail = 0.0
     if math.isfinite(m.upper_tail_index) and not math.isfinite(m.upper):
         top = edges[-1]
         tail += top * float(sf2(np.array(top))) / (2.0 * m.upper_tail_index - 1.0)
     if lower and math.isfinite(m.lower_tail_index):
         bot = edges[0]
-        tail -= abs(bot) * float(cdf2(np.array(bot))) / ((n - 1.0) * m.lower_tail_index - 1.0)
+        tail -= abs(bot) * float(cdf2(np.array(bot))) / (lower_index - 1.0)
     return tail
 
 
@@ -150,17 +147,17 @@ def _ascending_edges(auc):
     survival function (None when the floor is finite). A panel spanning many decades on one
     side of zero (a floor of 1e-300, say) is cut into pieces of at most e^3, which the log-|x|
     rule integrates exactly (``_widened``)."""
-    m, n, lo_end = auc.model, auc.n, auc.floor
-    xs = os_.rank_quantiles(m, n, 2, _P_EDGES)
+    m, lo_end = auc.model, auc.floor
+    xs = auc.second_quantiles(_P_EDGES)
     edges = np.concatenate((xs, list(m.kink_values()), [lo_end] if math.isfinite(lo_end) else []))
     if math.isfinite(m.upper):
         edges = np.append(edges, m.upper)
     if math.isfinite(lo_end):
         edges = edges[edges >= lo_end]
     edges = np.unique(edges[np.isfinite(edges)])
-    split = None if math.isfinite(lo_end) else float(os_.rank_quantiles(m, n, 2, [0.5])[0])
+    split = None if math.isfinite(lo_end) else float(auc.second_quantiles([0.5])[0])
     if split is not None:
-        edges = np.unique(np.concatenate((edges, [split], _tail_edges(edges[0], (n - 1.0) * m.lower_tail_index))))
+        edges = np.unique(np.concatenate((edges, [split], _tail_edges(edges[0], auc.second_lower_index))))
     if not math.isfinite(m.upper):
         edges = np.append(edges, _tail_edges(edges[-1], 2.0 * m.upper_tail_index))
     return widened(edges), split
@@ -174,10 +171,11 @@ def first_price_revenue(auc):
 def descending_revenue(auc):
     """The descending clock price b(X1), integrated by parts:
     E = b(c) - r F(r)^n + int_c^inf b' (1 - F^n) dv - int_r^c b' F^n dv,
-    with b' dv = -(n-1) (v - b) ds from the equilibrium equation."""
-    n = auc.n
+    with b' dv = -k (v - b) ds from the equilibrium equation (k = n - 1, or (n - 1)/alpha
+    under constant relative risk aversion)."""
+    n, k = auc.n, auc.bid_rivals
     tail, nb = auc.bids.tail(), auc.bids.nodes()
-    c, weight = auc.bids.inner_quadrature().kept(("descending", n), lambda: _descending_weight(tail.nodes, n))
+    c, weight = auc.bids.inner_quadrature().kept(("descending", n, k), lambda: _descending_weight(tail.nodes, n, k, n - 1.0))
     # b(c) - r F(r)^n with b(c) = origin + d[c], written (origin - r) + r P(sale) + d[c] so that no term
     # of the reserve's size is taken from another.
     at_floor = (auc.bids.origin - auc.floor) + auc.floor * auc.p_sale if math.isfinite(auc.floor) else auc.bids.origin
@@ -188,12 +186,12 @@ def descending_revenue(auc):
     return hi, abs(hi - lo) + os_.ROUNDING * rounding
 
 
-def _descending_weight(nodes, n):
+def _descending_weight(nodes, n, k, m):
     """The descending route's split edge c (the edge nearest F^n = e^-1) and its node
-    weight, (n-1) s (1 - F^n) where t < t_c and -(n-1) s F^n elsewhere: functions of
-    the nodes and n alone."""
-    k = n - 1.0
-    c = int(np.argmin(np.abs(nodes.edges - math.log(k / n)))) if len(nodes.edges) else 0
+    weight, k s (1 - F^n) where t < t_c and -k s F^n elsewhere (k = n - 1, or (n - 1)/alpha
+    under risk aversion: b' = k (f/F)(v - b)): functions of the nodes, n and k alone (the
+    nodes run in t = log(m s), m = n - 1)."""
+    c = int(np.argmin(np.abs(nodes.edges - math.log(m / n)))) if len(nodes.edges) else 0
     return c, k * nodes.s * np.where(nodes.t < nodes.edges[c], -np.expm1(-n * nodes.s), -np.exp(-n * nodes.s))
 
 

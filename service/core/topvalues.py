@@ -34,12 +34,26 @@ def _numerics(summaries, gap_error=0.0):
     return {"method": "+".join(methods), "abs_error": finite(None if None in errors else max(errors))}
 
 
-def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
+def top_values(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0, monte_carlo=None):
     """Mean, sd, quantiles (and optionally the pdf/cdf curve) of each rank; ``bidders`` a count
-    or :class:`bidders.Bidders`."""
+    or :class:`bidders.Bidders`; with ``monte_carlo`` ({draws, seed}), ranks 1 and 2 checked by
+    simulation (:mod:`simulation`)."""
     from . import mixing  # mixing builds on the auction modules, which import this one
 
     count = mixing.resolve(bidders, model)
+    out = _top_values(model, count, ranks, quantiles, curve_points)
+    if monte_carlo:
+        from . import simulation
+
+        exact = {item["rank"]: (item["mean"], item["sd"]) for item in out["results"]}
+        out["monte_carlo"] = {"draws": monte_carlo["draws"], "seed": monte_carlo["seed"], "method": simulation.METHOD,
+                              "results": simulation.top_values_check(model, count, list(exact), monte_carlo["draws"],
+                                                                     monte_carlo["seed"], exact)}
+    return out
+
+
+def _top_values(model, count, ranks, quantiles, curve_points):
+    """The top-values report for a count (``Bidders``)."""
     if not count.certain:
         return _mixed_top_values(model, count, ranks, quantiles, curve_points)
     bidders = count.n
@@ -111,12 +125,16 @@ def _mixed_top_values(model, count, ranks, quantiles, curve_points):
     return audit.top_values(out, model, ordered=False)
 
 
-def lowest_costs(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0):
+def lowest_costs(model, bidders, ranks=None, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95), curve_points=0, monte_carlo=None):
     """The same report for costs, rank k counted from the lowest: the k-th lowest of n costs C
     is the k-th highest of the values X = -C (``models.Reflected``), so each figure is the
     values' report mapped back: means and quantiles negated (cost quantile p is minus the
     value quantile 1 - p), the curve mirrored, the sds and the expected gap unchanged."""
-    out = top_values(Reflected(model), bidders, ranks, [1.0 - p for p in quantiles], curve_points)
+    out = top_values(Reflected(model), bidders, ranks, [1.0 - p for p in quantiles], curve_points, monte_carlo)
+    for check in (out.get("monte_carlo") or {}).get("results", {}).values():
+        mean = check["mean"]
+        mean["estimate"] = -mean["estimate"]
+        mean["z"] = None if mean["z"] is None else -mean["z"]
     for item in out["results"]:
         item["mean"] = finite(None if item["mean"] is None else -item["mean"])
         item["quantiles"] = [{"p": float(p), "value": finite(None if q["value"] is None else -q["value"])}

@@ -6,15 +6,31 @@ Each request names the value model as ``bidder_values`` (forward: a sale) or
 from __future__ import annotations
 
 from flask import Blueprint
-from marshmallow import Schema, ValidationError, validates_schema
+from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from ..core import reports, reserve
 from ..core import rules as core_rules
-from .fields import BiddersField, count_work, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
+from .fields import WORK_PER_DRAW, BiddersField, MonteCarlo, count_work, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
 from . import admission, wording
 from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
+
+
+class RiskAversion(Schema):
+    """Constant relative risk aversion: the utility of a gain x is x^(1 - crra)."""
+
+    crra = StrictFloat(required=True)
+
+    @validates_schema
+    def _range(self, data, **kw):
+        if "crra" in data and not 0.0 <= data["crra"] < 1.0:
+            raise ValidationError({"crra": ["Must be at least 0 and below 1 (utility x^(1 - crra))."]})
+
+
+def crra_of(req):
+    """The bidders' CRRA rho from a loaded request (0: risk-neutral)."""
+    return 0.0 if req.get("risk_aversion") is None else req["risk_aversion"]["crra"]
 
 
 class _AuctionRequest(Schema):
@@ -51,7 +67,9 @@ def _case(req):
 
 class RevenueRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
-    rules = rule_list(load_default=lambda: list(core_rules.names()))
+    rules = rule_list(load_default=None)
+    risk_aversion = fields.Nested(RiskAversion, load_default=None)
+    monte_carlo = fields.Nested(MonteCarlo, load_default=None)
     quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
 
@@ -59,6 +77,7 @@ class RevenueRequest(_AuctionRequest):
 class BidStrategyRequest(_AuctionRequest):
     reserve = StrictFloat(load_default=None)
     rule = RuleName(load_default="first_price")
+    risk_aversion = fields.Nested(RiskAversion, load_default=None)
     points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
     at = CappedList(StrictFloat(), 1, "points", load_default=None)
 
@@ -69,6 +88,8 @@ class BidStrategyRequest(_AuctionRequest):
 
 
 class ReservePriceRequest(_AuctionRequest):
+    risk_aversion = fields.Nested(RiskAversion, load_default=None)
+
     @validates_schema
     def _buyer_value(self, data, **kw):
         if data.get("bidder_costs") is not None and data.get("buyer_value") is None:
@@ -77,13 +98,15 @@ class ReservePriceRequest(_AuctionRequest):
 
 def revenue_handler(body):
     req = load(RevenueRequest, body)
-    admission.admit(work=_model_work(body) * len(req["rules"]) * count_work(req["bidders"]), numbers=len(req["rules"]) * (24 + 2 * len(req["quantiles"])),
-                    field="quantiles")
+    rules = len(req["rules"] or core_rules.names())
+    draws = req["monte_carlo"]["draws"] if req["monte_carlo"] else 0
+    admission.admit(work=_model_work(body) * rules * count_work(req["bidders"]) + WORK_PER_DRAW * draws * rules,
+                    numbers=rules * (24 + 2 * len(req["quantiles"]) + (12 if draws else 0)), field="quantiles")
     model, direction, own = _case(req)
     return wording.revenue(core_call(
         reports.revenue_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], own_value=own,
-        rules=req["rules"], quantiles=req["quantiles"],
+        rules=req["rules"], quantiles=req["quantiles"], risk_aversion=crra_of(req), monte_carlo=req["monte_carlo"],
     ))
 
 
@@ -96,17 +119,18 @@ def bid_strategy_handler(body):
     return wording.bids(core_call(
         reports.bid_strategy, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
         model=model, direction=direction, bidders=req["bidders"], reserve=req["reserve"], rule=req["rule"],
-        points=req["points"] or 51, at=req["at"],
+        points=req["points"] or 51, at=req["at"], risk_aversion=crra_of(req),
     ))
 
 
 def reserve_price_handler(body):
     req = load(ReservePriceRequest, body)
-    admission.admit(work=_model_work(body) * 20 * count_work(req["bidders"]), numbers=16, field="bidders")
+    admission.admit(work=_model_work(body) * 20 * count_work(req["bidders"]) * (60 if crra_of(req) else 1), numbers=40,
+                    field="bidders")
     model, direction, own = _case(req)
     return wording.reserve(core_call(
         reserve.reserve_report, field_prefix="bidder_values" if direction == "forward" else "bidder_costs",
-        model=model, direction=direction, bidders=req["bidders"], own_value=own,
+        model=model, direction=direction, bidders=req["bidders"], own_value=own, risk_aversion=crra_of(req),
     ))
 
 

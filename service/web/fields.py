@@ -313,6 +313,17 @@ class BiddersField(fields.Field):
         return build_bidders(value)
 
 
+class MonteCarlo(Schema):
+    """A simulation check on demand: ``draws`` simulated auctions from ``seed``."""
+
+    draws = StrictInteger(minimum=1, maximum="draws", required=True)
+    seed = StrictInteger(minimum=0, maximum=2**63 - 1, load_default=0)
+
+
+#: Estimated work (admission units) per simulated auction and rule.
+WORK_PER_DRAW = 3e-4
+
+
 def count_work(count):
     """How many auctions' figures a count asks for: one per count it spans (costly entry
     adds one per potential bidder to find the entry probability)."""

@@ -7,6 +7,7 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 from ..core.fits import mle
 from ..core.fits.report import check_replications, fit_report
 from . import admission, wording
+from .auctions import RiskAversion, crra_of
 from .fields import CappedList, StrictFloat, StrictInteger, caps, rule_list
 from .fits_csv import auctions_from_csv, options_from_query
 from .io import body_bytes, core_call, json_body, json_response, load
@@ -75,6 +76,7 @@ class FitRequest(Schema):
     covariates = CappedList(fields.String(), 0, 20, load_default=list)
     confidence = fields.Nested(Confidence, load_default=lambda: Confidence().load({}))
     counterfactual = fields.Nested(Counterfactual, load_default=None)
+    risk_aversion = fields.Nested(RiskAversion, load_default=None)
 
     @validates_schema(skip_on_field_errors=True)
     def _direction_values(self, data, **kw):
@@ -120,7 +122,8 @@ def fits_handler(body):
         cf["own_value"] = own
     return wording.fits(core_call(
         fit_report, rule=req["rule"], direction=req["direction"], auctions=req["auctions"], families=req["families"],
-        nonparametric=req["nonparametric"], confidence=req["confidence"], counterfactual=cf, covariates=req["covariates"]))
+        nonparametric=req["nonparametric"], confidence=req["confidence"], counterfactual=cf, covariates=req["covariates"],
+        risk_aversion=crra_of(req)))
 
 
 HANDLERS = {"/v1/fits": fits_handler}

@@ -12,7 +12,7 @@ from flask import Blueprint, Response, request
 from marshmallow import ValidationError
 
 from ..core.budget import BudgetSpent
-from . import auctions, query, top_values
+from . import auctions, query, top_values, wording
 from .io import json_response
 from .problems import spent_error, validation_problem
 
@@ -43,13 +43,16 @@ def _rule(args, door, errors):
 def _body_from_query(args, door):
     """(metric, direction, rule, POST body) from the query, or ValidationError."""
     errors = {}
-    query.unknown(args, {"metric", "rule", "rules", "direction", "family", *_CASE_KEYS, *query.COUNT_KEYS, *query.model_keys()},
+    query.unknown(args, {"metric", "rule", "rules", "direction", "family", "risk_aversion", *_CASE_KEYS, *query.COUNT_KEYS,
+                         *query.model_keys()},
                   errors)
     metric = args.get("metric")
     if metric not in METRICS:
         errors["metric"] = [f"One of: {', '.join(METRICS)}."]
     rule = _rule(args, door, errors)
     body = query.case_body(args, door, errors, _CASE_KEYS)
+    if "risk_aversion" in args:
+        body["risk_aversion"] = {"crra": door.number("risk_aversion", args["risk_aversion"], errors)}
     direction = query.direction(args, {})
     if "metric" not in errors and METRICS.get(metric) not in (None, direction) and "direction" not in errors:
         errors["metric"] = [f"{metric} belongs to a {METRICS[metric]} auction; set direction={METRICS[metric]} or pick another metric."]
@@ -63,7 +66,11 @@ def _value(metric, direction, rule, body):
     if metric == "optimal_reserve":
         body.pop("reserve", None)
         out = auctions.reserve_price_handler(body)
+        if "optimal_reserve_by_rule" in out:  # risk-averse bidders: each rule has its own
+            return out["optimal_reserve_by_rule"][rule][wording.name("optimal_reserve", direction)], out["warnings"]
         return out["optimal_reserve"], out["warnings"]
+    if metric in ("mean_highest", "mean_second", "mean_lowest", "mean_second_lowest", "expected_gap") and "risk_aversion" in body:
+        raise ValidationError({"risk_aversion": ["Not used by this metric."]})
     if metric in ("mean_highest", "mean_second", "mean_lowest", "mean_second_lowest", "expected_gap") and direction == "forward":
         body.pop("seller_value", None)
         if "reserve" in body:

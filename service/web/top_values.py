@@ -5,7 +5,7 @@ from flask import Blueprint
 from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from ..core import topvalues
-from .fields import BiddersField, count_work, CappedList, StrictFloat, StrictInteger, ValueModelField, most_bidders
+from .fields import WORK_PER_DRAW, BiddersField, MonteCarlo, count_work, CappedList, StrictFloat, StrictInteger, ValueModelField, most_bidders
 from . import admission
 from .io import core_call, load, register_posts
 
@@ -21,6 +21,7 @@ class TopValuesRequest(Schema):
     quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
     curve_points = StrictInteger(minimum=0, maximum="curve_points", load_default=0)
+    monte_carlo = fields.Nested(MonteCarlo, load_default=None)
 
     @validates_schema
     def _ranks_within(self, data, **kw):
@@ -66,13 +67,15 @@ def top_values_handler(body):
     req = load(TopValuesRequest, body)
     ranks, curve = len(req["ranks"] or [1, 2]), req["curve_points"]
     name = "bidder_values" if "bidder_values" in req else "bidder_costs"
-    admission.admit(work=admission.model_work(body.get(name)) * ranks * (1 + curve / 200) * count_work(req["bidders"]),
+    draws = req["monte_carlo"]["draws"] if req["monte_carlo"] else 0
+    admission.admit(work=admission.model_work(body.get(name)) * ranks * (1 + curve / 200) * count_work(req["bidders"])
+                    + WORK_PER_DRAW * draws,
                     numbers=ranks * (4 + 2 * len(req["quantiles"]) + 3 * curve),
                     field="curve_points" if curve else "ranks")
     return core_call(
         topvalues.top_values if name == "bidder_values" else topvalues.lowest_costs, field_prefix=name,
         model=req[name], bidders=req["bidders"], ranks=req["ranks"],
-        quantiles=req["quantiles"], curve_points=req["curve_points"],
+        quantiles=req["quantiles"], curve_points=req["curve_points"], monte_carlo=req["monte_carlo"],
     )
 
 

@@ -47,9 +47,13 @@ _COUNT_ASSUMPTIONS = {
 }
 
 
-def assumptions(direction, bidders):
-    """The assumptions for this direction and count: an uncertain count says how it arises."""
+def assumptions(direction, bidders, risk=None):
+    """The assumptions for this direction, count and risk attitude: an uncertain count says how
+    it arises; risk-averse bidders replace risk-neutral ones."""
     out = list(ASSUMPTIONS[direction])
+    if risk:
+        out[1] = (f"symmetric bidders with constant relative risk aversion {risk['crra']:g} (utility of a gain x is "
+                  f"x^{1.0 - risk['crra']:g}); surpluses are in money, not utility")
     if isinstance(bidders, dict):
         w = "value" if direction == "forward" else "cost"
         out[-1] = "a single indivisible item or contract, no collusion"
@@ -186,7 +190,7 @@ def _with(report, direction, before, extra):
 def revenue(report):
     """/v1/revenue's answer: the core's report named for its direction, with the assumptions."""
     d = report["direction"]
-    return _with(report, d, "bidders", {"assumptions": assumptions(d, report["bidders"])})
+    return _with(report, d, "bidders", {"assumptions": assumptions(d, report["bidders"], report.get("risk_aversion"))})
 
 
 def bids(report):
@@ -195,13 +199,20 @@ def bids(report):
     note = core_rules.get(report["rule"]).note[d]
     if isinstance(report["bidders"], dict) and not core_rules.get(report["rule"]).pricing.truthful:
         note += "; with an uncertain number of bidders, G(v) = E over the rival count of F(v)^k (Krishna 2009, ch. 3)"
-    return _with(report, d, "warnings", {"note": note, "assumptions": assumptions(d, report["bidders"])})
+    if report.get("risk_aversion") and not core_rules.get(report["rule"]).pricing.truthful:
+        note += "; under constant relative risk aversion rho, b' = (n-1)/(1-rho) (f/F)(v-b) (Krishna 2009, ch. 4)"
+    return _with(report, d, "warnings", {"note": note, "assumptions": assumptions(d, report["bidders"], report.get("risk_aversion"))})
 
 
 def reserve(report):
     """/v1/reserve-price's answer, with what the optimum means (by how it was found) and the assumptions."""
     d = report["direction"]
-    out = _with(report, d, "warnings", {"note": _RESERVE_NOTES[d][report["outcome"]], "assumptions": assumptions(d, report["bidders"])})
+    note = _RESERVE_NOTES[d][report["outcome"]]
+    if report.get("optimal_reserve_by_rule"):
+        note += ("; under risk aversion each rule has its own optimum (optimal_reserve_by_rule): Myerson's for the rules "
+                 "where bidding one's " + ("value" if d == "forward" else "cost") + " stays dominant, a numerical search "
+                 "for the bid-priced ones; the figures above are those of second price")
+    out = _with(report, d, "warnings", {"note": note, "assumptions": assumptions(d, report["bidders"], report.get("risk_aversion"))})
     del out["outcome"]
     return out
 

@@ -11,7 +11,8 @@ def counterfactual_figures(model, direction, ask, rules=None):
     reserve (maximum price), which needs the auctioneer's own value (a seller's defaults to
     0; a buyer's must be given). ``rules`` overrides the rules asked."""
     own = ask.get("own_value")
-    rep = reports.revenue_report(model, direction, ask["bidders"], ask.get("reserve"), own, rules or ask["rules"], quantiles=())
+    rep = reports.revenue_report(model, direction, ask["bidders"], ask.get("reserve"), own, rules or ask["rules"], quantiles=(),
+                                 risk_aversion=ask.get("risk_aversion", 0.0))
     out = {f"expected_revenue.{r['rule']}": r["expected_revenue"] for r in rep["results"]}
     out["probability_of_sale"] = rep["results"][0]["probability_of_sale"]
     if own is not None or direction == "forward":

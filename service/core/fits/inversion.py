@@ -97,14 +97,16 @@ def _reflected_kde(x, at, h):
     return np.interp(at, grid, dens / (len(x) * h * _SQRT_2PI))
 
 
-def pseudo_value(b, G, g, n, winners_only=False):
+def pseudo_value(b, G, g, n, winners_only=False, alpha=1.0):
     """The value behind bid b from the equilibrium's first-order condition, b + G / ((n - 1) g)
     with G, g the bids' cdf and density at b (GPV 2000, eq. 4); from the highest bid's cdf and
-    density, G_win = G^n, the same value is b + n G_win / ((n - 1) g_win)."""
-    return b + (n if winners_only else 1.0) * G / ((n - 1.0) * g)
+    density, G_win = G^n, the same value is b + n G_win / ((n - 1) g_win). Bidders with constant
+    relative risk aversion rho shade by alpha = 1 - rho times as much: b + alpha G / ((n - 1) g)
+    (Campo, Guerre, Perrigne and Vuong 2011)."""
+    return b + alpha * (n if winners_only else 1.0) * G / ((n - 1.0) * g)
 
 
-def _pseudo_values(b, n, winners_only, below=0.0):
+def _pseudo_values(b, n, winners_only, below=0.0, alpha=1.0):
     """Pseudo-values at each bid, G the empirical cdf, g the reflected kernel density. Under a
     binding reserve the bids are those of the values above it, and ``below`` is the chance of a
     value under it (all bids: F(r); winning bids: the auctions that did not sell, F(r)^n), so the
@@ -115,7 +117,7 @@ def _pseudo_values(b, n, winners_only, below=0.0):
         return b.copy(), 0.0
     G = np.searchsorted(np.sort(b), b, side="right") / len(b)
     g = _reflected_kde(b, b, h)
-    return pseudo_value(b, below + (1.0 - below) * G, (1.0 - below) * g, n, winners_only), h
+    return pseudo_value(b, below + (1.0 - below) * G, (1.0 - below) * g, n, winners_only, alpha), h
 
 
 def _groups(rec):
@@ -165,7 +167,7 @@ def winners_to_cdf(rec):
     counts (and reserves) by their numbers of auctions."""
     per_group, width, falls = [], [], 0
     for n, r, bids, share, auctions in _groups(rec):
-        xi, h = _pseudo_values(bids, n, True, share)
+        xi, h = _pseudo_values(bids, n, True, share, rec.alpha)
         falls += int(np.sum(np.diff(xi[np.argsort(bids, kind="stable")]) < 0))
         per_group.append((n, r, np.sort(xi), share, auctions, True))
         width.append(h)
@@ -180,7 +182,7 @@ def bids_to_values(rec, thin=True):
     nothing of values below the reserve beyond their share F(r)."""
     out, widths, falls, per_group = [], [], 0, []
     for n, r, bids, share, auctions in _groups(rec):
-        xi, h = _pseudo_values(bids, n, False, share)
+        xi, h = _pseudo_values(bids, n, False, share, rec.alpha)
         order = np.argsort(bids, kind="stable")
         falls += int(np.sum(np.diff(xi[order]) < 0))
         out.append(xi)

@@ -57,9 +57,10 @@ class BidRecords:
     reserve: np.ndarray
     bids: tuple  # one array per auction
     winners_only: bool
+    alpha: float = 1.0  # 1 - rho, the bidders' constant relative risk aversion rho as the user gives it
 
     def take(self, idx):
-        return BidRecords(self.n[idx], self.reserve[idx], tuple(self.bids[i] for i in idx), self.winners_only)
+        return BidRecords(self.n[idx], self.reserve[idx], tuple(self.bids[i] for i in idx), self.winners_only, self.alpha)
 
     @property
     def observed(self):
@@ -132,7 +133,7 @@ def price_records(auctions, direction):
     return PriceRecords(n, reserve, price, ~unsold & ~at_reserve, at_reserve, unsold)
 
 
-def bid_records(auctions, direction, kind):
+def bid_records(auctions, direction, kind, alpha=1.0):
     """``BidRecords`` from the request's records: every bid (a list as long as ``bidders``) or
     the winner's alone, at or above the reserve (reverse: at or below the maximum price). Under a
     reserve ``bidders`` counts those who could bid, and ``bids`` holds the bids made: the others'
@@ -162,12 +163,13 @@ def bid_records(auctions, direction, kind):
         reserve.append(r)
     if sum(len(b) > 0 for b in bids) < 2:
         raise ParameterError("auctions", "at least 2 sold auctions are needed")
-    return BidRecords(np.array(n), np.array(reserve), tuple(bids), kind == "winning_bid")
+    return BidRecords(np.array(n), np.array(reserve), tuple(bids), kind == "winning_bid", alpha)
 
 
-def records(rule, direction, auctions):
-    """The request's auctions as ``PriceRecords`` or ``BidRecords`` (forward twin)."""
+def records(rule, direction, auctions, risk_aversion=0.0):
+    """The request's auctions as ``PriceRecords`` or ``BidRecords`` (forward twin); first-price
+    bids carry the bidders' risk aversion as given (it is not learnt from them)."""
     kind = _kind(rule, auctions)
     if kind == "price":
         return price_records(auctions, direction)
-    return bid_records(auctions, direction, kind)
+    return bid_records(auctions, direction, kind, 1.0 - risk_aversion)

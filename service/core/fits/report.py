@@ -188,7 +188,8 @@ def _resampler(rec, rule, direction, auctions, covariates, reference):
 
     def draw(rng):
         picked = [auctions[i] for i in rng.integers(0, len(auctions), len(auctions))]
-        return records(rule, direction, homogenize(picked, list(covariates), reference)[0])
+        return records(rule, direction, homogenize(picked, list(covariates), reference)[0],
+                       1.0 - rec.alpha if isinstance(rec, BidRecords) else 0.0)
     return draw
 
 
@@ -257,16 +258,21 @@ def _selection(fits, nonparametric):
 
 
 def fit_report(rule, direction, auctions, families=None, nonparametric=True, confidence=None, counterfactual=None,
-               covariates=()):
+               covariates=(), risk_aversion=0.0):
     """Models recovered from past auctions under ``rule``, the one selected, intervals and
-    counterfactuals; with ``covariates``, for the reference item the records are scaled to."""
+    counterfactuals; with ``covariates``, for the reference item the records are scaled to.
+    ``risk_aversion`` (the bidders' CRRA rho, given, not learnt) enters the first-price
+    inversion and the counterfactual."""
+    if risk_aversion and rule == "first_price" and families:
+        raise ParameterError("families", "under risk aversion first-price bids are inverted nonparametrically only "
+                                         "(Campo, Guerre, Perrigne and Vuong 2011); leave families out")
     confidence = {"level": 0.9, "replications": 200, "seed": 0, **(confidence or {})}
     sign = 1.0 if direction == "forward" else -1.0
     homogenization, raw, reference = None, auctions, None
     if covariates:
         auctions, homogenization = homogenize(auctions, list(covariates))
         reference = homogenization.pop("_reference")
-    rec = records(rule, direction, auctions)
+    rec = records(rule, direction, auctions, risk_aversion)
     data = sign * rec.start_values
     rng = np.random.default_rng(confidence["seed"])
     check_reps = check_replications(confidence["replications"])
@@ -274,7 +280,8 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
     np_model, np_entry = _nonparametric(rec, sign) if nonparametric or not fits else (None, None)
     selected, reason = _selection(fits, np_model is not None)
     model = next(f.model for f, _ in fits if f.family == selected) if selected else np_model
-    ask = None if counterfactual is None else {"rules": ["first_price", "second_price"], **counterfactual}
+    ask = None if counterfactual is None else {"rules": ["first_price", "second_price"], **counterfactual,
+                                               **({"risk_aversion": risk_aversion} if risk_aversion else {})}
     params, figures = ({}, {}) if confidence["replications"] == 0 else \
         _bootstrap(_resampler(rec, rule, direction, raw, covariates, reference), [f for f, _ in fits], sign, confidence,
                    selected, direction, ask)
@@ -296,6 +303,12 @@ def fit_report(rule, direction, auctions, families=None, nonparametric=True, con
     if families is None and isinstance(rec, BidRecords):
         warnings.append("no parametric family was fitted: for first-price bids each is fitted only when named in "
                         "families (every evaluation of their likelihood solves the equilibrium bids afresh)")
+    if risk_aversion:
+        out["risk_aversion"] = {"crra": risk_aversion}
+        warnings.append(f"the bids were inverted with the risk aversion given ({risk_aversion:g}), not learnt from them: one "
+                        "bidder count cannot tell risk aversion from the value model (Campo, Guerre, Perrigne and Vuong 2011)"
+                        if isinstance(rec, BidRecords) else "risk aversion does not change prices under this rule (bidding "
+                        "one's value stays dominant); it enters the counterfactual only")
     out["warnings"] = warnings + _inversion_warnings(np_entry) + _data_warnings(rec, nonparametric, selected)
     return out
 
