@@ -607,7 +607,40 @@ def contention_cases():
     return holder, contenders
 
 
+def count_cases():
+    """Uncertain counts, risk aversion and the simulation check at and past their caps."""
+    g = "counts"
+    table = [{"bidders": i, "p": 1.0 / 400} for i in range(400)]
+    return [
+        post(g, "Poisson mean 10^6: past the counts summed", "/v1/revenue", {"bidder_values": LOGNORMAL, "bidders": {"distribution": "poisson", "mean": 1e6}}),
+        post(g, "Poisson mean 1e-300: nobody", "/v1/revenue", {"bidder_values": LOGNORMAL, "bidders": {"distribution": "poisson", "mean": 1e-300}}),
+        post(g, "a table of 400 counts, 50-component mixture", "/v1/revenue",
+             {"bidder_values": mixture(MAX_COMPONENTS), "bidders": {"distribution": "table", "probabilities": table}}, heavy=True),
+        post(g, "a table of 401 counts", "/v1/revenue",
+             {"bidder_values": LOGNORMAL, "bidders": {"distribution": "table", "probabilities": table + [{"bidders": 1, "p": 0.0}]}}),
+        post(g, "costly entry of 400, reserve price, 50-component mixture", "/v1/reserve-price",
+             {"bidder_values": mixture(MAX_COMPONENTS), "bidders": {"distribution": "entry", "potential": 400, "entry_cost": 1e-300}},
+             heavy=True),
+        post(g, "binomial of 10^6 at 1e-300", "/v1/top-values",
+             {"bidder_values": LOGNORMAL, "bidders": {"distribution": "binomial", "potential": 1_000_000, "entry_probability": 1e-300}}),
+        post(g, "10^6 draws, all five rules, 50-component mixture", "/v1/revenue",
+             {"bidder_values": mixture(MAX_COMPONENTS), "bidders": 6, "monte_carlo": {"draws": 1_000_000}}, heavy=True),
+        post(g, "10^6 draws, Poisson mean 300, all-pay", "/v1/revenue",
+             {"bidder_values": LOGNORMAL, "bidders": {"distribution": "poisson", "mean": 300}, "rules": ["all_pay"],
+              "monte_carlo": {"draws": 1_000_000}}, heavy=True),
+        post(g, "batch of 1,000 checks of 10^6 draws", "/v1/batch",
+             {"requests": [{"id": i, "path": "/v1/top-values", "body": {"bidder_values": LOGNORMAL, "bidders": 6,
+                                                                         "monte_carlo": {"draws": 1_000_000}}} for i in range(MAX_BATCH)]},
+             heavy=True),
+        post(g, "risk aversion 0.99, 10^6 bidders, 2,001 bids", "/v1/bid-strategy",
+             {"bidder_values": LOGNORMAL, "bidders": 1_000_000, "risk_aversion": {"crra": 0.99}, "points": MAX_CURVE}, heavy=True),
+        post(g, "risk aversion 0.99, reserve by rule, 50-component mixture", "/v1/reserve-price",
+             {"bidder_values": mixture(MAX_COMPONENTS), "bidders": 2, "risk_aversion": {"crra": 0.99}}, heavy=True),
+    ]
+
+
 def all_cases(seed, random_count):
     """Every group in order, the heavy cases first so that the light ones fill the gaps."""
-    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + door_cases() + random_cases(seed, random_count)
+    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + count_cases() + door_cases() + \
+        random_cases(seed, random_count)
     return [c for c in cases if c.heavy] + [c for c in cases if not c.heavy]

@@ -60,6 +60,17 @@ def _heavy_tail_edges(a, k, s_top):
     return tuple(np.exp(np.arange(-2.0 * a, t_end, -2.0 * a)) / k)
 
 
+def _kernel_edges(k, m):
+    """Panel edges (as s = -log F) for bids that weigh rivals as F^k with k well above the m = n - 1
+    rivals the nodes are laid out for (risk aversion: k = m / alpha): every panel no wider than
+    4/k in s where the winner's values lie (s up to 60/m), so that e^(-k s) changes by at most
+    e^4 across one and the panels' polynomial rules integrate it; below 4/k, every 0.5 in log s."""
+    step = 4.0 / k
+    linear = np.arange(step, 60.0 / m, step)
+    geometric = step * np.exp(-0.5 * np.arange(1, 80))
+    return tuple(np.concatenate((geometric[geometric > 1e-300], linear)).tolist())
+
+
 class EquilibriumBids:
     """The symmetric first-price equilibrium bids of one auction, b(v) = E[max(Y, r) | Y < v]
     with Y the highest of the n - 1 rival values (Krishna 2009, ch. 2), on the nodes of Y's
@@ -117,6 +128,8 @@ class EquilibriumBids:
             if a <= 1.0:  # the bids' own tail matters: see ``_heavy_tail_edges``
                 s_top = neg_log_cdf(self.model, TOP_VALUE)
                 splits = _heavy_tail_edges(a, k, s_top)
+            if self.rivals > 1.5 * self.m:  # risk-averse bids weigh rivals by a steeper F^k: see ``_kernel_edges``
+                splits = tuple(sorted(set(splits) | set(_kernel_edges(self.rivals, self.m))))
             self._quadrature = os_.filled_rank_quadrature(
                 self.model, self.m, 1, power=self.auction.power(self.m, 1), growth=self._growth(), s_cut=self.s_r,
                 fine=True, s_top=s_top, splits_s=splits, checked=True,
@@ -213,6 +226,9 @@ class EquilibriumBids:
             ends_at_cut = math.isfinite(self.s_r) and se[-1] >= self.s_r * (1.0 - 1e-12)
             reach = math.inf if ends_at_cut else k * se[-1] - 36.0
             on_panels = (se[0] <= flat) & (flat <= se[-1]) & (k * flat <= reach)
+            if k > 1.5 * self.m and on_panels.any():  # risk-averse bids: a panel wider than 8/k cannot follow e^(-k s)
+                j = np.minimum(np.searchsorted(se, flat[on_panels], side="right") - 1, len(se) - 2)
+                on_panels[np.nonzero(on_panels)[0][k * (se[j + 1] - se[j]) > 8.0]] = False
         if on_panels.any():
             # Within the panels: the node's partial panel, then the recurrence from its right edge.
             sq = flat[on_panels]

@@ -195,7 +195,7 @@ class MixedAuction:
 
     def _finished(self, o, start, above, big_g, values):
         """b = o + (start + the integral) / G, held between the floor's bid and the value."""
-        with np.errstate(over="ignore", invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             bids = o + (start + above) / big_g
         return np.where(big_g > 0.0, np.minimum(np.maximum(bids, min(self.floor, self.lone_price)), values), self.floor)
 
@@ -648,6 +648,10 @@ def surpluses_each(model, potential, reserve):
     with np.errstate(invalid="ignore", over="ignore"):
         parts = np.exp(np.multiply.outer(n - 1.0, log_u)) * (q.w * ih)
     u = parts[:, :, :os_.RULE_SPLIT].sum(axis=(1, 2))
+    # a lone bidder's E[X - floor; sale] from the values: S/f has no weight u^(n-1) to damp it at
+    # the bottom, below the quadrature's reach (``gains._second_price_surplus``)
+    ref, off = q.offsets()
+    u[0] = q.integrate_nodes(off - (auc.floor - ref))[0]
     if auc.lone_price < auc.floor:
         u[0] += (auc.floor - auc.lone_price) * auc.p_sale
     return u
