@@ -300,11 +300,10 @@ def test_one_pass_agrees_with_count_by_count(model, count):
     from service.core import mixing
 
     rules = ["first_price", "second_price", "ascending", "descending", "all_pay"]
-    for reserve in (None, float(model.ppf(0.3))):
-        one = mixing.MixedAuction(model, count, reserve, 0.0)
-        fast, _ = mixing.mixed_figures(one, rules, [0.5])
-        assert mixing.one_pass(mixing.MixedAuction(model, count, reserve, 0.0), rules, []) is not None
-        slow, _ = mixing.count_by_count(mixing.MixedAuction(model, count, reserve, 0.0), rules, [0.5])
+    for r in (None, float(model.ppf(0.3))):
+        fast, _ = mixing.mixed_figures(mixing.MixedAuction(model, count, r, 0.0), rules, [0.5])
+        assert mixing.one_pass(mixing.MixedAuction(model, count, r, 0.0), rules, []) is not None
+        slow, _ = mixing.count_by_count(mixing.MixedAuction(model, count, r, 0.0), rules, [0.5])
         for rule in rules:
             for key in ("expected_revenue", "revenue_sd", "expected_winner_surplus", "expected_bidder_surplus", "efficiency"):
-                assert fast[rule][key] == pytest.approx(slow[rule][key], rel=1e-8), (rule, key, reserve)
+                assert fast[rule][key] == pytest.approx(slow[rule][key], rel=1e-8), (rule, key, r)

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy import special, stats
+from scipy import stats
 
 from .errors import ParameterError
 
