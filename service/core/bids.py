@@ -60,6 +60,12 @@ def _heavy_tail_edges(a, k, s_top):
     return tuple(np.exp(np.arange(-2.0 * a, t_end, -2.0 * a)) / k)
 
 
+#: Kernel panels per unit of k/m (``_kernel_edges``: 60/m wide in s, 4/k apart), and the most laid out;
+#: beyond, risk-averse bids are integrated point by point (``EquilibriumBids.standalone``).
+_KERNEL_PANELS = 15.0
+MAX_KERNEL_PANELS = 1500
+
+
 def _kernel_edges(k, m):
     """Panel edges (as s = -log F) for bids that weigh rivals as F^k with k well above the m = n - 1
     rivals the nodes are laid out for (risk aversion: k = m / alpha): every panel no wider than
@@ -84,6 +90,9 @@ class EquilibriumBids:
         # the nodes are those of the highest of the n - 1 rivals' values, in t = log(m s), m = n - 1,
         # so that they cover the winner's values whatever the bids' exponent
         self.m = auction.bidders.rivals
+        # bids whose exponent is far steeper than the nodes' (strong risk aversion) are integrated
+        # point by point (``_standalone``), where panels fine enough for it would be too many
+        self.standalone = self.rivals > 1.5 * self.m and _KERNEL_PANELS * self.rivals / self.m > MAX_KERNEL_PANELS
         self.s_r, self.floor, self.lone_price = auction.s_r, auction.floor, auction.lone_price
         self.origin = self._origin()
         self._quadrature = self._tail = self._nodes = self._shading_cache = None
@@ -128,7 +137,7 @@ class EquilibriumBids:
             if a <= 1.0:  # the bids' own tail matters: see ``_heavy_tail_edges``
                 s_top = neg_log_cdf(self.model, TOP_VALUE)
                 splits = _heavy_tail_edges(a, k, s_top)
-            if self.rivals > 1.5 * self.m:  # risk-averse bids weigh rivals by a steeper F^k: see ``_kernel_edges``
+            if self.rivals > 1.5 * self.m and not self.standalone:  # risk-averse bids: a steeper F^k, ``_kernel_edges``
                 splits = tuple(sorted(set(splits) | set(_kernel_edges(self.rivals, self.m))))
             self._quadrature = os_.filled_rank_quadrature(
                 self.model, self.m, 1, power=self.auction.power(self.m, 1), growth=self._growth(), s_cut=self.s_r,
@@ -159,7 +168,10 @@ class EquilibriumBids:
             return self._tail
         q = self.inner_quadrature()
         nodes = q.kept(("bid_nodes", self.n, self.rivals), lambda: _bid_nodes(q, self.n, self.rivals))
-        d, g = self._conditional_tails(nodes, q.values - self.origin, self.floor - self.origin)
+        if self.standalone:  # no recurrence: every bid is integrated on its own
+            d, g = np.zeros((2, len(nodes.se))), np.zeros(q.values.shape)
+        else:
+            d, g = self._conditional_tails(nodes, q.values - self.origin, self.floor - self.origin)
         self._tail = BidTail(nodes, q.values, d, g)
         return self._tail
 
@@ -220,6 +232,8 @@ class EquilibriumBids:
         edges, se, d = tail.nodes.edges, tail.nodes.se, tail.d[0]
         res = np.full(flat.shape, math.nan)
         on_panels = np.zeros(flat.shape, bool)
+        if self.standalone:
+            return self._standalone(flat)
         if q.panels:
             # The panel recurrence is exact out to the cut when the panels reach it; where they
             # stop short (the weight is negligible there), only bids 36 e-folds inside can use it.
@@ -247,6 +261,40 @@ class EquilibriumBids:
             res[alone] = self.origin + self._partial(sq, end) + self._reserve_masses(sq)
         return res
 
+    def _standalone(self, s):
+        """Bids at -log F = s (array, above the floor), each as v less its shading, integrated on
+        its own (``_standalone_shade``)."""
+        s = np.asarray(s, float)
+        flat = s.ravel()
+        values = self.model.value_at(np.exp(-flat), -np.expm1(-flat))
+        return (values - self._standalone_shade(flat)).reshape(s.shape)
+
+    def _standalone_shade(self, s_q):
+        """v - b(v) = int_r^v (F(x)/F(v))^k dx at -log F(v) = s_q (flat array), as
+        (1/k) int u Q'(u) e^-w dw with s = s_q + w/k, u = e^-s, Q'(u) = 1/f(Q(u)), out to the
+        floor or w = 80, on the fixed panels of ``_partial``: the shading itself, so that it
+        keeps its digits however small a steep exponent k makes it."""
+        k = self.rivals
+        end = np.full(s_q.shape, self.s_r) if math.isfinite(self.s_r) else s_q + 80.0 / k
+        w_end = np.minimum(k * (end - s_q), 80.0)
+        w_end = np.where(w_end > 0, w_end, 0.0)[:, None]
+        edges = np.clip(np.broadcast_to(np.array(_W_EDGES), (len(s_q), len(_W_EDGES))), 0.0, w_end)
+        (x, w) = _GL[0]
+        a, b = edges[:, :-1, None], edges[:, 1:, None]
+        wp = 0.5 * (b + a) + 0.5 * (b - a) * x
+        ww = 0.5 * (b - a) * w * np.exp(-wp)
+        s = s_q[:, None, None] + wp / k
+        u = np.exp(-s)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            slope = u / self.model.pdf(self.model.value_at(u, -np.expm1(-s)))  # u Q'(u)
+        return (ww * np.where(np.isfinite(slope), slope, 0.0)).sum(axis=(-1, -2)) / k
+
+    def bid_at_edge(self, c):
+        """(b - origin) at the inner quadrature's edge c, per rule (the descending route's anchor)."""
+        if self.standalone:
+            return np.full(2, float(self._standalone(np.array([self.tail().nodes.se[c]]))[0]) - self.origin)
+        return self.tail().d[:, c]
+
     def sub_integral(self, t_q, t_end):
         """Integral of (v - origin) k s e^(-k (s - s_q)) dt over [t_q, t_end] (arrays; t = log(m s),
         the nodes' coordinate), each by one 24-node Gauss-Legendre rule."""
@@ -266,7 +314,7 @@ class EquilibriumBids:
             return self._nodes
         tail = self.tail()
         nodes = tail.nodes
-        bids = self.origin + _at_nodes(nodes, tail.d, tail.g)
+        bids = self._standalone(nodes.s) if self.standalone else self.origin + _at_nodes(nodes, tail.d, tail.g)
         # An equilibrium bid lies between the floor and the value; far out in the
         # tail, where the weights are negligible, rounding could break that.
         vals = tail.values
@@ -304,7 +352,11 @@ class EquilibriumBids:
             small = shade < 1e-3 * (np.abs(nb.values) + np.abs(nb.bids))
             # only where the shading is small beside the values on the whole do its digits matter
             near = nb.integrals(nb.top * shade)[0] < 1e-3 * nb.integrals(nb.top * np.abs(nb.values))[0]
-            ih = self.model.inverse_hazard(q.u, q.v, q.anchor, q.delta) if near else None
+            ih = self.model.inverse_hazard(q.u, q.v, q.anchor, q.delta) if near and not self.standalone else None
+            if self.standalone:  # the shading integrated itself, node by node
+                shade = self._standalone_shade(nb.s.ravel()).reshape(nb.s.shape)
+                o = q.offsets()[1] if o is None else o
+                bid_off = o - shade
             if ih is not None:
                 nodes = self.tail().nodes
                 with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
@@ -359,11 +411,15 @@ def _bid_nodes(q, n, k):
     se = np.exp(edges) / q.m
     t, dt, _ = q.stacked()
     s = np.exp(t) / q.m
-    growth = np.exp(k * (se[1:, None] - s))
+    # beyond the panels a steep kernel is split for (weights below e^-60 there) the shift is held
+    # within the double range; the bids there are not asked for (``_bids_above_floor``)
+    growth = np.exp(np.minimum(k * (se[1:, None] - s), 700.0))
     rivals = np.exp(-(n - 1.0) * s)
     one = np.exp(-s) * s
     rule_dt = dt.reshape(-1, 1) * np.tile(os_.RULE_COLUMNS, (q.panels, 1))
-    return BidNodes(edges, se, 0.5 * (q.b - q.a)[:, None], t, dt, s, growth, k * s * growth, rivals, one, n * rivals * one, rule_dt)
+    with np.errstate(over="ignore"):  # a standalone kernel's recurrence terms are not used (``EquilibriumBids.standalone``)
+        k_s_growth = k * s * growth
+    return BidNodes(edges, se, 0.5 * (q.b - q.a)[:, None], t, dt, s, growth, k_s_growth, rivals, one, n * rivals * one, rule_dt)
 
 
 @dataclass(frozen=True)

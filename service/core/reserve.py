@@ -206,13 +206,21 @@ def _scanned_maximum(payoff, grid):
 
 def _by_rule(fmodel, count, v0, r_star, risk_aversion, to_payoff, sign):
     """Under risk aversion, each rule's own optimum (``optimal_reserve_by_rule``): Myerson's for
-    the rules where bidding one's value stays dominant, a search for the bid-priced ones."""
+    the rules where bidding one's value stays dominant, a search for the bid-priced ones (once
+    per pricing: the descending clock is strategically first price), each rule's figures there
+    by its own route."""
     from .reports import risk_averse_rules
 
     lo = fmodel.lower
-    out = {}
+    out, by_pricing = {}, {}  # rules that price alike (first price, the descending clock) share their optimum
     for rule in risk_averse_rules(None, risk_aversion):
-        r = r_star if R.get(rule).pricing.truthful or count.lone else _rule_optimum(fmodel, count, v0, rule, risk_aversion, lo)
+        pricing = R.get(rule).pricing
+        if pricing.truthful or count.lone:
+            r = r_star
+        else:
+            if pricing.name not in by_pricing:
+                by_pricing[pricing.name] = _rule_optimum(fmodel, count, v0, rule, risk_aversion, lo)
+            r = by_pricing[pricing.name]
         payoff, rev, p_sale = _rule_payoff(fmodel, count, r, v0, rule, risk_aversion)
         out[rule] = {"optimal_reserve": finite(sign * r), "expected_revenue_at_optimum": finite(sign * rev),
                      "probability_of_sale_at_optimum": finite(p_sale), "expected_payoff_at_optimum": finite(to_payoff(payoff))}

@@ -179,9 +179,10 @@ def descending_revenue(auc):
     # b(c) - r F(r)^n with b(c) = origin + d[c], written (origin - r) + r P(sale) + d[c] so that no term
     # of the reserve's size is taken from another.
     at_floor = (auc.bids.origin - auc.floor) + auc.floor * auc.p_sale if math.isfinite(auc.floor) else auc.bids.origin
-    hi, lo = (tail.d[:, c] + at_floor + nb.integrals((nb.values - nb.bids) * weight)).tolist()
+    at_c = auc.bids.bid_at_edge(c)
+    hi, lo = (at_c + at_floor + nb.integrals((nb.values - nb.bids) * weight)).tolist()
     # v - b(v) at a node is as precise as v itself
-    rounding = abs(tail.d[0, c]) + abs(auc.bids.origin) + abs(auc.floor * auc.p_sale if math.isfinite(auc.floor) else 0.0) \
+    rounding = abs(at_c[0]) + abs(auc.bids.origin) + abs(auc.floor * auc.p_sale if math.isfinite(auc.floor) else 0.0) \
         + float(nb.integrals(np.abs(nb.values * weight))[0])
     return hi, abs(hi - lo) + os_.ROUNDING * rounding
 

@@ -17,10 +17,6 @@ from .io import core_call, load, register_posts
 bp = Blueprint("auctions", __name__)
 
 
-#: The largest CRRA taken: the risk-averse bids' panels grow as 1/(1 - crra) (``bids._kernel_edges``).
-MAX_CRRA = 0.99
-
-
 class RiskAversion(Schema):
     """Constant relative risk aversion: the utility of a gain x is x^(1 - crra)."""
 
@@ -28,10 +24,8 @@ class RiskAversion(Schema):
 
     @validates_schema
     def _range(self, data, **kw):
-        if "crra" in data and not 0.0 <= data["crra"] <= MAX_CRRA:
-            raise ValidationError({"crra": [f"Must be at least 0 and at most {MAX_CRRA:g} (utility x^(1 - crra)): nearer 1 the "
-                                            "bids weigh rivals as F^((n-1)/(1-crra)), steeper than the panels this service "
-                                            "lays out for a request can follow."]})
+        if "crra" in data and not 0.0 <= data["crra"] < 1.0:
+            raise ValidationError({"crra": ["Must be at least 0 and below 1 (utility x^(1 - crra))."]})
 
 
 def crra_of(req):
