@@ -8,6 +8,7 @@ model's quantile function, never through the quadratures it checks."""
 from __future__ import annotations
 
 import math
+import zlib
 
 import pytest
 
@@ -38,7 +39,7 @@ def test_every_figure_within_4_standard_errors(model, count, direction):
     # (without one, a lone bidder's price would be the bottom of an unbounded support)
     reserve = float(model.ppf(0.2)) if direction == "forward" else float(model.ppf(0.97))
     own = None if direction == "forward" else float(model.ppf(0.99))
-    seed = hash((type(model).__name__, direction, str(count))) % 1000
+    seed = zlib.crc32(f"{type(model).__name__} {direction} {count}".encode()) % 1000  # the same seeds in every run
     rep = reports.revenue_report(model, direction, count, reserve, own, monte_carlo={"draws": DRAWS, "seed": seed})
     sims = rep["monte_carlo"]["results"]
     assert set(sims) == {r["rule"] for r in rep["results"]}

@@ -201,6 +201,10 @@ BAD = [
     ({"distribution": "entry", "potential": 5, "entry_cost": -1}, "bidders.entry_cost"),
     ({"distribution": "geometric", "mean": 3}, "bidders.distribution"),
     ({"distribution": "poisson"}, "bidders.mean"),
+    ({"distribution": {"poisson": 1}, "mean": 3}, "bidders.distribution"),  # found by the schema fuzzer: a 500 before
+    ({"distribution": ["poisson"], "mean": 3}, "bidders.distribution"),
+    ({"mean": 3}, "bidders.distribution"),
+    ("6", "bidders"),
 ]
 
 

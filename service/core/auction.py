@@ -102,6 +102,11 @@ class ForwardAuction:
             self._closed[rank] = None if self.reserve_binds else self.model.closed_rank_moments(self.n, rank)
         return self._closed[rank]
 
+    def win_chance(self, s):
+        """F^(n-1) at F = e^-s (array; 1 for a lone bidder): the chance to beat every rival."""
+        s = np.asarray(s, float)
+        return np.ones(s.shape) if self.n == 1 else np.exp(-self.bidders.rivals * s)
+
     #: The chance that a lone bidder buys at its own price (``lone_price``), apart from the floor: 0 for a
     #: certain count (a lone bidder's case is ``single_price``'s); an uncertain count's is its own.
     lone_buys = 0.0

@@ -188,7 +188,7 @@ class MixedAuction:
         start = pi0 * (self.lone_price - o) + (g_floor * (self.floor - o) if g_floor else 0.0)
         return o, h, beyond, start
 
-    def _win_chance(self, s):
+    def win_chance(self, s):
         """G(F) = sum_k pi_k F^k = H'(F) / E[N] at F = e^-s: a bidder's chance to beat every rival."""
         count = self.bidders
         return count.highest_density_s(s) / count.mean if count.mean > 0 else np.ones(np.shape(s))
@@ -207,7 +207,7 @@ class MixedAuction:
         o, h, beyond, start = self._bid_parts(q, s)
         half = 0.5 * (q.b - q.a)[:, None]
         above = half * (h @ TAIL_BOTH) + beyond @ os_.RULE_COLUMNS.T
-        return self._finished(o, start, above, self._win_chance(s), q.values)
+        return self._finished(o, start, above, self.win_chance(s), q.values)
 
     def _bids_between(self, q, s):
         """The mixed bids at points inside the panels of one value's quadrature ``q``: the
@@ -220,7 +220,7 @@ class MixedAuction:
         x = (t - 0.5 * (q.a + q.b)[j]) / half
         rest = os_.GAUSS_RULES[0][1] - os_.partial_panel_weights(x)  # the integral from x to 1 of each basis polynomial
         above = half * np.einsum("pi,pi->p", rest, h[j, :os_.RULE_SPLIT]) + beyond[j, 0]
-        return self._finished(o, start, above, self._win_chance(s), _value_at_s(self.model, s))
+        return self._finished(o, start, above, self.win_chance(s), _value_at_s(self.model, s))
 
 
 def _mix_moments(parts):
@@ -275,76 +275,98 @@ def one_pass(auc, rules, warnings):
     first price: int b H' du; descending: by parts, b(r) (1 - H(F(r))) + int (v - b) G'/G (1 - H) du
     (b' = (v - b) G'/G from the first-order condition); all-pay: E[N] int G b du.
     """
-    m, count = auc.model, auc.bidders
+    m = auc.model
     if not (m.upper_tail_index > 2.0 and math.isfinite(auc.floor)) or 0.0 < auc.s_r < FAR_RESERVE:
         return None
-    q, bids, hp = auc.single_quadrature(2)
-    if not q.panels:
+    weighted = _Weighted(auc)
+    if not weighted.q.panels or (weighted.lone_mass > 0.0 and not math.isfinite(auc.lone_price)):
         return None
-    if any(n >= 2 for n in count.counts) and not any(n >= 2 for n, w in zip(count.counts, count.weights) if w > 0):
-        return None
-    s = np.exp(q.stacked()[0])
-    h2 = -np.expm1(-s) * count.second_density_s(s)
-    ref, off = q.offsets()
-    pis = count.rival_weights
-    big_g = auc._win_chance(s)
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        slope = np.where(big_g > 0.0, count.second_density_s(s) / count.mean / big_g, 0.0)  # G'/G, G' = H''/E[N]
-    n_arr, w_arr = count.arrays
-    one_less_h = -(w_arr @ np.expm1(-np.multiply.outer(n_arr, s.ravel()))).reshape(s.shape)  # 1 - H(u), its digits kept
-    s_r = auc.s_r
-    h_r = float(count.highest_cdf_s(s_r))
-    omu_r = -math.expm1(-s_r) if math.isfinite(s_r) else 1.0
-    k2_r = h_r + omu_r * float(count.highest_density_s(s_r))
-    lone_mass = dict(zip(count.counts, count.weights)).get(1, 0.0) * omu_r
-    atom = max(k2_r - h_r - lone_mass, 0.0)  # n >= 2 with X2 below the floor and X1 above it: the price is the floor
-    if lone_mass > 0.0 and not math.isfinite(auc.lone_price):
-        return None
-
-    def integral(h):
-        with np.errstate(over="ignore", invalid="ignore"):
-            return q.integrate_nodes(np.nan_to_num(h, nan=0.0, posinf=0.0, neginf=0.0))
-
-    top, top_err = integral((off + ref) * hp)  # E[X1; sale]
     out = {}
     for rule in rules:
-        route = R.get(rule).revenue
-        pricing = R.get(rule).pricing
-        if route is revenue.second_price_revenue:
-            inner, err = integral((off + ref) * h2)
-            mean = lone_mass * auc.lone_price + atom * auc.floor + inner
-        elif route is revenue.ascending_revenue:  # the same value-space route as one count's, on the mixture's X2
-            mean, err = revenue.ascending_revenue(auc)
-        elif route is revenue.first_price_revenue:
-            mean, err = integral(bids * hp)
-        elif route is revenue.descending_revenue:
-            g_r = float(sum(p * math.exp(-k * s_r) if k else p for k, p in pis.items())) if math.isfinite(s_r) else pis.get(0, 0.0)
-            b_r = (pis.get(0, 0.0) * auc.lone_price + (g_r - pis.get(0, 0.0)) * auc.floor) / g_r if g_r > 0 else auc.floor
-            inner, err = integral((off + ref - bids) * slope * one_less_h)
-            mean = b_r * auc.p_sale + inner
-        elif route is revenue.all_pay_revenue:
-            each, err = integral(big_g * bids)
-            mean, err = count.mean * each, count.mean * err
-        else:
+        figures = weighted.figures(rule)
+        if figures is None:
             return None  # a rule registered later: count by count
-        if pricing is R.SECOND:
-            sd2, sd_err = integral(((off + ref) - mean) ** 2 * h2)
-            sd2 += h_r * mean ** 2 + lone_mass * (auc.lone_price - mean) ** 2 + atom * (auc.floor - mean) ** 2
-            sd = math.sqrt(max(sd2, 0.0))
-            winner, w_err = top - mean, top_err + err
-        elif pricing is R.FIRST:
-            sd, sd_err = None, 0.0
-            winner, w_err = integral((off + ref - bids) * hp)
-        else:
-            sd, sd_err = None, 0.0
-            winner, w_err = integral((off + ref - big_g * bids) * hp)
-        bidder = winner if pricing is not R.ALL_PAY else top - mean
-        out[rule] = {"expected_revenue": mean, "revenue_sd": sd, "expected_winner_surplus": winner,
-                     "expected_bidder_surplus": bidder, "_err": max(err, w_err, sd_err / (2.0 * sd) if sd else 0.0)}
+        out[rule] = figures
     eff = _one_pass_efficiency(auc, warnings)
     for f in out.values():
         f["efficiency"] = eff
     return out
+
+
+class _Weighted:
+    """One value's quadrature above the floor with what every route of an uncertain count
+    weighs it by (see :func:`one_pass`): H'(u), (1 - u) H''(u), G(u), G'/G, 1 - H(u), the
+    mixed bids, and the atoms at the floor."""
+
+    def __init__(self, auc):
+        count = auc.bidders
+        self.auc, self.count = auc, count
+        self.q, self.bids, self.hp = auc.single_quadrature(2)
+        if not self.q.panels:
+            return
+        s = np.exp(self.q.stacked()[0])
+        self.h2 = -np.expm1(-s) * count.second_density_s(s)
+        ref, off = self.q.offsets()
+        self.values = off + ref
+        self.big_g = auc.win_chance(s)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            self.slope = np.where(self.big_g > 0.0, count.second_density_s(s) / count.mean / self.big_g, 0.0)  # G'/G
+        n_arr, w_arr = count.arrays
+        self.one_less_h = -(w_arr @ np.expm1(-np.multiply.outer(n_arr, s.ravel()))).reshape(s.shape)  # 1 - H, its digits kept
+        s_r = auc.s_r
+        self.h_r = float(count.highest_cdf_s(s_r))
+        omu_r = -math.expm1(-s_r) if math.isfinite(s_r) else 1.0
+        k2_r = self.h_r + omu_r * float(count.highest_density_s(s_r))
+        self.lone_mass = dict(zip(count.counts, count.weights)).get(1, 0.0) * omu_r
+        self.atom = max(k2_r - self.h_r - self.lone_mass, 0.0)  # n >= 2, X2 below the floor, X1 above: the floor is paid
+        self.top = self.integral(self.values * self.hp)  # E[X1; sale]
+
+    def integral(self, h):
+        with np.errstate(over="ignore", invalid="ignore"):
+            return self.q.integrate_nodes(np.nan_to_num(h, nan=0.0, posinf=0.0, neginf=0.0))
+
+    def revenue(self, route):
+        """(mean, error) of the forward revenue by ``route`` (a registered rule's), or None."""
+        auc, count, pis = self.auc, self.count, self.count.rival_weights
+        if route is revenue.second_price_revenue:
+            inner, err = self.integral(self.values * self.h2)
+            return self.lone_mass * auc.lone_price + self.atom * auc.floor + inner, err
+        if route is revenue.ascending_revenue:  # the same value-space route as one count's, on the mixture's X2
+            return revenue.ascending_revenue(auc)
+        if route is revenue.first_price_revenue:
+            return self.integral(self.bids * self.hp)
+        if route is revenue.descending_revenue:
+            g_r = float(self.auc.win_chance(np.array(auc.s_r))) if math.isfinite(auc.s_r) else pis.get(0, 0.0)
+            pi0 = pis.get(0, 0.0)
+            b_r = (pi0 * auc.lone_price + (g_r - pi0) * auc.floor) / g_r if g_r > 0 else auc.floor
+            inner, err = self.integral((self.values - self.bids) * self.slope * self.one_less_h)
+            return b_r * auc.p_sale + inner, err
+        if route is revenue.all_pay_revenue:
+            each, err = self.integral(self.big_g * self.bids)
+            return count.mean * each, count.mean * err
+        return None
+
+    def figures(self, rule):
+        """The rule's expected revenue, second-price sd, winner's and bidders' surplus, error; or None."""
+        got = self.revenue(R.get(rule).revenue)
+        if got is None:
+            return None
+        (mean, err), pricing, auc = got, R.get(rule).pricing, self.auc
+        top, top_err = self.top
+        sd, sd_err = None, 0.0
+        if pricing is R.SECOND:
+            sd2, sd_err = self.integral((self.values - mean) ** 2 * self.h2)
+            sd2 += (self.h_r * mean ** 2 + self.lone_mass * (auc.lone_price - mean) ** 2
+                    + self.atom * (auc.floor - mean) ** 2)
+            sd = math.sqrt(max(sd2, 0.0))
+            winner, w_err = top - mean, top_err + err
+        elif pricing is R.FIRST:
+            winner, w_err = self.integral((self.values - self.bids) * self.hp)
+        else:
+            winner, w_err = self.integral((self.values - self.big_g * self.bids) * self.hp)
+        return {"expected_revenue": mean, "revenue_sd": sd, "expected_winner_surplus": winner,
+                "expected_bidder_surplus": winner if pricing is not R.ALL_PAY else top - mean,
+                "_err": max(err, w_err, sd_err / (2.0 * sd) if sd else 0.0)}
 
 
 def _one_pass_efficiency(auc, warnings):
@@ -449,10 +471,7 @@ def bid_revenue_sd(auc, pricing, mean=None):
 
 def _all_pay_bids(auc, q):
     """a(v) = G(F(v)) b(v), each bidder's all-pay bid, at the quadrature's nodes."""
-    pis = auc.bidders.rival_weights
-    s = -np.log(q.u)
-    g = sum(p * np.exp(-k * s) for k, p in pis.items())
-    return g * auc.single_quadrature(2)[1]
+    return auc.win_chance(np.exp(q.stacked()[0])) * auc.single_quadrature(2)[1]
 
 
 def _all_pay_winner_surplus(auc, per_count):
@@ -559,9 +578,7 @@ def mixed_bids(auc, pricing, v):
     b = auc.bids_at_s(s)
     if pricing is not R.ALL_PAY:
         return b
-    g = sum(p * np.exp(-k * np.where(np.isfinite(s), s, 0.0)) if k else p for k, p in auc.bidders.rival_weights.items())
-    g = np.where(np.isfinite(s), g, auc.bidders.rival_weights.get(0, 0.0))
-    return g * b
+    return auc.win_chance(s) * b
 
 
 # ---- top values ---------------------------------------------------------------------------

@@ -152,7 +152,7 @@ def revenue_check(auc, rules, draws, seed, exact, sign):
     model, floor, lone_price, s_r = auc.model, auc.floor, auc.lone_price, auc.s_r
     mixed = not count.certain
     bid_rules = [r for r in rules if not R.get(r).pricing.truthful]
-    table, tallies, notes = None, {r: {k: _Tally() for k in ("rev", "win", "sale")} for r in rules}, []
+    table, tallies = None, {r: {k: _Tally() for k in ("rev", "win", "sale")} for r in rules}
     for start in range(0, draws, CHUNK):
         budget.check()
         size = min(CHUNK, draws - start)
@@ -189,7 +189,12 @@ def revenue_check(auc, rules, draws, seed, exact, sign):
             tallies[rule]["rev"].add(paid)
             tallies[rule]["sale"].add(sale.astype(float))
             tallies[rule]["win"].add(np.where(sale, x1 - win_pay, 0.0))
-    out = {}
+    return _summaries(rules, tallies, exact, sign)
+
+
+def _summaries(rules, tallies, exact, sign):
+    """({rule: {figure: {estimate, standard_error, z}}}, notes) from each rule's tallies."""
+    out, notes = {}, []
     for rule in rules:
         t = tallies[rule]
         if t["rev"].n == 0:
@@ -214,15 +219,11 @@ def _all_pay(auc, n, s1, sale, rng, table, b1):
     """(every bidder's all-pay bids summed, the winner's own bid) per auction: given the highest
     value's F = u1, the other n - 1 values are independent with F uniform on (0, u1), so each is
     drawn as -log F = s1 - log U."""
-    count = auc.bidders
     total = np.zeros(n.shape)
-    pis = count.rival_weights if not count.certain else {int(count.n) - 1: 1.0}
-
-    def win_chance(s):
-        return sum(p * (np.exp(-k * s) if k else 1.0) for k, p in pis.items())
 
     def pay(s, b=None):  # a(v) = G(F(v)) b(v) at and above the floor, 0 below (a lone bidder's b is the reserve)
-        return np.where(s <= auc.s_r, win_chance(s) * (table(s) if b is None else b), 0.0)
+        with np.errstate(invalid="ignore"):
+            return np.where(s <= auc.s_r, auc.win_chance(s) * (table(s) if b is None else b), 0.0)
 
     own = np.where(sale, pay(s1, b1), 0.0)
     total += own

@@ -2,6 +2,7 @@
 and the joint density of two ranks. Plain dicts of finite floats (or None)."""
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -171,6 +172,30 @@ def _overflow_note(dens, warnings):
         warnings.append("the density passes double range (about 1e308) at some points; it is null there")
 
 
+def _density_at_points(log_density, points):
+    """{"points", "warnings"}: the density at (higher, lower) points, a bounded working set at a
+    time, with a budget check per chunk."""
+    hx = np.array([p[0] for p in points], float)
+    ly = np.array([p[1] for p in points], float)
+    d = np.empty(len(hx))
+    for start in range(0, len(hx), _CHUNK):
+        budget.check()
+        part = slice(start, start + _CHUNK)
+        with np.errstate(over="ignore"):
+            d[part] = np.exp(log_density(hx[part], ly[part]))
+    warnings = []
+    _overflow_note(d, warnings)
+    return {"points": [{"higher": float(a), "lower": float(b), "density": finite(c)} for a, b, c in zip(hx, ly, d)],
+            "warnings": warnings}
+
+
+def _mixed_joint_logdensity(model, live, exists, i, j, x, y):
+    """The joint log density of ranks i and j given that both exist: each count's (``live``:
+    (n, P(n)) for n >= j, ``exists`` their total), mixed."""
+    parts = [math.log(w / exists) + os_.joint_logdensity(model, n, i, j, x, y) for n, w in live]
+    return special.logsumexp(np.stack(np.broadcast_arrays(*parts)), axis=0) if len(parts) > 1 else parts[0]
+
+
 def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     """Joint density of two ranks on a grid (with its mass) or at given points."""
     from . import mixing
@@ -184,31 +209,12 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
         raise ParameterError("ranks.1", f"rank {j} exceeds the number of bidders ({count.counts[-1]})")
     live = [(n, w) for n, w in zip(count.counts, count.weights) if n >= j]
     exists = sum(w for _, w in live)
-
-    def log_density(x, y):
-        """The joint log density given that both ranks exist: each count's, mixed."""
-        parts = [math.log(w / exists) + os_.joint_logdensity(model, n, i, j, x, y) for n, w in live]
-        return special.logsumexp(np.stack(np.broadcast_arrays(*parts)), axis=0) if len(parts) > 1 else parts[0]
+    log_density = functools.partial(_mixed_joint_logdensity, model, live, exists, i, j)
     if model.discrete:
         raise ParameterError("smoothing", "a step (smoothing: none) empirical model has no density; use smoothing: kernel")
+    head = {"bidders": bidders, **({} if count.certain else {"probability_exists": finite(exists)}), "ranks": [i, j]}
     if points is not None:
-        hx = np.array([p[0] for p in points], float)
-        ly = np.array([p[1] for p in points], float)
-        d = np.empty(len(hx))
-        for start in range(0, len(hx), _CHUNK):  # a bounded working set, and a budget check per chunk
-            budget.check()
-            part = slice(start, start + _CHUNK)
-            with np.errstate(over="ignore"):
-                d[part] = np.exp(log_density(hx[part], ly[part]))
-        warnings = []
-        _overflow_note(d, warnings)
-        return audit.joint_density({
-            "bidders": bidders,
-            **({} if count.certain else {"probability_exists": finite(exists)}),
-            "ranks": [i, j],
-            "points": [{"higher": float(a), "lower": float(b), "density": finite(c)} for a, b, c in zip(hx, ly, d)],
-            "warnings": warnings,
-        })
+        return audit.joint_density({**head, **_density_at_points(log_density, points)})
     lo = max(float(os_.rank_quantiles(model, live[0][0], j, [5e-4])[0]), model.lower)
     hi = min(float(os_.rank_quantiles(model, live[-1][0], i, [1 - 5e-4])[0]), model.upper)
     if not (math.isfinite(lo) and math.isfinite(hi)):
@@ -227,9 +233,7 @@ def joint_density(model, bidders, ranks=(1, 2), grid_points=61, points=None):
     elif abs(mass - 1.0) > 0.05:
         warnings.append(f"the grid holds {mass:.3f} of the probability; the density may be too sharp for {grid_points} grid points")
     return audit.joint_density({
-        "bidders": bidders,
-        **({} if count.certain else {"probability_exists": finite(exists)}),
-        "ranks": [i, j],
+        **head,
         "higher": finite_list(axis),
         "lower": finite_list(axis),
         "density": [finite_list(row) for row in dens],

@@ -286,7 +286,7 @@ def build_bidders(value):
     if not isinstance(value, dict):
         return StrictInteger(minimum=1, maximum="bidders").deserialize(value)
     kind = value.get("distribution")
-    if kind not in _COUNTS:
+    if not isinstance(kind, str) or kind not in _COUNTS:
         raise ValidationError({"distribution": [f"Must be one of: {', '.join(_COUNTS)} (or give an integer)."]})
     d = _COUNTS[kind].load(value)
     if kind == "entry":
