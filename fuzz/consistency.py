@@ -218,6 +218,21 @@ def model_scale(model):
     return max((abs(x) for x in (lo, hi) if math.isfinite(x)), default=0.0)
 
 
+def count_of(bidders):
+    """(the most bidders there can be, whether a lone bidder can take part) of a request's
+    ``bidders``: an integer, a distribution object (a table's largest count, a binomial's or
+    costly entry's potential, else unbounded), or a sweep's CSV label of one (unbounded)."""
+    if isinstance(bidders, (int, float)) and not isinstance(bidders, bool):
+        return int(bidders), int(bidders) == 1
+    if isinstance(bidders, dict):
+        if bidders.get("distribution") == "table":
+            counts = [row.get("bidders", 0) for row in bidders.get("probabilities") or [] if isinstance(row, dict)]
+            return max(counts, default=0), 1 in counts
+        if bidders.get("distribution") in ("binomial", "entry") and isinstance(bidders.get("potential"), int):
+            return bidders["potential"], True
+    return math.inf, True
+
+
 def top_bound(model, n):
     """Upper bound on E[highest of n] for values >= 0, or inf: the smaller of
     mean + sd (n - 1) / sqrt(2n - 1) (Hartley and David 1954) and n mean (the highest of
@@ -226,6 +241,8 @@ def top_bound(model, n):
     if got is None:
         return INF
     mean, sd = got
+    if not math.isfinite(n):
+        return math.inf
     bound = min(mean + sd * (n - 1) / math.sqrt(2 * n - 1), n * mean)
     return bound if math.isfinite(bound) else INF
 
@@ -296,7 +313,7 @@ def top_values(req, ans):
     """Ranks in order, inside the support; the highest below the Hartley-David bound."""
     f = Findings("/v1/top-values: ")
     model, direction, (lo, hi) = _case(req)
-    n = int(req["bidders"])
+    n = count_of(req["bidders"])[0]
     results = sorted(ans.get("results", []), key=lambda r: r["rank"])
     if direction == "reverse":  # costs, ranks from the lowest: judged as the values X = -C, ranks from the highest
         lo, hi, results = -hi, -lo, [_mirrored(r) for r in results]
@@ -317,8 +334,9 @@ def top_values(req, ans):
             bound = top_bound(model, n)
             f.need(mean <= bound + _tol(bound, mean), ("mean", "rank 1"),
                    f"rank 1 mean {mean!r} exceeds {bound!r}, the bound on E[highest of {n}] from the model's mean and sd")
-    _nonincreasing_means(f, results, means, tol)
-    _quantiles_by_rank(f, results, tol)
+    if isinstance(req["bidders"], int):  # under an uncertain count each rank is given that it exists: no order between them
+        _nonincreasing_means(f, results, means, tol)
+        _quantiles_by_rank(f, results, tol)
     gap = _num(ans.get("expected_gap"))
     f.need(gap is None or gap >= -tol, ("expected_gap",), f"expected_gap = {gap!r} is negative")
     return f.unflagged(ans.get("warnings"))
@@ -403,7 +421,7 @@ class Auction:
 
     def __init__(self, req, bidders=None, reserve=None):
         self.model, self.direction, (self.lo, self.hi) = _case(req)
-        self.n = int(bidders if bidders is not None else req["bidders"])
+        self.n, lone = count_of(bidders if bidders is not None else req["bidders"])
         self.reserve = _num(reserve if reserve is not None else req.get("reserve"))
         mean_k, sd_k, p_k, q_k, self.word = NAMES[self.direction]
         self.keys = {"mean": mean_k, "sd": sd_k, "p": p_k, "q": q_k}
@@ -418,6 +436,8 @@ class Auction:
         self.never = self.low_end >= self.high_end
         if self.n == 1 and self.reserve is not None:  # a lone bidder pays the reserve itself, inside the support or not
             self.low_end = self.high_end = self.reserve
+        elif lone and self.reserve is not None:  # an uncertain count: a lone bidder may pay the reserve
+            self.low_end, self.high_end = min(self.low_end, self.reserve), max(self.high_end, self.reserve)
         self.scale = model_scale(self.model)
 
 
@@ -495,7 +515,7 @@ def sweep(req, ans):
         auc = Auction(req, bidders=cells["bidders"], reserve=cells["reserve"])
         rule = str(cells["rule"])
         auction_figures(f, auc, cells, f"{rule} at bidders {cells['bidders']}, reserve {cells['reserve']!r}")
-        if auc.keys["p"] in cells:
+        if auc.keys["p"] in cells and isinstance(cells["bidders"], (int, float)):  # a count's distribution has no order
             p_cells.setdefault(rule, {})[(int(cells["bidders"]), float(cells["reserve"]))] = _num(cells[auc.keys["p"]])
     forward = _case(req)[1] == "forward"
     for rule, table in p_cells.items():
@@ -649,7 +669,8 @@ def query_case(q):
         else:
             model[k] = _query_number(v, decimal)
     side = "bidder_costs" if q.get("direction") == "reverse" else "bidder_values"
-    body = {side: model, "bidders": _query_number(q.get("bidders"), decimal) or 1}
+    body = {side: model, "bidders": {"distribution": q["bidders_distribution"]} if "bidders_distribution" in q
+            else _query_number(q.get("bidders"), decimal) or 1}
     for k in ("reserve", "seller_value", "buyer_value"):
         if k in q:
             body[k] = _query_number(q[k], decimal)
@@ -695,7 +716,7 @@ def csv_table(text, decimal=".", separator=","):
             elif cell == "":
                 cells.append(None)
             elif name == "bidders":
-                cells.append(int(cell))
+                cells.append(int(cell) if cell.isdigit() else cell)  # a count's distribution is a label
             else:
                 x = float(cell.replace(",", ".") if decimal == "," else cell)
                 if not math.isfinite(x):
