@@ -315,9 +315,8 @@ class _Weighted:
         self.one_less_h = -(w_arr @ np.expm1(-np.multiply.outer(n_arr, s.ravel()))).reshape(s.shape)  # 1 - H, its digits kept
         s_r = auc.s_r
         self.h_r = float(count.highest_cdf_s(s_r))
-        omu_r = -math.expm1(-s_r) if math.isfinite(s_r) else 1.0
-        k2_r = self.h_r + omu_r * float(count.highest_density_s(s_r))
-        self.lone_mass = dict(zip(count.counts, count.weights)).get(1, 0.0) * omu_r
+        k2_r = float(auc._second_cdf_s(np.array(s_r)))
+        self.lone_mass = auc.lone_buys
         self.atom = max(k2_r - self.h_r - self.lone_mass, 0.0)  # n >= 2, X2 below the floor, X1 above: the floor is paid
         self.top = self.integral(self.values * self.hp)  # E[X1; sale]
 
@@ -525,15 +524,9 @@ def second_price_quantiles(auc, ps):
     """Quantiles of the second-price revenue under an uncertain count: on a sale the price
     is max(X2, r) with P(X2 <= x) = H(u) + (1 - u) H'(u), u = F(x) (a missing second value
     counts as below every x), a lone bidder paying the reserve itself."""
-    count = auc.bidders
-    h_r = float(count.highest_cdf_s(auc.s_r))  # P(no sale): no value beats the floor, or no bidder
-    p_one = dict(zip(count.counts, count.weights)).get(1, 0.0) * (1.0 - auc.f_r)
-    lone_below = auc.lone_price < auc.floor
-
-    def second_cdf_s(s):
-        return count.highest_cdf_s(s) - np.expm1(-s) * count.highest_density_s(s)
-
-    at_floor = float(second_cdf_s(np.array(auc.s_r))) - h_r if math.isfinite(auc.s_r) else 0.0
+    h_r = float(auc.bidders.highest_cdf_s(auc.s_r))  # P(no sale): no value beats the floor, or no bidder
+    p_one, lone_below = auc.lone_buys, auc.lone_price < auc.floor
+    at_floor = float(auc._second_cdf_s(np.array(auc.s_r))) - h_r if math.isfinite(auc.s_r) else 0.0
 
     def sale_quantile(q):
         q = np.asarray(q, float)
@@ -542,7 +535,7 @@ def second_price_quantiles(auc, ps):
             out = np.where(q <= p_one, auc.lone_price, out)
         rest = q > at_floor
         if rest.any():
-            s = _solve_s(q[rest] + h_r, 0.0, auc.s_r, second_cdf_s, auc._second_slope_s)
+            s = _solve_s(q[rest] + h_r, 0.0, auc.s_r, auc._second_cdf_s, auc._second_slope_s)
             out[rest] = _value_at_s(auc.model, s)
         return out
 
