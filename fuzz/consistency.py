@@ -496,7 +496,8 @@ def revenue(req, ans):
         auction_figures(f, auc, fig, fig.get("rule", "?"), err)
         means.append(_num(fig.get(auc.keys["mean"])))
     known = [m for m in means if m is not None]
-    if len(known) > 1:
+    risk_averse = isinstance(req.get("risk_aversion"), dict) and (_num(req["risk_aversion"].get("crra")) or 0.0) > 0.0
+    if len(known) > 1 and not risk_averse:  # revenue equivalence holds for risk-neutral bidders only
         spread = max(known) - min(known)
         allowed = REL_EQUIVALENCE * _scale(*known, auc.scale) + 10 * err + 1e-300
         f.need(spread <= allowed, (auc.keys["mean"], "revenue_equivalence") + tuple(RULES),

@@ -311,3 +311,23 @@ def test_one_pass_agrees_with_count_by_count(model, count):
         for rule in rules:
             for key in ("expected_revenue", "revenue_sd", "expected_winner_surplus", "expected_bidder_surplus", "efficiency"):
                 assert fast[rule][key] == pytest.approx(slow[rule][key], rel=1e-8), (rule, key, r)
+
+
+@pytest.mark.parametrize("path,body,field", [
+    # found by the schema fuzzer, each a 500 before
+    ("/v1/revenue", {"bidder_costs": {"family": "normal", "sd": 1e-300, "mean": 0.0},
+                     "bidders": {"distribution": "entry", "entry_cost": 0.0, "potential": 1}}, "bidders.distribution"),
+    ("/v1/top-values", {"bidder_costs": {"family": "normal", "mean": 0.0, "sd": 1.0},
+                        "bidders": {"distribution": "entry", "entry_cost": 0.0, "potential": 3}}, "bidders.distribution"),
+])
+def test_costly_entry_without_a_floor_is_named(client, path, body, field):
+    r = client.post(path, json=body)
+    assert r.status_code == 422 and field in [e["field"] for e in r.get_json()["errors"]]
+
+
+def test_a_binomial_count_at_an_extreme_entry_probability():
+    # q * N below the tails' 5e-17: nobody for certain (scipy's binomial pmf overflows there); likewise everyone.
+    assert Bidders.binomial(219, 2.2250738585072014e-308).counts == (0,)
+    assert Bidders.binomial(219, 1.0 - 1e-19).counts == (219,)
+    rep = reports.revenue_report(U, "forward", Bidders.binomial(219, 1e-300), None, 0.0, rules=["second_price"])
+    assert rep["results"][0]["probability_of_sale"] == 0.0

@@ -79,6 +79,9 @@ class Bidders:
         spec = spec or {"distribution": "binomial", "potential": potential, "entry_probability": entry_probability}
         if q <= 0.0 or q >= 1.0:
             return cls((0 if q <= 0.0 else int(potential),), (1.0,), spec, 0.0, entry)
+        if potential * q < TAIL or potential * (1.0 - q) < TAIL:  # one count holds all but the tail (and scipy's
+            nobody = potential * q < TAIL                          # pmf overflows at such q)
+            return cls((0 if nobody else int(potential),), (1.0,), spec, potential * (q if nobody else 1.0 - q), entry)
         return cls._tails_cut(stats.binom(potential, q), potential, spec, entry)
 
     @classmethod

@@ -673,7 +673,14 @@ def entry_count(model, potential, cost, reserve, spec):
     sum_k C(N-1, k) q^k (1-q)^(N-1-k) u(k + 1) = c; everyone enters where u(N) >= c, nobody
     where u(1) <= c. Entrants do not learn how many entered; under risk-neutral private
     values their expected surplus is the same either way."""
+    lone = ForwardAuction(model, 1, reserve, 0.0)
+    if lone.p_sale > 0.0 and not math.isfinite(lone.lone_price):
+        raise ParameterError("bidders.distribution", "costly entry needs a reserve, or a value model bounded below: a lone "
+                                                     "entrant's price would be the bottom of an unbounded one")
     u = surpluses_each(model, potential, reserve)
+    if not np.all(np.isfinite(u)):
+        raise ParameterError("bidders.entry_cost", "an entrant's expected surplus is beyond double precision for this value "
+                                                   "model, so no entry probability can be found")
     k = np.arange(potential)
 
     def gain(q):
