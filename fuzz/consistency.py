@@ -433,6 +433,8 @@ class Auction:
             self.low_end = self.lo
             self.high_end = self.hi if self.reserve is None else min(self.reserve, self.hi)
             self.sure = self.reserve is None or self.reserve >= self.hi
+        if not isinstance(bidders if bidders is not None else req["bidders"], (int, float)):
+            self.sure = False  # a count's distribution can hold no bidder at all: no sale for certain then
         self.never = self.low_end >= self.high_end
         if self.n == 1 and self.reserve is not None:  # a lone bidder pays the reserve itself, inside the support or not
             self.low_end = self.high_end = self.reserve
