@@ -247,7 +247,7 @@ def mixed_figures(auc, rules, quantiles):
         f = got[rule]
         pricing = R.get(rule).pricing
         if pricing is not R.SECOND:
-            f["revenue_sd"], sd_err = bid_revenue_sd(auc, pricing, f["expected_revenue"])
+            f["revenue_sd"], sd_err = bid_revenue_sd(auc, pricing)
             f["_err"] = max(f["_err"], sd_err)
         if pricing.name not in shared:
             shared[pricing.name] = (second_price_quantiles(auc, quantiles) if pricing is R.SECOND
@@ -400,7 +400,7 @@ def count_by_count(auc, rules, quantiles):
                     sd = _mix_moments([(w, f["expected_revenue"], f["revenue_sd"]) for w, f in rows] + [(p_none, 0.0, 0.0)])[1]
                 qs = second_price_quantiles(auc, quantiles)
             elif price_moments_exist(auc, rule):
-                sd, sd_err = bid_revenue_sd(auc, pricing, mean)
+                sd, sd_err = bid_revenue_sd(auc, pricing)
                 err = max(err, sd_err)
                 qs = None if pricing is R.ALL_PAY else bid_price_quantiles(auc, quantiles)
         winner = _mixed(rows, "expected_winner_surplus")
@@ -438,13 +438,12 @@ def price_moments_exist(auc, rule):
     return all(price.price_moment_exists(auc.model, n, rule, 2, auc.floor) for n, _, _ in auc.weighted())
 
 
-def bid_revenue_sd(auc, pricing, mean=None):
+def bid_revenue_sd(auc, pricing):
     """(sd, its error) of the revenue under a bid pricing, with the mixed bids, each taken about
     its own mean on the same nodes so that no digit is lost to a difference of squares: first
     price, E[(R - m)^2] = int (b - m)^2 H'(F) dF over a sale + P(no sale) m^2, m = int b H'(F) dF;
     all-pay, the sum of N bids a = G b: E[N] Var(a) + Var(N) E[a]^2 (a compound sum's variance),
-    Var(a) about E[a] alike (a = 0 below the floor). ``mean`` is not used: the pricing's own
-    nodes give the mean the spread is taken about."""
+    Var(a) about E[a] alike (a = 0 below the floor)."""
     q, bids, hp = auc.single_quadrature(2)
     if not q.panels:
         return 0.0, 0.0
@@ -539,7 +538,7 @@ def second_price_quantiles(auc, ps):
             out[rest] = _value_at_s(auc.model, s)
         return out
 
-    return price._with_no_sale(auc, ps, sale_quantile, lambda: _cdf_at_zero(auc, sale_quantile))
+    return price.with_no_sale(auc, ps, sale_quantile, lambda: price.sale_mass_below_zero(auc.p_sale, sale_quantile))
 
 
 def bid_price_quantiles(auc, ps):
@@ -553,16 +552,7 @@ def bid_price_quantiles(auc, ps):
                      lambda e: -np.exp(-e) * count.highest_density_s(e))
         return auc.bids_at_s(s)
 
-    return price._with_no_sale(auc, ps, sale_quantile, lambda: _cdf_at_zero(auc, sale_quantile))
-
-
-def _cdf_at_zero(auc, sale_quantile):
-    """The sale mass below a price of 0, by bisection on the increasing sale quantile."""
-    lo, hi = 0.0, auc.p_sale
-    for _ in range(60):
-        mid = 0.5 * (lo + hi)
-        lo, hi = (mid, hi) if float(sale_quantile(np.array([mid]))[0]) < 0.0 else (lo, mid)
-    return lo
+    return price.with_no_sale(auc, ps, sale_quantile, lambda: price.sale_mass_below_zero(auc.p_sale, sale_quantile))
 
 
 def mixed_bids(auc, pricing, v):

@@ -57,7 +57,7 @@ def _price_stats_second(auc):
     return sd, _sd_error(sd, c, auc.p_sale * err / mass + os_.ROUNDING * (sd / c) ** 2)
 
 
-def _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
+def with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero):
     """Quantiles of revenue = price on a sale, 0 when unsold (prob p0).
 
     ``sale_quantile(q)`` is the price at cumulative sale mass q in (0, P(sale)];
@@ -93,7 +93,7 @@ def _price_quantiles_second(auc, ps):
     def sale_cdf_at_zero():
         return float(os_.rank_cdf(m, n, 2, np.array(0.0))) - p0
 
-    return _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero)
+    return with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero)
 
 
 def _bid_price_stats(auc):
@@ -122,14 +122,16 @@ def bid_price_quantiles(auc, ps):
         s_q = -np.log(np.minimum(q + p0, 1.0)) / n
         return auc.bids.at_s(np.minimum(s_q, auc.s_r))
 
-    def sale_cdf_at_zero():
-        lo, hi = 0.0, auc.p_sale
-        for _ in range(60):  # bisection on the increasing sale-price quantile
-            mid = 0.5 * (lo + hi)
-            lo, hi = (mid, hi) if float(sale_quantile(np.array([mid]))[0]) < 0.0 else (lo, mid)
-        return lo
+    return with_no_sale(auc, ps, sale_quantile, lambda: sale_mass_below_zero(auc.p_sale, sale_quantile))
 
-    return _with_no_sale(auc, ps, sale_quantile, sale_cdf_at_zero)
+
+def sale_mass_below_zero(p_sale, sale_quantile):
+    """The sale mass below a price of 0, by bisection on the increasing sale quantile over (0, p_sale]."""
+    lo, hi = 0.0, p_sale
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if float(sale_quantile(np.array([mid]))[0]) < 0.0 else (lo, mid)
+    return lo
 
 
 def all_pay_stats(auc):
