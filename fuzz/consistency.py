@@ -467,7 +467,11 @@ def auction_figures(f, auc, fig, rule, err=0.0):
         bound = top_bound(auc.model, auc.n)
         f.need(mean <= bound + _tol(bound, mean), names, f"{rule}: {k['mean']} {mean!r} above {bound!r}, the bound on "
                                                           f"the mean of the highest of {auc.n} values from the model's mean and sd")
-    for key in ("expected_winner_surplus", "expected_bidder_surplus"):
+    # an all-pay winner's bid G b exceeds a negative value when b does not (a negative forward floor: costs above 0)
+    forward_floor = auc.low_end if auc.direction == "forward" else -auc.high_end
+    keys = ("expected_bidder_surplus",) if rule == "all_pay" and not forward_floor >= 0 else \
+        ("expected_winner_surplus", "expected_bidder_surplus")
+    for key in keys:
         s = _num(fig.get(key))
         f.need(s is None or s >= -tol, (key, rule), f"{rule}: {key} = {s!r} is negative: the {word} exceeds the mean of the "
                                                     f"{'highest value' if auc.direction == 'forward' else 'lowest cost'} over sales")

@@ -125,7 +125,7 @@ class MixedAuction:
         (``_bids_between``), else each fixed-count bid weighted by pi_k F^k, in logs so that no
         weight underflows before the others."""
         s = np.minimum(np.asarray(s, float), self.s_r)
-        if self._single is not None:
+        if self._single is not None and not self.steep(self._single[1]):
             q = self._single[1]
             t = np.log(np.where(s > 0.0, s, 1.0))
             inside = (s > 0.0) & (t >= q.a[0]) & (t <= q.b[-1]) & (s < self.s_r)
@@ -163,9 +163,23 @@ class MixedAuction:
         if self._single is None or self._single[0] < power:
             q = os_.filled_rank_quadrature(self.model, 1, 1, power=power, s_cut=self.s_r, fine=True, checked=True)
             s = np.exp(q.stacked()[0])  # the rule for one value runs in t = log s
-            self._single = (power, q, self._bids_on(q, s) if q.panels else np.empty((0, q.w.shape[1])),
-                            self.bidders.highest_density_s(s))
+            hp = self.bidders.highest_density_s(s)
+            if not q.panels:
+                bids = np.empty((0, q.w.shape[1]))
+            elif self.steep(q):  # only where the highest value, or a bidder's chance to win, still weighs
+                bids = np.full(s.shape, self.floor)
+                live = (hp > 1e-30 * np.max(hp)) | (self.win_chance(s) > 1e-30)
+                bids[live] = self._counts_bids(s[live])
+            else:
+                bids = self._bids_on(q, s)
+            self._single = (power, q, bids, hp)
         return self._single[1:]
+
+    def steep(self, q):
+        """Whether G(u) = sum_k pi_k u^k falls below e^-300 within the reach of one value's
+        quadrature ``q`` (every count large): its panels cannot follow so steep a G, and the mixed
+        bids there come from every count's own bids instead (``_counts_bids``)."""
+        return min(self.bidders.rival_weights) * math.exp(q.b[-1]) > 300.0
 
     def _bid_parts(self, q, s):
         """What the mixed bids on one value's quadrature ``q`` are built from, by
@@ -264,8 +278,9 @@ def one_pass(auc, rules, warnings):
     weighted by the count's generating function H(u) = E[u^N]: the highest value's density
     over one value's is H'(u), the second-highest's (1 - u) H''(u), the highest rival's G(u) =
     H'(u)/E[N]. Its cost grows little with the counts kept. None (count by count instead)
-    where a value's variance does not exist, the floor is not finite, or the reserve is beyond
-    the nodes' reach.
+    where a value's variance does not exist, the floor is not finite, the reserve is beyond
+    the nodes' reach, or G underflows within it (every count large: a binomial count of many
+    potential bidders, a Poisson count of a large mean).
 
     Routes (forward revenue; a lone bidder, who knows the count's distribution only, pays the
     reserve under a truthful rule and its bid under a bid-priced one):
@@ -278,8 +293,11 @@ def one_pass(auc, rules, warnings):
     m = auc.model
     if not (m.upper_tail_index > 2.0 and math.isfinite(auc.floor)) or 0.0 < auc.s_r < FAR_RESERVE:
         return None
+    q = auc.single_quadrature(2)[0]
+    if not q.panels or auc.steep(q):  # the descending route's G'/G cannot be followed there: count by count
+        return None
     weighted = _Weighted(auc)
-    if not weighted.q.panels or (weighted.lone_mass > 0.0 and not math.isfinite(auc.lone_price)):
+    if weighted.lone_mass > 0.0 and not math.isfinite(auc.lone_price):
         return None
     out = {}
     for rule in rules:
