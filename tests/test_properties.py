@@ -916,7 +916,9 @@ def test_pareto_figures_exist_by_tail_index(threshold, side, d, n, xm):
         r = next(x for x in report["results"] if x["rule"] == rule)
         assert r["expected_revenue"] == pytest.approx(m2, rel=1e-10), (rule, r["expected_revenue"], m2)
         has_sd = (a > 1.0) if rule in ("second_price", "ascending") else (a > 2.0 / 3.0)
-        assert (r["revenue_sd"] is not None) == has_sd, (rule, a, r["revenue_sd"])
+        # just above 2/3 a bid-priced sd exists but lies mostly beyond 1e300: null, with the warning that says so
+        beyond = f"{rule}: the sd is null: the moment exists, but more than 1e-12 of it comes from values beyond" in warned
+        assert (r["revenue_sd"] is not None) == has_sd or (has_sd and beyond), (rule, a, r["revenue_sd"])
         if not has_sd:
             assert f"{rule}: the sd is null" in warned
         elif rule in ("second_price", "ascending"):
