@@ -640,11 +640,11 @@ def entry_payoff(model, entry, reserve, v0):
     the entry count, plus v0 P(no sale), all on one value's quadrature (``surpluses_each``); the
     optimum's own figures are then computed count by count."""
     count = resolve(entry, model, reserve)
-    if count.p_sale(ForwardAuction(model, 1, reserve, 0.0).s_r) == 0.0:
+    auc = ForwardAuction(model, 1, reserve, 0.0)
+    if count.p_sale(auc.s_r) == 0.0:
         return v0
     u = surpluses_each(model, entry.potential, reserve)
     kept = sum(w * n * u[n - 1] for n, w in zip(count.counts, count.weights) if n >= 1)
-    auc = ForwardAuction(model, 1, reserve, 0.0)
     q = os_.filled_rank_quadrature(model, 1, 1, power=1, s_cut=auc.s_r, fine=True, checked=True)
     top = q.integrate_nodes(q.values * count.highest_density_s(np.exp(q.stacked()[0])))[0] if q.panels else 0.0
     p_sale = count.p_sale(auc.s_r)
