@@ -31,6 +31,7 @@ class Caps:
 
     bidders: int = 1_000_000
     bidder_counts: int = 400
+    groups: int = 6
     draws: int = 1_000_000
     ranks: int = 50
     quantiles: int = 200
@@ -67,7 +68,7 @@ class Caps:
 
 #: Each cap's environment variable (and create_app config key).
 ENV_NAMES = {
-    "bidders": "BIDSTATS_MAX_BIDDERS", "bidder_counts": "BIDSTATS_MAX_BIDDER_COUNTS", "draws": "BIDSTATS_MAX_DRAWS", "ranks": "BIDSTATS_MAX_RANKS", "quantiles": "BIDSTATS_MAX_QUANTILES",
+    "bidders": "BIDSTATS_MAX_BIDDERS", "bidder_counts": "BIDSTATS_MAX_BIDDER_COUNTS", "groups": "BIDSTATS_MAX_GROUPS", "draws": "BIDSTATS_MAX_DRAWS", "ranks": "BIDSTATS_MAX_RANKS", "quantiles": "BIDSTATS_MAX_QUANTILES",
     "curve_points": "BIDSTATS_MAX_CURVE_POINTS", "grid_points": "BIDSTATS_MAX_GRID_POINTS", "points": "BIDSTATS_MAX_POINTS",
     "sample": "BIDSTATS_MAX_SAMPLE", "components": "BIDSTATS_MAX_COMPONENTS", "body_bytes": "BIDSTATS_MAX_BODY_BYTES",
     "batch_items": "BIDSTATS_MAX_BATCH_ITEMS", "sweep_rows": "BIDSTATS_MAX_SWEEP_ROWS", "sweep_axis": "BIDSTATS_MAX_SWEEP_AXIS",

@@ -11,7 +11,7 @@ from marshmallow import Schema, ValidationError, fields, validates_schema
 from ..core import reports, reserve
 from ..core import rules as core_rules
 from .fields import WORK_PER_DRAW, BiddersField, MonteCarlo, count_work, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
-from . import admission, wording
+from . import admission, groups, wording
 from .io import core_call, load, register_posts
 
 bp = Blueprint("auctions", __name__)
@@ -97,6 +97,8 @@ class ReservePriceRequest(_AuctionRequest):
 
 
 def revenue_handler(body):
+    if groups.asks_for_groups(body):
+        return groups.revenue_handler(body)
     req = load(RevenueRequest, body)
     rules = len(req["rules"] or core_rules.names())
     draws = req["monte_carlo"]["draws"] if req["monte_carlo"] else 0
@@ -111,6 +113,8 @@ def revenue_handler(body):
 
 
 def bid_strategy_handler(body):
+    if groups.asks_for_groups(body):
+        return groups.bids_handler(body)
     req = load(BidStrategyRequest, body)
     count = len(req["at"]) if req["at"] is not None else req["points"] or 51
     admission.admit(work=_model_work(body) * (1 + count / 100) * count_work(req["bidders"]), numbers=2 * count,

@@ -21,6 +21,9 @@ _REVERSE_NAMES = {
     "probability_of_sale_at_optimum": "probability_of_award_at_optimum",
     "values": "costs",
     "bidder_values": "bidder_costs",
+    "probability_highest_value_wins": "probability_lowest_cost_wins",
+    "expected_value_lost": "expected_cost_excess",
+    "top_evaluated_bid": "lowest_evaluated_bid",
 }
 NAMES = {"forward": {}, "reverse": _REVERSE_NAMES}
 #: The caller's names back to the core's, per direction (a sweep's metrics).
@@ -231,3 +234,46 @@ def fits(report):
     if "homogenization" in report:
         out["homogenization"] = report["homogenization"]
     return out
+
+
+#: What figures for bidder groups assume, in the caller's direction.
+GROUP_ASSUMPTIONS = {
+    d: [f"independent private {w}s; each group's {w}s drawn from its own model, which every bidder knows",
+        "risk-neutral bidders in equilibrium: truthful bidding where it is dominant (second price, ascending), the "
+        "asymmetric first-price equilibrium otherwise (alike within a group)",
+        f"a preference ranks a bid b as {'(1 + preference) b' if d == 'forward' else '(1 - preference) b'}; the "
+        f"{'reserve' if d == 'forward' else 'maximum price'} is compared with that evaluated bid",
+        "a single indivisible item or contract, no entry costs, no collusion"]
+    for d, w in (("forward", "value"), ("reverse", "cost"))
+}
+
+
+def _group_finite(value):
+    """Floats made JSON-safe at any depth (None for a NaN or an infinity)."""
+    from ..core.topvalues import finite
+
+    if isinstance(value, dict):
+        return {k: _group_finite(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_group_finite(v) for v in value]
+    return finite(value) if isinstance(value, float) else value
+
+
+def group_revenue(report, key):
+    """/v1/revenue's answer for bidder groups, named for its direction, with the assumptions."""
+    d = report["direction"]
+    out = {"direction": d, "assumptions": GROUP_ASSUMPTIONS[d], **_named(_group_finite(report), d)}
+    out["direction"] = d
+    return out
+
+
+def group_bids(report, key):
+    """/v1/bid-strategy's answer for bidder groups, with what the rule's bids mean."""
+    d = report["direction"]
+    out = _named(_group_finite(report), d)
+    rule = core_rules.get(report["rule"])
+    note = rule.note[d] if rule.pricing.truthful else (
+        "each group's equilibrium " + ("bid" if d == "forward" else "ask") + ", from the first-order conditions of the "
+        "asymmetric first-price auction solved as a boundary-value problem (Krishna 2009, ch. 4; Fibich and Gavish "
+        "2011); numerics.foc_residual is the largest residual of those conditions")
+    return {**out, "note": note, "assumptions": GROUP_ASSUMPTIONS[d]}

@@ -1,0 +1,245 @@
+"""The first-price equilibrium when bidders differ: groups of bidders, each with its own value
+model, solved as a boundary-value problem.
+
+In score space (a bid b ranked as m b, m the group's preference factor; see :mod:`groups`)
+group i's inverse bid function phi_i(b), the value that bids b, solves, with N bidders in all
+and n_k in group k,
+
+    phi_i'(b) = (F_i / f_i)(phi_i) [ (1/(N - 1)) sum_k n_k / (phi_k - b) - 1 / (phi_i - b) ],
+
+from phi_i(b0) = b0 at the floor b0 (the reserve, or the common bottom of the values) to
+phi_i(b_top) = omega_i, the top of group i's values, at one top bid b_top that is itself
+unknown (Griesmer, Levitan and Shubik 1967; Lebrun 1999; Krishna 2009, ch. 4). Shooting back
+from a guessed b_top is unstable (Fibich and Gavish 2011): errors grow like (b - b0)^-N towards
+the floor.
+
+Here the markdowns d_i = phi_i - b are Chebyshev series in a variable tau on [0, 1] that
+starts at the floor, with d_i = 0 there built in (d_i = L tau P_i(tau), L = b_top - b0, one
+more unknown); the first-order conditions, multiplied through by d_i so that the floor is not
+singular, are collocated at interior Chebyshev points together with the G top conditions. The
+floor is a singular point from which a (G - 1)-parameter family of solutions leaves (Marshall,
+Meurer, Richard and Stromquist 1994), so the system has G - 1 more equations than unknowns and
+is solved by Gauss-Newton least squares. Near the floor the markdowns grow like b - b0 where the
+values start there with a density, and like sqrt(b - b0) where a reserve cuts into them; then
+b - b0 runs as L tau^2, so that d_i stays smooth in tau. Near the top the markdowns are smooth
+where each group's density is positive at its top; the caller offers this solver only then.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numpy.polynomial import chebyshev as cheb
+
+from . import budget
+from .errors import ParameterError
+
+#: Collocation points per group, tried in turn until the residual of the first-order
+#: conditions between the nodes is below FOC_TOLERANCE.
+DEGREES = (24, 40, 64, 96)
+FOC_TOLERANCE = 1e-10
+
+
+class ScoreGroup:
+    """One group in score space: scores W = m X, X from ``model`` (a forward value model with
+    a top), ``count`` bidders."""
+
+    def __init__(self, model, count, multiplier):
+        self.model, self.count, self.m = model, int(count), float(multiplier)
+        self.lower, self.top = self.m * model.lower, self.m * model.upper
+
+    def cdf(self, w):
+        return self.model.cdf(np.asarray(w, float) / self.m)
+
+    def pdf(self, w):
+        return self.model.pdf(np.asarray(w, float) / self.m) / self.m
+
+    def inverse_hazard_low(self, w):
+        """F / f of the scores at w."""
+        f = self.pdf(w)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(f > 0.0, self.cdf(w) / f, 0.0)
+
+
+class AsymmetricBids:
+    """The first-price equilibrium of ``groups`` (:class:`ScoreGroup`) above the score floor
+    ``floor``, which every group's scores reach from at or below it."""
+
+    def __init__(self, groups, floor):
+        self.groups, self.b0 = groups, float(floor)
+        self.G = len(groups)
+        self.n = np.array([g.count for g in groups], float)
+        self.N = self.n.sum()
+        self.tops = np.array([g.top for g in groups])
+        self.q = 2 if any(float(g.cdf(self.b0)) > 0.0 for g in groups) else 1
+        self.scale = float(self.tops.max() - self.b0)
+        self.c, self.residual = None, math.inf
+        for m in DEGREES:
+            budget.check()
+            x = self._solve(m)
+            if x is not None:
+                self._set(m, x)
+                self.residual = self.foc_residual()
+                if self.residual < FOC_TOLERANCE:
+                    break
+        if self.c is None:
+            raise ParameterError("bidder_groups", "the first-price equilibrium of these groups was not found "
+                                                  "(the solver did not converge); ask for second price")
+
+    # --- the variable tau: b = b0 + L tau^q --------------------------------------------
+    def _basis(self, tau, m):
+        """Chebyshev values and tau-derivatives of T_0..T_{m-1}(2 tau - 1)."""
+        x = 2.0 * np.asarray(tau, float) - 1.0
+        V = cheb.chebvander(x, m - 1)
+        D = np.zeros_like(V)
+        eye = np.eye(m)
+        for k in range(1, m):
+            D[:, k] = 2.0 * cheb.chebval(x, cheb.chebder(eye[k]))
+        return V, D
+
+    #: Starting top bids, as shares of the way from the floor to the lowest top: first a
+    #: symmetric auction's (N - 1)/N, then nearer the top for groups far apart.
+    GUESSES = (None, 0.25, 0.8, 0.95, 0.99)
+
+    def _guess(self, m, share):
+        """Straight inverse bids meeting the tops at a top bid ``share`` of the way from the floor
+        to the lowest top (None: (N - 1)/N, as in a symmetric auction of uniform values)."""
+        L = float(np.min(self.tops - self.b0)) * ((self.N - 1.0) / self.N if share is None else share)
+        c = np.zeros((self.G, m))
+        c[:, 0] = (self.tops - self.b0 - L) / L
+        return np.concatenate([[L], c.ravel()])
+
+    def _equations(self, x, tau, V, D, V1, jac):
+        G, m = self.G, V.shape[1]
+        L, c = x[0], x[1:].reshape(G, m)
+        P, dP = c @ V.T, c @ D.T
+        g = tau**self.q
+        beta = self.q * tau ** (self.q - 1)  # d(b - b0)/dtau / L
+        d = L * tau * P
+        e = (P + tau * dP) / beta  # d d_i / db
+        phi = self.b0 + L * g + d
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            S = (self.n[:, None] / d).sum(0) / (self.N - 1.0)
+            rho = np.array([grp.inverse_hazard_low(p) for grp, p in zip(self.groups, phi)])
+            A = d * (1.0 + e) - rho * (d * S - 1.0)
+        top = (self.b0 + L * (1.0 + c @ V1) - self.tops) / self.scale
+        F = np.concatenate([(A / L).ravel(), top])
+        ok = bool(L > 0.0 and np.all(d > 0.0) and np.all(np.isfinite(F)))
+        if not jac:
+            return F, ok
+        h = 1e-7 * self.scale
+        with np.errstate(divide="ignore", invalid="ignore"):
+            drho = np.array([(grp.inverse_hazard_low(p + h) - grp.inverse_hazard_low(p - h)) / (2 * h)
+                             for grp, p in zip(self.groups, phi)])
+            dA_dd = (1.0 + e) - rho * (S - self.n[:, None] / ((self.N - 1.0) * d)) - drho * (d * S - 1.0)
+            cross = rho * d / (self.N - 1.0)  # times n_k / d_k^2 for group k
+        J = np.zeros((G * m + G, 1 + G * m))
+        dd_dc = (L * tau)[:, None] * V
+        de_dc = (V + tau[:, None] * D) / beta[:, None]
+        for i in range(G):
+            rows = slice(i * m, (i + 1) * m)
+            dA_dL = dA_dd[i] * tau * P[i] - drho[i] * (d[i] * S - 1.0) * g
+            for k in range(G):
+                cols = slice(1 + k * m, 1 + (k + 1) * m)
+                if k == i:
+                    J[rows, cols] = (dA_dd[i][:, None] * dd_dc + d[i][:, None] * de_dc) / L
+                else:
+                    w = cross[i] * self.n[k] / d[k] ** 2
+                    J[rows, cols] = w[:, None] * dd_dc / L
+                    dA_dL = dA_dL + w * tau * P[k]
+            J[rows, 0] = dA_dL / L - A[i] / L**2
+            J[G * m + i, 0] = (1.0 + c[i] @ V1) / self.scale
+            J[G * m + i, 1 + i * m: 1 + (i + 1) * m] = L * V1 / self.scale
+        return F, ok, J
+
+    def _solve(self, m):
+        tau = 0.5 - 0.5 * np.cos((np.arange(m) + 0.5) * np.pi / m)
+        V, D = self._basis(tau, m)
+        V1 = self._basis(np.array([1.0]), m)[0][0]
+        for start in ([self._warm(m)] if self.c is not None else [self._guess(m, g) for g in self.GUESSES]):
+            x = self._newton(start, tau, V, D, V1)
+            if x is not None:
+                return x
+        return None
+
+    def _newton(self, x, tau, V, D, V1):
+        F, ok = self._equations(x, tau, V, D, V1, jac=False)
+        if not ok:
+            return None
+        cost = float(F @ F)
+        for _ in range(60):
+            budget.check()
+            F, ok, J = self._equations(x, tau, V, D, V1, jac=True)
+            step = np.linalg.lstsq(J, -F, rcond=None)[0]
+            t = 1.0
+            while t > 1e-8:
+                trial = x + t * step
+                Fn, ok = self._equations(trial, tau, V, D, V1, jac=False)
+                cn = float(Fn @ Fn) if ok else math.inf
+                if cn < cost or cn < 1e-30:
+                    break
+                t *= 0.5
+            else:
+                break
+            small = np.max(np.abs(t * step)) <= 1e-14 * max(1.0, np.max(np.abs(x)))
+            x, cost = trial, cn
+            if small or cost < 1e-30:
+                break
+        return x if cost < 1e-16 else None
+
+    def _warm(self, m):
+        c = np.zeros((self.G, m))
+        c[:, : self.m] = self.c
+        return np.concatenate([[self.L], c.ravel()])
+
+    def _set(self, m, x):
+        self.m, self.L, self.c = m, float(x[0]), x[1:].reshape(self.G, m).copy()
+        self.top_bid = self.b0 + self.L
+
+    # --- the solution --------------------------------------------------------------------
+    def at_tau(self, tau):
+        """(b, phi (G x len), dphi/db) at tau."""
+        tau = np.asarray(tau, float)
+        V, D = self._basis(tau, self.m)
+        P, dP = self.c @ V.T, self.c @ D.T
+        b = self.b0 + self.L * tau**self.q
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dphi = 1.0 + (P + tau * dP) / (self.q * tau ** (self.q - 1))
+        return b, b + self.L * tau * P, dphi
+
+    def foc_residual(self, points=257):
+        """The largest relative residual of the first-order conditions between the nodes:
+        |d_i sum_k (n_k - [k = i]) x_k - 1|, x_k = phi_k' / (F_k / f_k)(phi_k) the rate at which
+        a higher bid raises the chance to beat a group-k rival; zero in equilibrium."""
+        tau = (np.arange(points) + 0.5) / points
+        b, phi, dphi = self.at_tau(tau)
+        d = phi - b
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rho = np.array([grp.inverse_hazard_low(p) for grp, p in zip(self.groups, phi)])
+            x = dphi / rho
+            total = (self.n[:, None] * x).sum(0)
+            r = d * (total[None, :] - x) - 1.0
+        r = r[np.isfinite(r)]
+        return float(np.max(np.abs(r))) if r.size else math.inf
+
+    def phi_at(self, tau):
+        """(b, phi (G x len)) at tau: the bids and each group's value bidding them."""
+        tau = np.asarray(tau, float)
+        P = self.c @ cheb.chebvander(2.0 * tau - 1.0, self.m - 1).T
+        b = self.b0 + self.L * tau**self.q
+        return b, b + self.L * tau * P
+
+    def tau_of_bid(self, b):
+        return np.clip((np.asarray(b, float) - self.b0) / self.L, 0.0, 1.0) ** (1.0 / self.q)
+
+    def bids(self, i, w):
+        """Group i's score bids at score values w in [floor, top]: phi_i inverted by bisection in tau."""
+        w = np.asarray(w, float)
+        lo, hi = np.zeros(w.shape), np.ones(w.shape)
+        for _ in range(60):
+            mid = 0.5 * (lo + hi)
+            _, phi = self.phi_at(mid.ravel())
+            below = phi[i].reshape(w.shape) < w
+            lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+        b, _ = self.phi_at(0.5 * (lo + hi).ravel())
+        return b.reshape(w.shape)
