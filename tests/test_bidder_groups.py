@@ -223,6 +223,9 @@ def test_http_groups_both_directions(client):
                         {"name": "b", "count": 1, "bidder_values": _U}], "rules": ["first_price"]}, "rules"),
     ({"bidder_groups": [{"name": "a", "count": 1, "bidder_values": _U}, {"name": "a", "count": 1, "bidder_values": _U}]},
      "bidder_groups.1.name"),
+    ({"bidder_groups": [{"name": "a", "count": 1, "bidder_values": _U},
+                        {"name": "b", "count": 1, "bidder_values": {"family": "pareto", "shape": 1.5, "minimum": 1}}]},
+     "bidder_groups.1.bidder_values"),
 ])
 def test_http_groups_bad_input(client, body, field):
     r = client.post("/v1/revenue", json=body)

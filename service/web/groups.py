@@ -44,6 +44,11 @@ class _GroupsRequest(Schema):
                 raise ValidationError({key: {i: {own: ["Missing data for required field."]}}})
             if g[own].discrete:
                 raise ValidationError({key: {i: {own: ["Bidder groups need a continuous model; use smoothing: kernel."]}}})
+            tail = g[own].upper_tail_index if key == "bidder_groups" else g[own].lower_tail_index
+            if not tail > 2.0:
+                raise ValidationError({key: {i: {own: ["Bidder groups need a model whose variance exists (a tail index "
+                                                       "above 2): the surpluses, spreads and values lost are integrals "
+                                                       "of it; give a lighter tail or truncate the model."]}}})
             if key == "cost_groups" and not g["preference"] < 1.0:
                 raise ValidationError({key: {i: {"preference": ["Must be below 1 in reverse (a bid b is ranked as "
                                                                 "(1 - preference) b)."]}}})
