@@ -123,7 +123,9 @@ def _simulate(auc, draws, seed, pricing):
         x = g.model.ppf(rng.random((draws, g.n)))
         bid = np.full(x.shape, np.nan)
         part = x * g.m >= (auc.floor if auc.floor is not None else -np.inf)
-        bid[part] = auc.bids(i, x[part], pricing)
+        # the computed bids on 20,001 values, read between them linearly (off by under 1e-8 here)
+        grid = np.linspace(max(g.model.lower, g.entry), g.model.upper, 20001)
+        bid[part] = np.interp(x[part], grid, auc.bids(i, grid, pricing))
         scores.append(np.where(part, bid * g.m, -np.inf))
         gid.append(np.full(x.shape, i))
     s = np.concatenate(scores, axis=1)
@@ -141,12 +143,21 @@ def _simulate(auc, draws, seed, pricing):
     return pays, np.where(sale, wg, -1)
 
 
+_SIMULATED = [
+    # one common top bid
+    ([Group("incumbents", 2, Uniform(0.0, 1.0), preference=0.1), Group("entrants", 1, Uniform(0.0, 1.5))], 0.2),
+    # the weaker group stops below the stronger group's top bid (two bidders in each)
+    ([Group("local", 2, Uniform(0.0, 1.0)), Group("national", 2, Uniform(0.0, 1.5))], None),
+    ([Group("small", 1, Uniform(0.0, 1.0), preference=0.1), Group("large", 3, Uniform(0.0, 1.5))], 0.2),
+]
+
+
 @pytest.mark.parametrize("pricing", [R.FIRST, R.SECOND])
-def test_seeded_simulation_of_the_equilibrium(pricing):
+@pytest.mark.parametrize("groups, reserve", _SIMULATED)
+def test_seeded_simulation_of_the_equilibrium(pricing, groups, reserve):
     """Seeded Monte Carlo (200,000 auctions, seed 17): revenue and each group's win chance
     within 4 standard errors of the computed figures (common practice, no source)."""
-    groups = [Group("incumbents", 2, Uniform(0.0, 1.0), preference=0.1), Group("entrants", 1, Uniform(0.0, 1.5))]
-    auc = GroupAuction(groups, "forward", 0.2, 0.0)
+    auc = GroupAuction(groups, "forward", reserve, 0.0)
     fig = auc.figures(pricing)
     pays, winner = _simulate(auc, 200_000, 17, pricing)
     se = pays.std() / math.sqrt(pays.size)
@@ -156,28 +167,33 @@ def test_seeded_simulation_of_the_equilibrium(pricing):
         assert abs((winner == i).mean() - p) < 4 * math.sqrt(p * (1 - p) / pays.size)
 
 
-def test_no_bidder_gains_by_deviating():
+@pytest.mark.parametrize("groups, reserve", [
+    ([Group("a", 2, Uniform(0.0, 1.0), preference=0.05), Group("b", 1, Uniform(0.0, 1.4))], None),
+    ([Group("a", 1, Uniform(0.0, 1.0)), Group("b", 1, Power(exponent=2.0, high=1.0)),
+      Group("c", 1, Power(exponent=0.5, high=1.0))], None),
+    ([Group("local", 2, Uniform(0.0, 1.0)), Group("national", 2, Uniform(0.0, 1.5))], None),
+    ([Group("small", 1, Uniform(0.0, 1.0), preference=0.1), Group("large", 3, Uniform(0.0, 1.5))], 0.2),
+])
+def test_no_bidder_gains_by_deviating(groups, reserve):
     """Best response: on a grid of values, no bid on a fine grid of deviations earns more than
-    1e-6 of the value scale above the computed bid (the definition of equilibrium)."""
-    groups = [Group("a", 2, Uniform(0.0, 1.0), preference=0.05), Group("b", 1, Uniform(0.0, 1.4))]
-    auc = GroupAuction(groups, "forward")
+    1e-6 of the value scale above the computed bid (the definition of equilibrium). Rivals'
+    bid distributions are read from their computed bids on a grid of 4,001 values."""
+    auc = GroupAuction(groups, "forward", reserve)
     eq = auc.first
-    taus = np.linspace(0.0, 1.0, 4001)
-    scores, phi = eq.phi_at(taus)
 
     def win(i, s):
-        tau = np.interp(s, scores, taus)
-        _, ph = eq.phi_at(tau)
         out = np.ones(np.shape(s))
         for k, h in enumerate(auc.groups):
-            out = out * h.cdf(ph[k] / h.m) ** (h.n - (k == i))
+            xs = np.linspace(max(h.model.lower, h.entry), h.model.upper, 4001)
+            bs = auc.bids(k, xs, R.FIRST) * h.m
+            out = out * np.interp(s, bs, h.cdf(xs), left=float(h.cdf(xs[0])), right=1.0) ** (h.n - (k == i))
         return out
 
     for i, g in enumerate(auc.groups):
         for x in np.linspace(max(g.entry, g.model.lower) + 0.05, g.model.upper, 9):
             b = auc.bids(i, np.array([x]), R.FIRST)[0]
             own = (x - b) * win(i, g.m * b)
-            dev = np.linspace(eq.b0, eq.top_bid, 2001) / g.m
+            dev = np.linspace(eq.b0, eq.top_bid, 3001) / g.m
             best = np.max((x - dev) * win(i, g.m * dev))
             assert best - own < 1e-6 * 2.0
 

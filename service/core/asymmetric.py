@@ -30,6 +30,7 @@ import math
 
 import numpy as np
 from numpy.polynomial import chebyshev as cheb
+from scipy import linalg
 
 from . import budget
 from .errors import ParameterError
@@ -38,6 +39,14 @@ from .errors import ParameterError
 #: conditions between the nodes is below FOC_TOLERANCE.
 DEGREES = (24, 40, 64, 96)
 FOC_TOLERANCE = 1e-10
+#: A least-squares solution is taken (and judged by its residual between the nodes) when the
+#: sum of squares of its collocation residuals is below this.
+ACCEPT_COST = 1e-10
+#: The largest residual of the first-order conditions between the nodes taken as a solution.
+ACCEPT_RESIDUAL = 1e-6
+#: At the fewest points a solution this close already tells which shape the equilibrium has.
+SHAPE_RESIDUAL = 1e-2
+_GL32 = np.polynomial.legendre.leggauss(32)
 
 
 class ScoreGroup:
@@ -74,17 +83,76 @@ class AsymmetricBids:
         self.q = 2 if any(float(g.cdf(self.b0)) > 0.0 for g in groups) else 1
         self.scale = float(self.tops.max() - self.b0)
         self.c, self.residual = None, math.inf
-        for m in DEGREES:
+        # Where each group's inverse bid ends at the top of the solved span: "top" (its top value,
+        # at the common top bid), "drop" (its top value with zero bid density: it stops bidding
+        # there while a stronger group of several bidders bids on alone) or "free".
+        self.ends, self.drop = ["top"] * self.G, None
+        modes = [None] + self._drop_candidates()
+        # The shape (which group, if any, stops first) is chosen at the fewest points, where a
+        # solve is cheap; the chosen shape is then refined; a shape not found there is tried whole.
+        for quick in (True, False):
+            for weak in modes:
+                self._mode(weak)
+                if self._search(DEGREES[:1], SHAPE_RESIDUAL) if quick else self._search(DEGREES):
+                    if quick:
+                        self._search(DEGREES)
+                    break
+            if self.c is not None:
+                break
+        if self.c is None:
+            raise ParameterError("bidder_groups", "the first-price equilibrium of these groups was not found (offered "
+                                                  "where every group bids up to one common top bid, or, with two "
+                                                  "groups, where the weaker stops below the stronger's top bid); ask "
+                                                  "for second price")
+        if self.drop is not None:
+            self._alone_setup()
+        self.top_bid = self._top_bid()
+
+    def _drop_candidates(self):
+        """With two groups, the one that may stop bidding first: each in turn whose rival group holds
+        several bidders (a lone rival above it would face no competition)."""
+        if self.G != 2:
+            return []
+        return [i for i in range(2) if self.n[1 - i] >= 2]
+
+    def _mode(self, weak):
+        """Set the shape: every group to the common top (weak None), or group ``weak`` stopping first."""
+        self.drop, self.c = weak, None
+        self.ends = ["top"] * self.G if weak is None else ["drop" if i == weak else "free" for i in range(self.G)]
+
+    def _search(self, degrees, accept=None):
+        """Solve with each number of points in turn (warm from the last) until the residual between
+        the nodes is small; keep the best solution that is an equilibrium (every inverse bid
+        rising). True if one was found."""
+        best = None
+        for m in degrees:
             budget.check()
             x = self._solve(m)
-            if x is not None:
-                self._set(m, x)
-                self.residual = self.foc_residual()
-                if self.residual < FOC_TOLERANCE:
+            if x is None:
+                continue
+            self._set(m, x)
+            if not self._rising():
+                if best is None:  # a group's inverse bid falls: this shape of equilibrium is not the one
                     break
-        if self.c is None:
-            raise ParameterError("bidder_groups", "the first-price equilibrium of these groups was not found "
-                                                  "(the solver did not converge); ask for second price")
+                continue
+            res = self.foc_residual()
+            if best is None or res < best[2]:
+                best = (m, x, res)
+            if res < FOC_TOLERANCE:
+                break
+        if best is None or best[2] > (ACCEPT_RESIDUAL if accept is None else accept):
+            self.c = None
+            return False
+        self._set(best[0], best[1])
+        self.residual = best[2]
+        return True
+
+    def _rising(self, points=257):
+        """Whether every inverse bid rises on the solved span (an equilibrium; a least-squares
+        solution with a group's inverse bid falling near the top says that group stops earlier)."""
+        tau = (np.arange(points) + 0.5) / points
+        _, _, dphi = self.at_tau(tau)
+        return bool(np.all(dphi > -1e-9))
 
     # --- the variable tau: b = b0 + L tau^q --------------------------------------------
     def _basis(self, tau, m):
@@ -97,9 +165,45 @@ class AsymmetricBids:
             D[:, k] = 2.0 * cheb.chebval(x, cheb.chebder(eye[k]))
         return V, D
 
-    #: Starting top bids, as shares of the way from the floor to the lowest top: first a
-    #: symmetric auction's (N - 1)/N, then nearer the top for groups far apart.
-    GUESSES = (None, 0.25, 0.8, 0.95, 0.99)
+    def _symmetric(self, grp, values):
+        """The symmetric first-price bids (score units) at score ``values`` if all N bidders were
+        of this group: each group's shape near the floor and the top, for the starting guess."""
+        from .auction import ForwardAuction  # the symmetric engine; auction.py does not import this module
+
+        x = np.asarray(values, float) / grp.m
+        floor = self.b0 / grp.m
+        auc = ForwardAuction(grp.model, int(self.N), floor if floor > grp.model.lower else None)
+        s = np.minimum(grp.model.neg_log_cdf(x), auc.s_r)
+        b = np.full(x.shape, auc.floor)
+        live = np.isfinite(s)
+        b[live] = auc.bids.at_s(s[live])
+        return grp.m * b
+
+    def _starts(self, m):
+        """Starting points: straight inverse bids (cheap, enough where the groups' values start
+        with a density at the floor), then each group's symmetric inverse bid function,
+        stretched so that its top bid is a common one, at the groups' symmetric top bids in turn."""
+        for share in (None, 0.25, 0.8):
+            yield self._guess(m, share)
+        tau = 0.5 - 0.5 * np.cos((np.arange(m) + 0.5) * np.pi / m)
+        V = self._basis(tau, m)[0]
+        grids, tops = [], []
+        for grp in self.groups:
+            w = self.b0 + (grp.top - self.b0) * (0.5 - 0.5 * np.cos(np.linspace(0.0, np.pi, 201)))
+            b = self._symmetric(grp, w)
+            grids.append((w, b))
+            tops.append(b[-1])
+        tops = np.array(tops)
+        for top in (float(np.mean(tops)), float(np.min(tops)), float(np.max(tops)), float(np.median(tops))):
+            L = top - self.b0
+            if not L > 0.0:
+                continue
+            bb = self.b0 + L * tau**self.q
+            c = np.zeros((self.G, m))
+            for i, ((w, b), t_i) in enumerate(zip(grids, tops)):
+                phi = np.interp(self.b0 + (bb - self.b0) * (t_i - self.b0) / L, b, w)
+                c[i] = np.linalg.solve(V, (phi - bb) / (L * tau))
+            yield np.concatenate([[L], c.ravel()])
 
     def _guess(self, m, share):
         """Straight inverse bids meeting the tops at a top bid ``share`` of the way from the floor
@@ -109,9 +213,10 @@ class AsymmetricBids:
         c[:, 0] = (self.tops - self.b0 - L) / L
         return np.concatenate([[L], c.ravel()])
 
-    def _equations(self, x, tau, V, D, V1, jac):
+    def _equations(self, x, tau, V, D, V1, jac, D1=None):
         G, m = self.G, V.shape[1]
         L, c = x[0], x[1:].reshape(G, m)
+        D1 = self._D1
         P, dP = c @ V.T, c @ D.T
         g = tau**self.q
         beta = self.q * tau ** (self.q - 1)  # d(b - b0)/dtau / L
@@ -122,8 +227,13 @@ class AsymmetricBids:
             S = (self.n[:, None] / d).sum(0) / (self.N - 1.0)
             rho = np.array([grp.inverse_hazard_low(p) for grp, p in zip(self.groups, phi)])
             A = d * (1.0 + e) - rho * (d * S - 1.0)
-        top = (self.b0 + L * (1.0 + c @ V1) - self.tops) / self.scale
-        F = np.concatenate([(A / L).ravel(), top])
+        ends = []
+        for i, kind in enumerate(self.ends):
+            if kind in ("top", "drop"):
+                ends.append((self.b0 + L * (1.0 + c[i] @ V1) - self.tops[i]) / self.scale)
+            if kind == "drop":
+                ends.append(1.0 + (c[i] @ (V1 + D1)) / self.q)  # phi_i'(top of span) = 0
+        F = np.concatenate([(A / L).ravel(), np.array(ends)])
         ok = bool(L > 0.0 and np.all(d > 0.0) and np.all(np.isfinite(F)))
         if not jac:
             return F, ok
@@ -133,7 +243,7 @@ class AsymmetricBids:
                              for grp, p in zip(self.groups, phi)])
             dA_dd = (1.0 + e) - rho * (S - self.n[:, None] / ((self.N - 1.0) * d)) - drho * (d * S - 1.0)
             cross = rho * d / (self.N - 1.0)  # times n_k / d_k^2 for group k
-        J = np.zeros((G * m + G, 1 + G * m))
+        J = np.zeros((F.size, 1 + G * m))
         dd_dc = (L * tau)[:, None] * V
         de_dc = (V + tau[:, None] * D) / beta[:, None]
         for i in range(G):
@@ -148,15 +258,24 @@ class AsymmetricBids:
                     J[rows, cols] = w[:, None] * dd_dc / L
                     dA_dL = dA_dL + w * tau * P[k]
             J[rows, 0] = dA_dL / L - A[i] / L**2
-            J[G * m + i, 0] = (1.0 + c[i] @ V1) / self.scale
-            J[G * m + i, 1 + i * m: 1 + (i + 1) * m] = L * V1 / self.scale
+        row = G * m
+        for i, kind in enumerate(self.ends):
+            cols = slice(1 + i * m, 1 + (i + 1) * m)
+            if kind in ("top", "drop"):
+                J[row, 0] = (1.0 + c[i] @ V1) / self.scale
+                J[row, cols] = L * V1 / self.scale
+                row += 1
+            if kind == "drop":
+                J[row, cols] = (V1 + D1) / self.q
+                row += 1
         return F, ok, J
 
     def _solve(self, m):
         tau = 0.5 - 0.5 * np.cos((np.arange(m) + 0.5) * np.pi / m)
         V, D = self._basis(tau, m)
-        V1 = self._basis(np.array([1.0]), m)[0][0]
-        for start in ([self._warm(m)] if self.c is not None else [self._guess(m, g) for g in self.GUESSES]):
+        V1, D1 = (row[0] for row in self._basis(np.array([1.0]), m))
+        self._D1 = D1
+        for start in ([self._warm(m)] if self.c is not None else self._starts(m)):
             x = self._newton(start, tau, V, D, V1)
             if x is not None:
                 return x
@@ -167,10 +286,11 @@ class AsymmetricBids:
         if not ok:
             return None
         cost = float(F @ F)
-        for _ in range(60):
+        slow = 0
+        for _ in range(40):
             budget.check()
             F, ok, J = self._equations(x, tau, V, D, V1, jac=True)
-            step = np.linalg.lstsq(J, -F, rcond=None)[0]
+            step = linalg.lstsq(J, -F, lapack_driver="gelsy", check_finite=False)[0]
             t = 1.0
             while t > 1e-8:
                 trial = x + t * step
@@ -182,10 +302,13 @@ class AsymmetricBids:
             else:
                 break
             small = np.max(np.abs(t * step)) <= 1e-14 * max(1.0, np.max(np.abs(x)))
+            slow = slow + 1 if cn > 0.97 * cost and cn > ACCEPT_COST else 0
             x, cost = trial, cn
-            if small or cost < 1e-30:
+            if small or cost < 1e-30 or slow >= 8:  # converged, or crawling towards no solution
                 break
-        return x if cost < 1e-16 else None
+        # A converged least-squares solution whose collocation residuals are small; whether it
+        # is accurate enough is the residual between the nodes' to say (foc_residual).
+        return x if cost < ACCEPT_COST else None
 
     def _warm(self, m):
         c = np.zeros((self.G, m))
@@ -194,7 +317,7 @@ class AsymmetricBids:
 
     def _set(self, m, x):
         self.m, self.L, self.c = m, float(x[0]), x[1:].reshape(self.G, m).copy()
-        self.top_bid = self.b0 + self.L
+        self.span_top = self.b0 + self.L
 
     # --- the solution --------------------------------------------------------------------
     def at_tau(self, tau):
@@ -229,17 +352,54 @@ class AsymmetricBids:
         b = self.b0 + self.L * tau**self.q
         return b, b + self.L * tau * P
 
+    # --- above the span: the stronger group alone (two groups, the weaker stopped) ------------
+    def _alone_setup(self):
+        """Above the weaker group's last bid beta the stronger group's bidders compete only among
+        themselves: a symmetric auction of n_S bidders in which the one at v* = phi_S(beta) bids
+        beta, so b(w) = w - [int_v*^w F_S^(n_S - 1) + (v* - beta) F_S(v*)^(n_S - 1)] / F_S(w)^(n_S - 1)
+        (the envelope theorem, Krishna 2009, ch. 2)."""
+        self.alone = 1 - self.drop
+        _, phi = self.phi_at(np.array([1.0]))
+        self.v_star, self.beta = float(phi[self.alone][0]), self.span_top
+
+    def _alone_bids(self, w):
+        """The stronger group's score bids at score values w >= v*."""
+        g, k = self.groups[self.alone], self.n[self.alone] - 1.0
+        w = np.asarray(w, float)
+        xi, wi = _GL32
+        half = 0.5 * (w - self.v_star)
+        t = self.v_star + half[:, None] * (xi[None, :] + 1.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            area = (half[:, None] * wi[None, :] * g.cdf(t) ** k).sum(1)
+            return w - (area + (self.v_star - self.beta) * float(g.cdf(self.v_star)) ** k) / g.cdf(w) ** k
+
+    def _top_bid(self):
+        if self.drop is None:
+            return self.span_top
+        return float(self._alone_bids(np.array([self.tops[self.alone]]))[0])
+
+    def at_values(self, i, w):
+        """(score bids, each group's inverse bid there: G x len) of group i's bidders at score
+        values w (at or above the floor, at most the group's top)."""
+        w = np.asarray(w, float)
+        above = np.zeros(w.shape, bool) if self.drop is None or i != self.alone else w > self.v_star
+        lo, hi = np.zeros(w.shape), np.ones(w.shape)
+        for _ in range(60):
+            mid = 0.5 * (lo + hi)
+            _, phi = self.phi_at(mid)
+            below = phi[i] < w
+            lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+        b, phi = self.phi_at(0.5 * (lo + hi))
+        if above.any():
+            b[above] = self._alone_bids(w[above])
+            phi[:, above] = self.tops[:, None]
+            phi[self.alone, above] = w[above]
+        return np.minimum(b, self.top_bid), phi
+
     def tau_of_bid(self, b):
         return np.clip((np.asarray(b, float) - self.b0) / self.L, 0.0, 1.0) ** (1.0 / self.q)
 
     def bids(self, i, w):
-        """Group i's score bids at score values w in [floor, top]: phi_i inverted by bisection in tau."""
+        """Group i's score bids at score values w in [floor, top]."""
         w = np.asarray(w, float)
-        lo, hi = np.zeros(w.shape), np.ones(w.shape)
-        for _ in range(60):
-            mid = 0.5 * (lo + hi)
-            _, phi = self.phi_at(mid.ravel())
-            below = phi[i].reshape(w.shape) < w
-            lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
-        b, _ = self.phi_at(0.5 * (lo + hi).ravel())
-        return b.reshape(w.shape)
+        return self.at_values(i, w.ravel())[0].reshape(w.shape)

@@ -158,16 +158,8 @@ class GroupAuction:
 
     def _at_values(self, i):
         """(score bid, each group's inverse bid there) at group i's nodes that take part."""
-        g, eq = self.groups[i], self.first
-        w = g.m * g.x[g.above]
-        lo, hi = np.zeros(w.shape), np.ones(w.shape)
-        for _ in range(60):
-            mid = 0.5 * (lo + hi)
-            _, phi = eq.phi_at(mid)
-            below = phi[i] < w
-            lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
-        b, phi = eq.phi_at(0.5 * (lo + hi))
-        return np.minimum(b, eq.top_bid), phi
+        g = self.groups[i]
+        return self.first.at_values(i, g.m * g.x[g.above])
 
     def _win_first(self, i):
         """(Q_i, the bid in value units, the group-k thresholds) at group i's nodes under first price."""
@@ -252,7 +244,7 @@ class GroupAuction:
             return np.asarray(x, float)
         eq = self.first
         w = g.m * np.asarray(x, float)
-        return np.minimum(eq.bids(i, np.minimum(w, eq.tops[i])), eq.top_bid) / g.m
+        return eq.bids(i, np.minimum(w, eq.tops[i])) / g.m
 
 
 def _caller(direction, score):
