@@ -53,7 +53,7 @@ spreadsheet-test: $(VENV)/.installed-test
 	$(PY) spreadsheet/run.py
 
 bench: $(VENV)/.installed-test
-	$(PY) bench/run.py
+	OPENBLAS_NUM_THREADS=1 $(PY) bench/run.py  # one BLAS thread, as each gunicorn worker runs (gunicorn.conf.py)
 
 demo: $(VENV)/.installed-base
 	HOST=$(HOST) PORT=$(PORT) WORKERS=$(WORKERS) $(PY) demo/run.py

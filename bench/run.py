@@ -826,6 +826,15 @@ def section_summary(ctx):
     if get("counts_ratio") is not None:
         rows.append(row("Poisson count (mean 8) / fixed count of 8, five rules (worst model)", f"{get('counts_ratio'):.1f}x", "<= 4x",
                         get("counts_ratio") <= 4.0))
+    if get("groups_missing") is not None:
+        if get("groups_service_max") is not None:
+            rows.append(row("first price, bidder groups: the service's slowest answered case", fmt_time(get("groups_service_max")),
+                            "<= 50 ms", get("groups_service_max") <= 0.05))
+        if get("groups_ratio_min") is not None:
+            rows.append(row("first price, bidder groups: shooting time / service (least)", f"{get('groups_ratio_min'):.1f}x",
+                            ">= 20x", get("groups_ratio_min") >= 20))
+        missing, total = get("groups_missing")
+        rows.append(row("first price, bidder groups: cases the service did not answer", f"{missing} of {total}", "(reported)", None))
     if get("http_ratios") is not None:
         for name, ratio in get("http_ratios").items():
             target = get("http_targets")[name]
@@ -949,12 +958,269 @@ def section_risk_aversion(ctx):
     print(table(["case", "risk-neutral (5 rules)", "CRRA 0.4 (4 rules)", "ratio", "first-price rel.err"], rows))
 
 
+# --------------------------------------------------------------------------
+# Bidder groups under first price: backward shooting as the reference
+# --------------------------------------------------------------------------
+GROUPS_TARGET = 1e-7  # relative accuracy of the revenue the shooting is run to
+GROUPS_SHOOT_CAP_S = 8.0  # the longest one shooting run may take
+GROUPS_RTOL = 1e-10  # solve_ivp tolerance of each shot
+
+
+def gls_two_uniform_revenue(w1, w2, digits=REFERENCE_DIGITS):
+    """First-price revenue of two bidders, values uniform on [0, w1] and [0, w2], w1 < w2, in mpmath.
+
+    Inverse bids phi_1(b) = 2b / (1 + k b^2), phi_2(b) = 2b / (1 - k b^2), k = 1/w1^2 - 1/w2^2, top bid
+    w1 w2 / (w1 + w2) (Griesmer, Levitan and Shubik, "Toward a study of bidding processes, part IV: games
+    with unknown costs", 1967; Krishna, Auction Theory, 2nd ed., 2009, ch. 4.3). The winning bid is below
+    b with chance H(b) = phi_1(b) phi_2(b) / (w1 w2), so the revenue is top - int_0^top H(b) db.
+    """
+    with mp.workdps(digits):
+        w1, w2 = mp.mpf(w1), mp.mpf(w2)
+        k = 1 / w1**2 - 1 / w2**2
+        top = w1 * w2 / (w1 + w2)
+        return top - mp.quad(lambda b: (2 * b / (1 + k * b * b)) * (2 * b / (1 - k * b * b)) / (w1 * w2), [0, top])
+
+
+def shoot_first_price(counts, tops, exponents, *, entry=False, target=GROUPS_TARGET, rtol=GROUPS_RTOL):
+    """First-price revenue of groups of bidders by backward shooting with bisection on the top bid.
+
+    Group i has n_i bidders with values on [0, w_i], F_i(v) = (v / w_i)^a_i (a_i = 1: uniform), N = sum n_i.
+    The inverse bids solve, from phi_i(top) = w_i down to phi_i(0) = 0,
+        phi_i'(b) = (F_i / f_i)(phi_i) [ (1/(N - 1)) sum_k n_k / (phi_k - b) - 1 / (phi_i - b) ]
+    (Marshall, Meurer, Richard and Stromquist, "Numerical analysis of asymmetric first price auctions",
+    1994; Krishna, Auction Theory, 2nd ed., 2009, ch. 4.3), with F_i / f_i = phi_i / a_i. The top bid is
+    unknown: a guess is integrated downwards (solve_ivp, LSODA), and the trajectory tells which way it
+    missed (Fibich and Gavish, "Numerical simulations of asymmetric first-price auctions", 2011, on the
+    backward-shooting method and its instability):
+      too high: a markdown phi_i - b reaches 0 above the floor (here: below 1e-3 b), an inverse bid leaves
+                its values' top, the integrator gives up as a markdown collapses, or some phi_i' < 0 at the
+                top (the group would bid less at higher values; possible from three bidders on);
+      too low:  the floor is reached with the inverse bids still away from 0 (here: a markdown above 1e3 b).
+    The revenue is top - int_0^top H(b) db, H = prod_k F_k(phi_k)^n_k the chance that the winning bid is
+    below b, integrated along the last too-high shot down to where it failed, b_e; below b_e the integral
+    lies in [0, b_e H(b_e)] and half of that is taken. Bisection stops when two successive too-high
+    shots agree on the revenue to ``target`` and that tail is below it.
+
+    ``entry``: let a group stop bidding below the top bid, as the equilibrium must where the common top
+    is impossible. Above its entry bid a group takes no part (F_i = 1 in H, and it leaves the sums, N
+    becoming the active count); the first-order conditions of the active groups then give the rate
+    sum_k n_k phi_k' / (F_k / f_k)(phi_k) = S(b) = (1/(N_A - 1)) sum_{k active} n_k / (phi_k - b), so a
+    group with top value w_i gains by bidding b as long as (w_i - b) S(b) > 1: it enters, downwards, where
+    (w_i - b) S(b) = 1, and at the top only the groups with 1 / (w_i - top) <= S(top) bid (derived here
+    from the same first-order conditions, Krishna 2009, ch. 4.3).
+
+    Returns a dict: revenue (None when no revenue was found), top_bid, estimate (relative), shots, why
+    (a failure or a shortfall, else ""), entries ({group index: the bid where it starts bidding}).
+    """
+    n, w, a = (np.asarray(v, float) for v in (counts, tops, exponents))
+    G = len(n)
+    order = np.argsort(-w, kind="stable")
+
+    def active_at(top):
+        if not entry:
+            return list(range(G))
+        act = [int(order[0])]
+        for i in order[1:]:
+            na = n[act].sum()
+            if na < 2 or (w[i] > top and 1.0 / (w[i] - top) <= (n[act] / (w[act] - top)).sum() / (na - 1.0)):
+                act.append(int(i))
+            else:
+                break
+        return sorted(act)
+
+    def H(y):
+        return float(np.prod(np.clip(y[:G] / w, 0.0, 1.0) ** (a * n)))
+
+    def system(act):
+        idx = np.array(act)
+        na, nsum = n[idx], n[idx].sum()
+
+        def rate(b, y):
+            return (na / (y[idx] - b)).sum() / (nsum - 1.0)
+
+        def rhs(b, y):
+            d = y[idx] - b
+            dy = np.zeros(G + 1)
+            dy[idx] = y[idx] / a[idx] * ((na / d).sum() / (nsum - 1.0) - 1.0 / d)
+            dy[G] = -H(y)
+            return dy
+
+        return idx, rate, rhs
+
+    def shot(top):
+        """('low' | 'high', b where it stopped, state there, entries, group whose phi' < 0 at the top)."""
+        act, b, y, entries = active_at(top), top, np.append(w, 0.0), {}
+        idx, rate, rhs = system(act)
+        falls = [i for i in act if rhs(top, y)[i] < 0.0]
+        if falls:
+            return "high", top, None, entries, falls[0]
+        while True:
+            idx, rate, rhs = system(act)
+            waiting = [i for i in range(G) if i not in act]
+
+            def markdown(t, yy, idx=idx):
+                return float(np.min(yy[idx] - t)) - 1e-3 * t
+
+            def over(t, yy, idx=idx):
+                return float(np.min(w[idx] - yy[idx])) + 1e-12 * float(w.max())
+
+            def stays(t, yy, idx=idx):
+                return float(np.max(yy[idx] - t)) - 1e3 * t
+
+            events = [markdown, over, stays]
+            for i in waiting:
+                events.append(lambda t, yy, i=i, rate=rate: (w[i] - t) * rate(t, yy) - 1.0)
+            for ev in events:
+                ev.terminal = True
+            sol = integrate.solve_ivp(rhs, (b, 1e-12 * top), y, method="LSODA", rtol=rtol, atol=1e-15, events=events)
+            b, y = float(sol.t[-1]), sol.y[:, -1].copy()
+            if sol.status == 0 or len(sol.t_events[2]):
+                return "low", b, y, entries, None
+            joined = [i for j, i in enumerate(waiting) if len(sol.t_events[3 + j])]
+            if sol.status == 1 and joined and not (len(sol.t_events[0]) or len(sol.t_events[1])):
+                act = sorted(act + joined)
+                entries.update({i: b for i in joined})
+                continue
+            return "high", b, y, entries, None
+
+    lo = 0.0
+    hi = float(np.sort(np.repeat(w, n.astype(int)))[-2]) if entry else float(w.min())
+    best, prev, shots, falls, est = None, None, 0, None, math.inf
+    while shots < 200:
+        top = 0.5 * (lo + hi)
+        if not lo < top < hi:
+            break
+        kind, b_end, y_end, entries, fell = shot(top)
+        shots += 1
+        if kind == "low":
+            lo = top
+            continue
+        hi = top
+        if y_end is None:
+            falls = fell
+            continue
+        tail = b_end * H(y_end)
+        revenue = top - y_end[G] - 0.5 * tail
+        if prev is not None:
+            est = max(abs(revenue - prev), tail) / abs(revenue)
+        prev = revenue
+        best = {"revenue": revenue, "top_bid": top, "estimate": est, "entries": entries}
+        if est <= target:
+            return {**best, "shots": shots, "why": ""}
+    if best is None:
+        if falls is not None:
+            anywhere = hi <= 1e-9 * float(w.max())
+            where = "at every top bid" if anywhere else f"above a top bid of {hi:.4g}"
+            why = f"no common top bid: {where} group {falls + 1} would bid less at higher values"
+            why += "" if anywhere else "; below it, no trajectory reaches the floor"
+        else:
+            why = "no trajectory reached the floor"
+        return {"revenue": None, "top_bid": None, "estimate": None, "entries": {}, "shots": shots, "why": why}
+    return {**best, "shots": shots, "why": f"stalled at an estimated {best['estimate']:.0e}"}
+
+
+def _service_first_price(groups, cap_s):
+    """(report or None, seconds of the one call, note): the call under the service's own request budget."""
+    from service.core import budget, groups as core_groups
+    from service.core.errors import ParameterError
+
+    t0 = time.perf_counter()
+    try:
+        with budget.within(cap_s):
+            rep = core_groups.group_report(groups, "forward", rules=["first_price"])
+        return rep, time.perf_counter() - t0, ""
+    except budget.BudgetSpent:
+        return None, None, f"not converged in its {cap_s:g} s budget"
+    except ParameterError as e:
+        if e.field == "bidder_groups":
+            return None, None, f"not converged ({time.perf_counter() - t0:.1f} s)"
+        return None, None, f"refused ({e.field})"
+
+
+def section_groups(ctx):
+    from service.core.groups import Group, group_report
+    from service.core.models import Power, Uniform
+    from service.settings import CAPS
+
+    budget_s = CAPS.seconds
+    heading("First price with bidder groups that differ: the service against backward shooting")
+    print("service:  groups.group_report(groups, 'forward', rules=['first_price']), median; each case first called once")
+    print(f"          under the service's own request budget (BIDSTATS_MAX_SECONDS, {budget_s:g} s here)")
+    print("shooting: bisection on the common top bid, each guess integrated down to the floor (solve_ivp LSODA,")
+    print(f"          rtol {GROUPS_RTOL:g}); too high when a markdown phi - b reaches 0 above the floor or an inverse bid falls")
+    print("          at the top, too low when the inverse bids stay above 0 at the floor; run until two successive")
+    print(f"          revenues agree to {GROUPS_TARGET:g} (relative), stopped after {GROUPS_SHOOT_CAP_S:g} s")
+    print("rel.err:  two uniform bidders against the closed form (Griesmer, Levitan and Shubik 1967) in mpmath, 30 digits;")
+    print("          elsewhere the shooting's disagreement with the service")
+    print()
+    # (case, [(count, top of the values, exponent a: F = (v / top)^a, 1 = uniform)])
+    cases = [
+        ("2 groups, tops 1, 2", [(1, 1.0, 1.0), (1, 2.0, 1.0)]),
+        ("2 groups, tops 1, 1.3", [(1, 1.0, 1.0), (1, 1.3, 1.0)]),
+        ("3 groups, tops 1, 1.1, 1.25", [(1, 1.0, 1.0), (1, 1.1, 1.0), (1, 1.25, 1.0)]),
+        ("3 groups, tops 1, 1.5, 2", [(1, 1.0, 1.0), (1, 1.5, 1.0), (1, 2.0, 1.0)]),
+        ("4 groups, counts 2,1,1,1, tops 1, 1.2, 1.6, 2", [(2, 1.0, 1.0), (1, 1.2, 1.0), (1, 1.6, 1.0), (1, 2.0, 1.0)]),
+        ("2 groups, 1 at top 1, 2 at top 2", [(1, 1.0, 1.0), (2, 2.0, 1.0)]),
+        ("uniform top 1, power a=2 top 1.5", [(1, 1.0, 1.0), (1, 1.5, 2.0)]),
+    ]
+    rows, notes, answered, ratios, missing = [], [], [], [], 0
+    for name, spec in cases:
+        counts, tops, expos = zip(*spec)
+        groups = [Group(f"group {i + 1}", c, Uniform(0.0, t) if e == 1.0 else Power(exponent=e, high=t))
+                  for i, (c, t, e) in enumerate(spec)]
+        rep, _, svc_note = _service_first_price(groups, budget_s)
+        svc, t_svc, foc = None, None, None
+        if rep is not None:
+            svc, foc = rep["results"][0]["expected_revenue"], rep["numerics"]["foc_residual"]
+            t_svc = median_time(lambda: group_report(groups, "forward", rules=["first_price"]), repeats=7)
+            answered.append(t_svc)
+        else:
+            missing += 1
+        closed = None
+        if len(spec) == 2 and counts == (1, 1) and expos == (1.0, 1.0):
+            closed = gls_two_uniform_revenue(min(tops), max(tops))
+        res, t_sh, sh_note = capped(lambda: shoot_first_price(counts, tops, expos), cap_s=GROUPS_SHOOT_CAP_S)
+        sh = None if res is None else res["revenue"]
+        if res is not None and sh is None:
+            sh_note = "no common top bid" if res["why"].startswith("no common") else "failed"
+            notes.append(f"{name}: shooting found {res['why']}")
+        elif res is not None and res["why"]:
+            sh_note = res["why"]
+        ref = closed if closed is not None else svc
+        err_svc = None if closed is None or svc is None else float(abs(svc / closed - 1))
+        err_sh = None if ref is None or sh is None else float(abs(sh / ref - 1))
+        if sh is not None and t_svc is not None and not res["why"]:
+            ratios.append(t_sh / t_svc)
+        shoot_cell = fmt_time(t_sh) if sh is not None else (sh_note or "failed")
+        if sh is not None and sh_note:
+            shoot_cell += f" ({sh_note})"
+        rows.append([name, fmt_time(t_svc) if rep is not None else svc_note, fmt_err(err_svc),
+                     fmt_err(foc), shoot_cell, fmt_err(err_sh), fmt_ratio(t_sh if sh is not None else None, t_svc)])
+        if res is not None and sh is None and res["why"].startswith("no common"):
+            # the equilibrium without a common top bid: weaker groups start bidding below it
+            late, t_late, late_note = capped(lambda: shoot_first_price(counts, tops, expos, entry=True), cap_s=GROUPS_SHOOT_CAP_S)
+            if late is None or late["revenue"] is None:
+                notes.append(f"    with weaker groups stopping below the top bid: {late_note or late['why']}")
+            else:
+                starts = ", ".join(f"group {i + 1} bids at most {b:.4f}" for i, b in sorted(late["entries"].items()))
+                versus = "service: " + (fmt_err(abs(late["revenue"] / svc - 1)) + " apart" if svc is not None else svc_note)
+                notes.append(f"    with weaker groups stopping below the top bid: revenue {late['revenue']:.8f}, top bid "
+                             f"{late['top_bid']:.6f}, {starts}; {fmt_time(t_late)}, {late['shots']} shots; {versus}")
+    print(table(["case", "service", "service rel.err", "foc residual", "shooting", "shooting rel.err", "shooting/service"], rows))
+    for line in notes:
+        print(line)
+    print("target: within 50 ms, at least 20x faster than shooting run to the same accuracy")
+    ctx["groups_service_max"] = max(answered) if answered else None
+    ctx["groups_ratio_min"] = min(ratios) if ratios else None
+    ctx["groups_missing"] = (missing, len(cases))
+
+
 # Sections that send requests to the app in-process.
 IN_PROCESS = {"section_request", "section_sweeps", "section_expensive"}
 
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
             section_expensive, section_fits, section_counts, section_simulation, section_risk_aversion,
-            section_http, section_summary]
+            section_groups, section_http, section_summary]
 
 
 def main(argv):

@@ -30,9 +30,10 @@ RULE_NAMES = {"first_price": "first-price sealed", "second_price": "second-price
 
 CAUTION = """\
 Caution: these figures are estimates under stated assumptions: independent
-private values (or costs) drawn from the value model given, risk-neutral
-symmetric bidders, and equilibrium play. Real bidders collude, learn and err,
-and the value models here are invented. The auction and procurement rules of
+private values (or costs) drawn from the value models given, risk-neutral
+bidders (alike, or alike within each group), and equilibrium play. Real
+bidders collude, learn and err, and the value models here are invented. The
+auction and procurement rules of
 your jurisdiction, and licensed professional advice, come first; use numbers
 like these to inform a decision, not to make it."""
 
@@ -361,6 +362,29 @@ def millbrook(bs):
     print(table(["tender", "bidders", "expected payment", "P(award)", "optimal max price"], rows))
 
     fit_section(bs, s, "Past tenders to a cost model: every sealed bid of 24 first-price tenders")
+
+    body = load(s, "groups-revenue")
+    out = bs.group_revenue(body["cost_groups"], **{k: v for k, v in body.items() if k != "cost_groups"})
+    names = [g["name"] for g in body["cost_groups"]]
+    section("Local contractors (5% small-firm preference) and national firms: expected payment per rule, "
+            f"maximum price {money(body['reserve'])}")
+    print(table(["rule", "expected payment", "sd", "P(lowest cost wins)", *[f"P({n} win)" for n in names]],
+                [[RULE_NAMES[r["rule"]], money(r["expected_payment"]), money(r["payment_sd"]),
+                  pct(r["probability_lowest_cost_wins"]), *[pct(g["win_probability"]) for g in r["groups"]]]
+                 for r in out["results"]]))
+    cmp_ = out["first_vs_second"]
+    if cmp_:
+        more = "more" if cmp_["difference"] > 0 else "less"
+        print(f"  first price pays {money(abs(cmp_['difference']))} {more} than second price on average "
+              f"(residual of the first-price conditions {out['numerics']['foc_residual']:.1e}).")
+
+    body = load(s, "groups-bid-strategy")
+    bids = bs.group_bids(body["cost_groups"], **{k: v for k, v in body.items() if k != "cost_groups"})
+    section("First-price tenders by group (a local tender b is ranked as 0.95 b)")
+    costs = bids["groups"][0]["costs"]
+    print(table(["cost", *[g["name"] for g in bids["groups"]]],
+                [[money(c), *[money(g["bids"][i]) if g["bids"][i] is not None else "-" for g in bids["groups"]]]
+                 for i, c in enumerate(costs)], right=[0, 1, 2]))
 
 
 def main():

@@ -251,6 +251,27 @@ class BidstatsClient:
         """
         return self._post("/v1/revenue", body)
 
+    @staticmethod
+    def _groups_body(groups, body):
+        """The groups under ``cost_groups`` when they hold costs, else ``bidder_groups``."""
+        key = "cost_groups" if any("bidder_costs" in g for g in groups) else "bidder_groups"
+        return {key: list(groups), **body}
+
+    def group_revenue(self, groups, **body):
+        """POST /v1/revenue for bidders who differ: ``groups`` a list of ``{name, count,
+        bidder_values | bidder_costs, preference}``; optionally ``reserve``, ``rules``,
+        ``seller_value`` / ``buyer_value``. Each rule's result carries ``groups``."""
+        return self._post("/v1/revenue", self._groups_body(groups, body))
+
+    def group_bids(self, groups, **body):
+        """POST /v1/bid-strategy for bidder groups: each group's bids (``rule``, ``at`` or ``points``)."""
+        return self._post("/v1/bid-strategy", self._groups_body(groups, body))
+
+    def group_top_values(self, groups, **body):
+        """POST /v1/top-values for bidder groups: the highest and second-highest value (lowest
+        costs) across the groups, and each group's chance to hold them."""
+        return self._post("/v1/top-values", self._groups_body(groups, body))
+
     def bid_strategy(self, **body):
         """POST /v1/bid-strategy: equilibrium bids for one rule, at ``at`` values or on ``points``."""
         return self._post("/v1/bid-strategy", body)

@@ -247,3 +247,133 @@ def test_http_groups_bad_input(client, body, field):
     r = client.post("/v1/revenue", json=body)
     assert r.status_code == 422 and r.mimetype == "application/problem+json"
     assert field in [e["field"] for e in r.get_json()["errors"]]
+
+
+def test_top_values_across_groups_against_integrals():
+    """Highest and second highest of independent values that differ: E[X] = int (1 - CDF) for
+    values on [0, 2], CDFs H = prod F_k^n_k and H + sum_j n_j (1 - F_j) F_j^(n_j - 1) prod_(k != j)
+    F_k^n_k (David and Nagaraja, Order Statistics, 2003, ch. 5.2), integrated with mpmath; the
+    median by mpmath's root finder; each group's share of the top rank as int n_1 f_1 A_1."""
+    F1 = lambda x: min(mp.mpf(x), 1)  # noqa: E731  uniform [0, 1], one bidder
+    F2 = lambda x: mp.mpf(x) / 2  # noqa: E731  uniform [0, 2], two bidders
+    H1 = lambda x: F1(x) * F2(x) ** 2  # noqa: E731
+    H2 = lambda x: H1(x) + (1 - F1(x)) * F2(x) ** 2 + 2 * (1 - F2(x)) * F2(x) * F1(x)  # noqa: E731
+    mean1 = mp.quad(lambda x: 1 - H1(x), [0, 1, 2])
+    mean2 = mp.quad(lambda x: 1 - H2(x), [0, 1, 2])
+    sq1 = mp.quad(lambda x: 2 * x * (1 - H1(x)), [0, 1, 2])
+    med1 = mp.findroot(lambda x: H1(x) - mp.mpf("0.5"), mp.mpf("1.2"))
+    share1 = mp.quad(lambda x: F2(x) ** 2, [0, 1])  # the [0, 1] bidder holds the highest value
+    out = group_top_values_call([Group("a", 1, Uniform(0.0, 1.0)), Group("b", 2, Uniform(0.0, 2.0))])
+    r1, r2 = out["results"]
+    assert r1["mean"] == pytest.approx(float(mean1), abs=1e-12)
+    assert r2["mean"] == pytest.approx(float(mean2), abs=1e-12)
+    assert r1["sd"] == pytest.approx(float(mp.sqrt(sq1 - mean1**2)), abs=1e-10)
+    assert [q["value"] for q in r1["quantiles"] if q["p"] == 0.5][0] == pytest.approx(float(med1), abs=1e-12)
+    assert r1["groups"][0]["probability"] == pytest.approx(float(share1), abs=1e-12)
+
+
+def group_top_values_call(groups, direction="forward"):
+    from service.core.groups import group_top_values
+
+    return group_top_values(groups, direction)
+
+
+@pytest.mark.parametrize("direction", ["forward", "reverse"])
+def test_top_values_alike_groups_are_the_symmetric_ranks(direction):
+    """Alike groups reproduce the symmetric engine's ranks 1 and 2 to 1e-10."""
+    from service.core.topvalues import lowest_costs, top_values
+
+    model = Gamma(shape=3.0, scale=2.0)
+    out = group_top_values_call([Group("a", 2, model), Group("b", 3, model)], direction)
+    ref = (top_values if direction == "forward" else lowest_costs)(model, 5)
+    for a, b in zip(out["results"], ref["results"]):
+        assert a["mean"] == pytest.approx(b["mean"], rel=1e-10)
+        assert a["sd"] == pytest.approx(b["sd"], rel=1e-9)
+        for qa, qb in zip(a["quantiles"], b["quantiles"]):
+            assert qa["value"] == pytest.approx(qb["value"], rel=1e-10)
+
+
+def test_http_top_values_groups(client):
+    r = client.post("/v1/top-values", json={"cost_groups": [{"name": "a", "count": 2, "bidder_costs": _U},
+                                                            {"name": "b", "count": 1, "bidder_costs": {**_U, "low": 20}}]})
+    assert r.status_code == 200, r.get_json()
+    body = r.get_json()
+    assert body["ranks_counted_from"] == "lowest" and body["results"][0]["mean"] < body["results"][1]["mean"]
+    assert sum(g["probability"] for g in body["results"][0]["groups"]) == pytest.approx(1.0, abs=1e-12)
+    bad = client.post("/v1/top-values", json={"cost_groups": [{"name": "a", "count": 2, "bidder_costs": _U},
+                                                              {"name": "b", "count": 1, "bidder_costs": _U}], "reserve": 3})
+    assert bad.status_code == 422 and bad.get_json()["errors"][0]["field"] == "reserve"
+
+
+def test_preference_costs_efficiency_second_price():
+    """Two bidders, values uniform on [0, 1], bidder 1 with preference delta, second price: the
+    highest value wins unless v1 < v2 < (1 + delta) v1, so P = 1/2 + 1/(2 (1 + delta)) and the value
+    lost is E[(v2 - v1); v1 < v2 < (1 + delta) v1], integrated with mpmath (derived here)."""
+    delta = mp.mpf("0.2")
+    lost = mp.quad(lambda v1: mp.quad(lambda v2: v2 - v1, [v1, min(1, (1 + delta) * v1)]), [0, 1 / (1 + delta), 1])
+    res = group_report([Group("a", 1, Uniform(0.0, 1.0), preference=0.2), Group("b", 1, Uniform(0.0, 1.0))],
+                       "forward", None, 0.0, rules=["second_price"])["results"][0]
+    assert res["probability_highest_value_wins"] == pytest.approx(float(0.5 + 1 / (2 * (1 + delta))), abs=1e-12)
+    assert res["expected_value_lost"] == pytest.approx(float(lost), abs=1e-12)
+
+
+def test_quote_with_groups(client):
+    q = ("/v1/quote?metric=expected_payment&direction=reverse&rule=second_price&reserve=90"
+         "&group1_name=local&group1_count=3&group1_family=uniform&group1_low=0&group1_high=100&group1_preference=0.05"
+         "&group2_name=national&group2_count=2&group2_family=uniform&group2_low=0&group2_high=100")
+    body = client.post("/v1/revenue", json={"cost_groups": [
+        {"name": "local", "count": 3, "bidder_costs": _U, "preference": 0.05},
+        {"name": "national", "count": 2, "bidder_costs": _U}], "reserve": 90, "rules": ["second_price"]}).get_json()
+    r = client.get(q)
+    assert r.status_code == 200 and float(r.get_data(as_text=True)) == body["results"][0]["expected_payment"]
+    r = client.get(q.replace("expected_payment", "win_probability") + "&group=national")
+    assert float(r.get_data(as_text=True)) == body["results"][0]["groups"][1]["win_probability"]
+    r = client.get(q.replace("group1_preference=0.05", "group1_preference=1.5"))
+    assert r.status_code == 422 and "group1_preference" in r.get_data(as_text=True)
+    r = client.get(q.replace("group2_", "group3_"))
+    assert r.status_code == 422 and "group3_name" in r.get_data(as_text=True)
+    r = client.get(q.replace("metric=expected_payment", "metric=optimal_reserve"))
+    assert r.status_code == 422 and "metric" in r.get_data(as_text=True)
+
+
+def test_weaker_group_stops_below_the_top_bid_mpmath():
+    """One bidder with values uniform on [0, 1] against two on [0, 2], first price. Derived here:
+    above the weak bidder's last bid beta the two strong bidders compete alone, phi' (phi - b) = phi,
+    whose solutions are phi (2b - phi) = K, with K = 4 (b_top - 1) from phi(b_top) = 2. At beta the weak
+    bidder's top value 1 bids with zero bid density, which asks d_S = 2 d_W of the first-order
+    conditions: phi_S(beta) = 2 - beta. Below beta both solve the asymmetric equations (Krishna 2009,
+    ch. 4.3), integrated down from beta with mpmath at 25 digits; beta = 3 - sqrt(5) (found by
+    bisection on that the solution reaches the floor with phi_i / b -> 3/2, N/(N - 1) for N = 3,
+    which the test checks)."""
+    beta = 3 - mp.sqrt(5)
+    top = 1 + (2 - beta) * (3 * beta - 2) / 4
+    K = 4 * (top - 1)
+    upper = mp.quad(lambda b: ((b + mp.sqrt(b * b - K)) / 2) ** 2, [beta, top])
+
+    def rhs(s, y):  # s = beta - b; y = (phi_W, phi_S, int H db from b to beta)
+        b = beta - s
+        d1, d2 = y[0] - b, y[1] - b
+        S = (1 / d1 + 2 / d2) / 2
+        return [-y[0] * (S - 1 / d1), -y[1] * (S - 1 / d2), y[0] * (y[1] / 2) ** 2]
+
+    sol = mp.odefun(rhs, 0, [mp.mpf(1), 2 - beta, mp.mpf(0)], tol=mp.mpf(10) ** -20, degree=25)
+    low = mp.mpf("0.01")
+    y = sol(beta - low)
+    assert float(y[0] / low) == pytest.approx(1.5, abs=1e-6) and float(y[1] / low) == pytest.approx(1.5, abs=1e-6)
+    revenue = top - upper - y[2] - low * y[0] * (y[1] / 2) ** 2 / 4  # below 0.01: H ~ (1.5 b)^3 / 4, integral b H / 4
+    rep = group_report([Group("weak", 1, Uniform(0.0, 1.0)), Group("strong", 2, Uniform(0.0, 2.0))], "forward",
+                       rules=["first_price"])
+    assert rep["results"][0]["expected_revenue"] == pytest.approx(float(revenue), abs=1e-9)
+    assert rep["numerics"]["top_evaluated_bid"] == pytest.approx(float(top), abs=1e-10)
+    bids = group_bids([Group("weak", 1, Uniform(0.0, 1.0)), Group("strong", 2, Uniform(0.0, 2.0))], "forward", at=[1.0])
+    assert bids["groups"][0]["bids"][0] == pytest.approx(float(beta), abs=1e-9)
+
+
+def test_three_against_three_against_extended_shooting():
+    """Three bidders on [0, 1] against three on [0, 1.3]: the weaker group stops below the top bid.
+    Reference: backward shooting with bisection on the top bid, extended to let a group stop bidding
+    where (w_i - b) S(b) = 1 (bench/run.py, shoot_first_price with entry=True; three integrators
+    agreed on 0.81693053842104 to about 1e-12 there)."""
+    rep = group_report([Group("weak", 3, Uniform(0.0, 1.0)), Group("strong", 3, Uniform(0.0, 1.3))], "forward",
+                       rules=["first_price"])
+    assert rep["results"][0]["expected_revenue"] == pytest.approx(0.81693053842104, abs=1e-10)

@@ -446,6 +446,30 @@ def test_every_fixture_body_answers_200(app, client, scenario, name):
         assert all(status == 200 for _, status in statuses), statuses
 
 
+GROUP_FIXTURES = {"groups-revenue": "/v1/revenue", "groups-bid-strategy": "/v1/bid-strategy",
+                  "groups-top-values": "/v1/top-values"}
+
+
+@pytest.mark.parametrize("name", sorted(GROUP_FIXTURES))
+def test_every_group_fixture_answers_200(client, name):
+    resp = client.post(GROUP_FIXTURES[name], json=_strict_load(FIXTURES / "millbrook_reverse" / f"{name}.json"))
+    assert resp.status_code == 200, resp.get_data(as_text=True)
+
+
+def test_group_revenue_through_the_client(bs):
+    # Alike groups are the symmetric auction: two groups of uniform [0, 1] values, 2 + 1 bidders,
+    # second price: (n - 1)/(n + 1) = 1/2 (Krishna, Auction Theory, 2009, ch. 2).
+    out = bs.group_revenue([{"name": "a", "count": 2, "bidder_values": UNIFORM},
+                            {"name": "b", "count": 1, "bidder_values": UNIFORM}], rules=["second_price"])
+    assert out["results"][0]["expected_revenue"] == pytest.approx(0.5, abs=1e-12)
+    bids = bs.group_bids([{"name": "a", "count": 1, "bidder_values": UNIFORM},
+                          {"name": "b", "count": 1, "bidder_values": UNIFORM}], at=[0.5])
+    assert bids["groups"][0]["bids"][0] == pytest.approx(0.25, abs=1e-9)  # b(v) = v/2 for two uniform bidders
+    top = bs.group_top_values([{"name": "a", "count": 1, "bidder_values": UNIFORM},
+                               {"name": "b", "count": 2, "bidder_values": UNIFORM}])
+    assert top["results"][0]["mean"] == pytest.approx(0.75, abs=1e-12)  # n/(n + 1) for n = 3
+
+
 def test_the_past_sales_fits_are_the_csv():
     with open(FIXTURES / "harrowgate_forward" / "past_sales.csv", newline="") as fh:
         rows = [(int(r["bidders"]), float(r["price"]), float(r["hours"])) for r in csv.DictReader(fh)]

@@ -25,6 +25,7 @@ from service import create_app, settings
 from service.core import rules as core_rules
 from service.web import auctions as web_auctions
 from service.web import fields as web_fields
+from service.web import groups as web_groups
 from service.web import top_values as web_top_values
 
 SPEC_PATH = Path(__file__).resolve().parents[1] / "openapi.yaml"
@@ -290,6 +291,42 @@ def test_caps_in_the_spec_are_the_service_caps():
     assert {k: a for k, (a, b) in pairs.items() if a != b} == {}
 
 
+@pytest.mark.skipif(any(k.startswith("BIDSTATS_MAX_") for k in os.environ), reason="the spec documents the default caps")
+def test_group_caps_in_the_spec_are_the_service_caps():
+    caps = settings.CAPS
+    s = SPEC["components"]["schemas"]
+    grp = web_groups.GroupSchema._declared_fields
+    bids = web_groups.GroupBidsRequest._declared_fields
+    name_length = next(v for v in grp["name"].validators if hasattr(v, "max"))
+    pairs = {}
+    for req, code in (("GroupRevenueRequest", web_groups.GroupRevenueRequest), ("GroupBidStrategyRequest", web_groups.GroupBidsRequest)):
+        for key in ("bidder_groups", "cost_groups"):
+            field = code._declared_fields[key]
+            pairs[f"{req}.{key}.maxItems = CAPS.groups"] = (s[req]["properties"][key]["maxItems"], caps.groups)
+            pairs[f"{req}.{key}.maxItems (code)"] = (s[req]["properties"][key]["maxItems"], _max(field))
+            pairs[f"{req}.{key}.minItems (code)"] = (s[req]["properties"][key]["minItems"], field.minimum)
+    for group in ("BidderGroup", "CostGroup"):
+        pairs[f"{group}.count.maximum = CAPS.bidders"] = (s[group]["properties"]["count"]["maximum"], caps.bidders)
+        pairs[f"{group}.count.maximum (code)"] = (s[group]["properties"]["count"]["maximum"], _max(grp["count"]))
+        pairs[f"{group}.count.minimum (code)"] = (s[group]["properties"]["count"]["minimum"], grp["count"].minimum)
+        pairs[f"{group}.name.maxLength (code)"] = (s[group]["properties"]["name"]["maxLength"], name_length.max)
+        pairs[f"{group}.name.minLength (code)"] = (s[group]["properties"]["name"]["minLength"], name_length.min)
+    gb = s["GroupBidStrategyRequest"]["properties"]
+    pairs["group points.maximum (code)"] = (gb["points"]["maximum"], _max(bids["points"]))
+    pairs["group points.minimum (code)"] = (gb["points"]["minimum"], bids["points"].minimum)
+    pairs["group at.maxItems (code)"] = (gb["at"]["maxItems"], _max(bids["at"]))
+    assert {k: a for k, (a, b) in pairs.items() if a != b} == {}
+    assert f"`BIDSTATS_MAX_GROUPS` ({caps.groups} bidder groups)" in SPEC["info"]["description"]
+
+
+def test_group_rules_are_the_code_rules_but_all_pay():
+    spec = SPEC["components"]["schemas"]
+    offered = [r for r in core_rules.names() if core_rules.get(r).pricing is not core_rules.ALL_PAY]
+    assert spec["GroupRule"]["enum"] == offered
+    assert spec["GroupRevenueRequest"]["properties"]["rules"]["default"] == offered
+    assert spec["GroupRevenueRequest"]["properties"]["rules"]["maxItems"] == len(offered)
+
+
 def test_auction_rules_are_the_code_rules():
     spec = SPEC["components"]["schemas"]
     assert spec["AuctionRule"]["enum"] == list(core_rules.names())
@@ -465,6 +502,72 @@ AGREEMENT = [
     (RES, {"bidder_costs": COSTS, "bidders": 4, "buyer_value": None}),
     (RES, {"bidder_values": TRI, "bidders": 4, "reserve": 55000}),
     (RES, {"bidder_values": TRI, "bidder_costs": COSTS, "bidders": 4, "buyer_value": 210000}),
+]
+
+
+# Bidder groups: the same agreement for the group form of /v1/revenue and /v1/bid-strategy.
+# Second price unless first price is the point (first price solves an equilibrium).
+U_LOW, U_HIGH = {"family": "uniform", "low": 0, "high": 100}, {"family": "uniform", "low": 0, "high": 150}
+
+
+def _fwd_groups(**kw):
+    return [{"name": "a", "count": 2, "bidder_values": U_LOW, "preference": 0.1, **kw},
+            {"name": "b", "count": 1, "bidder_values": U_HIGH}]
+
+
+def _rev_groups(**kw):
+    return [{"name": "local", "count": 2, "bidder_costs": U_LOW, "preference": 0.05, **kw},
+            {"name": "national", "count": 1, "bidder_costs": U_HIGH}]
+
+
+SP = ["second_price"]
+AGREEMENT += [
+    (REV, {"bidder_groups": _fwd_groups(), "reserve": 20, "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "reserve": 20, "seller_value": 10, "rules": ["first_price", "second_price", "ascending"]}),
+    (REV, {"cost_groups": _rev_groups(), "reserve": 90, "buyer_value": 120, "rules": ["second_price", "ascending"]}),
+    (REV, {"cost_groups": _rev_groups(), "reserve": 90, "rules": ["first_price", "second_price"]}),
+    (REV, {"cost_groups": _rev_groups(), "rules": SP, "bidder_groups": None, "reserve": None, "seller_value": None, "buyer_value": None}),
+    (REV, {"bidder_groups": _fwd_groups(bidder_costs=None), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups()[:1], "rules": SP}),
+    (REV, {"bidder_groups": [{**g, "name": f"g{i}"} for i, g in enumerate(_fwd_groups() * 4)][: settings.CAPS.groups + 1], "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "cost_groups": _rev_groups(), "rules": SP}),
+    (REV, {"bidder_groups": None, "cost_groups": None, "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "bidders": 3, "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "bidder_values": U_LOW, "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(bidder_costs=U_LOW), "rules": SP}),
+    (REV, {"bidder_groups": [{"name": "a", "count": 2, "bidder_costs": U_LOW}, {"name": "b", "count": 1, "bidder_costs": U_HIGH}], "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(bidder_values=None), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "buyer_value": 120, "rules": SP}),
+    (REV, {"cost_groups": _rev_groups(), "seller_value": 10, "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(count=0), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(count=1.5), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(count=settings.CAPS.bidders + 1), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(name=""), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(name="x" * 81), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(preference=-0.1), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(preference=1.5), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(preference=None), "rules": SP}),
+    (REV, {"cost_groups": _rev_groups(preference=1.0), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(colour="red"), "rules": SP}),
+    (REV, {"bidder_groups": _fwd_groups(), "rules": ["all_pay"]}),
+    (REV, {"bidder_groups": _fwd_groups(), "rules": []}),
+    (REV, {"bidder_groups": _fwd_groups(), "rules": SP, "quantiles": [0.5]}),
+    (REV, {"bidder_groups": _fwd_groups(), "rules": SP, "risk_aversion": {"crra": 0.3}}),
+    (BID, {"bidder_groups": _fwd_groups(), "reserve": 20, "points": 5}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "ascending", "at": [10, 50, 120]}),
+    (BID, {"cost_groups": _rev_groups(), "rule": "second_price", "reserve": 90, "points": 3}),
+    (BID, {"cost_groups": _rev_groups(), "rule": "descending", "reserve": 90, "points": 3}),
+    (BID, {"cost_groups": _rev_groups(), "rule": "second_price", "points": None, "at": [50.0], "bidder_groups": None}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "second_price", "points": 5, "at": [50]}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "second_price", "points": 1}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "second_price", "at": []}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "all_pay"}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": None}),
+    (BID, {"bidder_groups": _fwd_groups(), "rule": "second_price", "seller_value": 10}),
+    (BID, {"cost_groups": _rev_groups(), "rule": "second_price", "buyer_value": 120}),
+    (BID, {"bidder_groups": _fwd_groups(), "rules": SP}),
+    (BID, {"bidder_groups": _fwd_groups(), "bidders": 3, "rule": "second_price"}),
+    (RES, {"bidder_groups": _fwd_groups()}),
 ]
 
 

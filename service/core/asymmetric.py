@@ -26,6 +26,7 @@ where each group's density is positive at its top; the caller offers this solver
 """
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -47,6 +48,12 @@ ACCEPT_RESIDUAL = 1e-6
 #: At the fewest points a solution this close already tells which shape the equilibrium has.
 SHAPE_RESIDUAL = 1e-2
 _GL32 = np.polynomial.legendre.leggauss(32)
+
+
+@functools.lru_cache(maxsize=16)
+def _derivative_matrix(m):
+    """The (m - 1) x m matrix taking Chebyshev coefficients of T_0..T_{m-1} to their derivative's."""
+    return cheb.chebder(np.eye(m), axis=0)
 
 
 class ScoreGroup:
@@ -88,14 +95,16 @@ class AsymmetricBids:
         # there while a stronger group of several bidders bids on alone) or "free".
         self.ends, self.drop = ["top"] * self.G, None
         modes = [None] + self._drop_candidates()
-        # The shape (which group, if any, stops first) is chosen at the fewest points, where a
-        # solve is cheap; the chosen shape is then refined; a shape not found there is tried whole.
+        # The shape (which group, if any, stops first) is chosen at the fewest points from straight
+        # starting bids, where a solve is cheap, and then refined; a shape not found so is tried
+        # once more from every start, with more points.
         for quick in (True, False):
             for weak in modes:
                 self._mode(weak)
-                if self._search(DEGREES[:1], SHAPE_RESIDUAL) if quick else self._search(DEGREES):
-                    if quick:
-                        self._search(DEGREES)
+                self._quick = quick
+                if self._search(DEGREES[:1] if quick else DEGREES, SHAPE_RESIDUAL):
+                    self._quick = False
+                    self._search(DEGREES)
                     break
             if self.c is not None:
                 break
@@ -159,11 +168,7 @@ class AsymmetricBids:
         """Chebyshev values and tau-derivatives of T_0..T_{m-1}(2 tau - 1)."""
         x = 2.0 * np.asarray(tau, float) - 1.0
         V = cheb.chebvander(x, m - 1)
-        D = np.zeros_like(V)
-        eye = np.eye(m)
-        for k in range(1, m):
-            D[:, k] = 2.0 * cheb.chebval(x, cheb.chebder(eye[k]))
-        return V, D
+        return V, 2.0 * V[:, : m - 1] @ _derivative_matrix(m)
 
     def _symmetric(self, grp, values):
         """The symmetric first-price bids (score units) at score ``values`` if all N bidders were
@@ -185,6 +190,8 @@ class AsymmetricBids:
         stretched so that its top bid is a common one, at the groups' symmetric top bids in turn."""
         for share in (None, 0.25, 0.8):
             yield self._guess(m, share)
+        if getattr(self, "_quick", False):
+            return
         tau = 0.5 - 0.5 * np.cos((np.arange(m) + 0.5) * np.pi / m)
         V = self._basis(tau, m)[0]
         grids, tops = [], []
@@ -209,8 +216,15 @@ class AsymmetricBids:
         """Straight inverse bids meeting the tops at a top bid ``share`` of the way from the floor
         to the lowest top (None: (N - 1)/N, as in a symmetric auction of uniform values)."""
         L = float(np.min(self.tops - self.b0)) * ((self.N - 1.0) / self.N if share is None else share)
+        ends = self.tops.copy()
+        if self.drop is not None:
+            # where the weaker group stops, its zero bid density asks of the stronger group's
+            # markdown d_S = n_S / (n_S - 1) d_W (its first-order condition at that bid)
+            w, a = self.drop, 1 - self.drop
+            d_w = self.tops[w] - (self.b0 + L)
+            ends[a] = self.b0 + L + self.n[a] / (self.n[a] - 1.0) * d_w
         c = np.zeros((self.G, m))
-        c[:, 0] = (self.tops - self.b0 - L) / L
+        c[:, 0] = (ends - self.b0 - L) / L
         return np.concatenate([[L], c.ravel()])
 
     def _equations(self, x, tau, V, D, V1, jac, D1=None):
@@ -311,8 +325,10 @@ class AsymmetricBids:
         return x if cost < ACCEPT_COST else None
 
     def _warm(self, m):
+        """The last solution's coefficients, cut or padded to m terms."""
         c = np.zeros((self.G, m))
-        c[:, : self.m] = self.c
+        k = min(m, self.m)
+        c[:, :k] = self.c[:, :k]
         return np.concatenate([[self.L], c.ravel()])
 
     def _set(self, m, x):
@@ -378,18 +394,39 @@ class AsymmetricBids:
             return self.span_top
         return float(self._alone_bids(np.array([self.tops[self.alone]]))[0])
 
+    def _tau_table(self):
+        """Each group's inverse bid on 2,049 values of tau, to start the inversion from."""
+        if getattr(self, "_table", None) is None or self._table[0] != self.m:
+            tau = np.linspace(0.0, 1.0, 2049)
+            self._table = (self.m, tau, self.phi_at(tau)[1])
+        return self._table[1], self._table[2]
+
     def at_values(self, i, w):
         """(score bids, each group's inverse bid there: G x len) of group i's bidders at score
-        values w (at or above the floor, at most the group's top)."""
+        values w (at or above the floor, at most the group's top): phi_i(tau) = w by Newton's
+        method from the table's linear reading (phi_i rises in tau)."""
         w = np.asarray(w, float)
         above = np.zeros(w.shape, bool) if self.drop is None or i != self.alone else w > self.v_star
-        lo, hi = np.zeros(w.shape), np.ones(w.shape)
-        for _ in range(60):
-            mid = 0.5 * (lo + hi)
-            _, phi = self.phi_at(mid)
-            below = phi[i] < w
-            lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
-        b, phi = self.phi_at(0.5 * (lo + hi))
+        grid, table = self._tau_table()
+        tau = np.interp(w, table[i], grid)
+        for _ in range(6):
+            b, phi, dphi = self.at_tau(tau)
+            slope = dphi[i] * self.L * self.q * np.maximum(tau, 1e-300) ** (self.q - 1)  # d phi_i / d tau
+            with np.errstate(divide="ignore", invalid="ignore"):
+                step = np.where(slope > 0.0, (phi[i] - w) / slope, 0.0)
+            tau = np.clip(tau - step, 0.0, 1.0)
+            if np.all(np.abs(step) <= 1e-15):
+                break
+        b, phi = self.phi_at(tau)
+        # Where phi_i is flat (a group stopping with zero bid density) Newton creeps: bisect there.
+        slow = np.abs(phi[i] - w) > 1e-14 * self.scale
+        if slow.any():
+            lo, hi = np.zeros(int(slow.sum())), np.ones(int(slow.sum()))
+            for _ in range(60):
+                mid = 0.5 * (lo + hi)
+                below = self.phi_at(mid)[1][i] < w[slow]
+                lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+            b[slow], phi[:, slow] = self.phi_at(0.5 * (lo + hi))
         if above.any():
             b[above] = self._alone_bids(w[above])
             phi[:, above] = self.tops[:, None]

@@ -54,14 +54,23 @@ class _TwinGroup:
         self.m = 1.0 + group.preference if direction == "forward" else 1.0 - group.preference
         self.entry = -math.inf if floor is None else floor / self.m
         u0 = 0.0 if floor is None or self.entry <= self.model.lower else float(self.model.cdf(self.entry))
-        cuts = [u0] + [float(self.model.cdf(s)) for s in splits if self.model.lower < s < self.model.upper]
-        self.p_entry = u0
+        self.p_entry, self.floor, self.splits = u0, floor, list(splits)
+        self._nodes()
+
+    def _nodes(self):
+        cuts = [self.p_entry] + [float(self.model.cdf(s)) for s in self.splits if self.model.lower < s < self.model.upper]
         self.u, self.v, self.w = _quantile_nodes(cuts)
         self.x = self.model.value_at(self.u, self.v)
         with np.errstate(divide="ignore", invalid="ignore"):
             f = self.model.pdf(self.x)
             self.ih = np.where(f > 0.0, self.v / f, 0.0)  # (1 - F) / f
-        self.above = self.x >= self.entry if floor is not None else np.ones(self.x.shape, bool)
+        self.above = self.x >= self.entry if self.floor is not None else np.ones(self.x.shape, bool)
+
+    def split_at(self, value):
+        """Add a panel edge at ``value`` (where an integrand kinks) and rebuild the nodes."""
+        if value not in self.splits:
+            self.splits.append(value)
+            self._nodes()
 
     def cdf(self, x):
         return self.model.cdf(np.asarray(x, float))
@@ -103,8 +112,10 @@ class GroupAuction:
                   1.0 + g.preference if direction == "forward" else 1.0 - g.preference) for g in groups]
         self.groups = []
         for g, (_, m) in zip(groups, twins):
-            # where another group's chance to stay below kinks (its support's ends, in this group's values)
-            ends = [e * mk / m for mk_model, mk in twins for e in (mk_model.lower, mk_model.upper) if math.isfinite(e)]
+            # where another group's chance to stay below kinks: its support's ends, as values (the
+            # highest value's figures) and as scores met by this group's (the ranking's)
+            ends = [e * f for mk_model, mk in twins for e in (mk_model.lower, mk_model.upper) if math.isfinite(e)
+                    for f in (1.0, mk / m)]
             self.groups.append(_TwinGroup(g, direction, self.floor, ([] if self.v0 is None else [self.v0]) + ends))
         self.N = sum(g.n for g in self.groups)
         self._first = None
@@ -127,9 +138,14 @@ class GroupAuction:
     # --- first price ---------------------------------------------------------------------
     @property
     def first(self):
-        """The first-price equilibrium (:class:`asymmetric.AsymmetricBids`), solved on first use."""
+        """The first-price equilibrium (:class:`asymmetric.AsymmetricBids`), solved on first use.
+        Where the weaker of two groups stops bidding first, the stronger group's win chance kinks
+        at the value that bids the weaker group's last bid: a panel edge goes there."""
         if self._first is None:
             self._first = AsymmetricBids([ScoreGroup(g.model, g.n, g.m) for g in self.groups], self.first_floor())
+            if self._first.drop is not None:
+                alone = self.groups[self._first.alone]
+                alone.split_at(self._first.v_star / alone.m)
         return self._first
 
     def first_floor(self):
@@ -182,6 +198,8 @@ class GroupAuction:
         """Revenue mean, sd, its error estimate, and per group: win probability, payment,
         surplus; the chance that the highest value wins and the value lost (on the twin)."""
         budget.check()
+        if pricing is not R.SECOND:
+            self.first  # solved (and the nodes split where its shape needs) before any node is read
         per_group, m1, m2, err = [], 0.0, 0.0, 0.0
         win_value, top_wins = 0.0, 0.0
         for i, g in enumerate(self.groups):
@@ -322,3 +340,89 @@ def group_bids(groups, direction, reserve=None, rule="first_price", points=51, a
         numerics = {"method": "chebyshev_collocation", "foc_residual": auc.first.residual,
                     "top_evaluated_bid": _caller(direction, auc.first.top_bid)}
     return {"direction": direction, "rule": rule, "reserve": reserve, "groups": out, "numerics": numerics}
+
+
+def _top_densities(auc, i):
+    """At group i's nodes: (P(every rival below x), P(exactly one rival above x)), so that the
+    highest of all values has density sum_i n_i f_i A_i and the second highest sum_i n_i f_i B_i."""
+    g = auc.groups[i]
+    F = [h.cdf(g.x) for h in auc.groups]
+    ex = [h.n - (k == i) for k, h in enumerate(auc.groups)]
+    A = np.ones(g.x.shape)
+    for Fk, e in zip(F, ex):
+        A = A * Fk**e
+    B = np.zeros(g.x.shape)
+    for j, (Fj, ej) in enumerate(zip(F, ex)):
+        if ej == 0:
+            continue
+        term = ej * (1.0 - Fj) * Fj ** (ej - 1)
+        for k, (Fk, e) in enumerate(zip(F, ex)):
+            if k != j:
+                term = term * Fk**e
+        B = B + term
+    return A, B
+
+
+def group_top_values(groups, direction, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95)):
+    """The highest and second-highest value (reverse: lowest and second-lowest cost) across
+    groups that differ: mean, sd, quantiles, and each group's chance to hold the rank. The
+    highest of independent values has CDF H = prod_k F_k^n_k; the second highest
+    H + sum_j n_j (1 - F_j) F_j^(n_j - 1) prod_(k != j) F_k^n_k (David and Nagaraja 2003, ch. 5)."""
+    auc = GroupAuction(groups, direction)
+    sign = 1.0 if direction == "forward" else -1.0
+    moments = np.zeros((2, 3))  # rank x (mass, first, second moment)
+    shares = [[], []]
+    for i, g in enumerate(auc.groups):
+        A, B = _top_densities(auc, i)
+        for r, dens in enumerate((A, B)):
+            wd = g.n * g.w * dens
+            moments[r] += [wd.sum(), wd @ g.x, wd @ g.x**2]
+            shares[r].append(float(wd.sum()))
+    results = []
+    for r in range(2):
+        mass, m1, m2 = moments[r]
+        mean = m1 / mass
+        var = m2 / mass - mean * mean
+        qs = _rank_quantiles(auc, r + 1, [p if direction == "forward" else 1.0 - p for p in quantiles])
+        results.append({"rank": r + 1, "mean": sign * mean, "sd": math.sqrt(max(var, 0.0)) if math.isfinite(var) else None,
+                        "quantiles": [{"p": float(p), "value": sign * float(x)} for p, x in zip(quantiles, qs)],
+                        "groups": [{"name": g.name, "probability": s / mass} for g, s in zip(auc.groups, shares[r])]})
+    gap = results[0]["mean"] - results[1]["mean"]
+    return {"direction": direction, "results": results, "expected_gap": abs(gap),
+            "ranks_counted_from": "highest" if direction == "forward" else "lowest",
+            "numerics": {"method": "quantile_gauss_legendre", "abs_error": abs(1.0 - moments[0][0]) + abs(1.0 - moments[1][0])}}
+
+
+def _rank_cdf(auc, rank, x):
+    """P(the rank-th highest value <= x), rank 1 or 2."""
+    F = [g.cdf(x) for g in auc.groups]
+    H = np.ones(np.shape(x))
+    for Fk, g in zip(F, auc.groups):
+        H = H * Fk**g.n
+    if rank == 1:
+        return H
+    out = H.copy()
+    for j, (Fj, gj) in enumerate(zip(F, auc.groups)):
+        term = gj.n * (1.0 - Fj) * Fj ** (gj.n - 1)
+        for k, (Fk, gk) in enumerate(zip(F, auc.groups)):
+            if k != j:
+                term = term * Fk**gk.n
+        out = out + term
+    return out
+
+
+def _rank_quantiles(auc, rank, ps):
+    """The rank's quantiles at ps by bisection between the lowest and highest values any group holds."""
+    ps = np.asarray(ps, float)
+    if ps.size == 0:
+        return np.empty(0)
+    lo = min(float(g.model.value_at(np.array(1e-16), np.array(1.0 - 1e-16))) for g in auc.groups)
+    hi = max(float(g.model.value_at(np.array(1.0 - 1e-16), np.array(1e-16))) for g in auc.groups)
+    a, b = np.full(ps.shape, lo), np.full(ps.shape, hi)
+    for _ in range(200):
+        mid = 0.5 * (a + b)
+        below = _rank_cdf(auc, rank, mid) < ps
+        a, b = np.where(below, mid, a), np.where(below, b, mid)
+        if np.all(b - a <= 4e-16 * np.maximum(np.abs(a), np.abs(b))):
+            break
+    return 0.5 * (a + b)

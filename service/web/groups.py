@@ -120,3 +120,22 @@ def bids_handler(body):
     report = core_call(core_groups.group_bids, field_prefix=key, groups=groups, direction=direction,
                        reserve=req["reserve"], rule=req["rule"], points=req["points"] or 51, at=req["at"])
     return wording.group_bids(report, key)
+
+
+class GroupTopValuesRequest(_GroupsRequest):
+    quantiles = CappedList(StrictFloat(bound="open_probability"), 0, "quantiles",
+                           load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
+
+    @validates_schema
+    def _no_reserve(self, data, **kw):
+        if data.get("reserve") is not None:
+            raise ValidationError({"reserve": ["Not used by top values."]})
+
+
+def top_values_handler(body):
+    req = load(GroupTopValuesRequest, body)
+    groups, direction, key = _case(req)
+    admission.admit(work=_work(req), numbers=2 * (6 + 2 * len(req["quantiles"]) + 2 * len(groups)), field=key)
+    report = core_call(core_groups.group_top_values, field_prefix=key, groups=groups, direction=direction,
+                       quantiles=req["quantiles"])
+    return wording.group_top_values(report)

@@ -181,3 +181,69 @@ def text_error(err, status=422):
     """One plain line naming every offending parameter."""
     line = "; ".join(f"{e['field']}: {e['message']}" for e in flatten(err.messages))
     return Response(f"error: {line}\n", status=status, mimetype="text/plain")
+
+
+#: A group's flat names after its prefix ``group<k>_`` (k from 1): name, count, preference, the model.
+GROUP_FIELDS = ("name", "count", "preference", "family")
+
+
+def group_keys(most):
+    """Every flat group name for up to ``most`` groups: group1_name, group1_count, group1_low..."""
+    return {f"group{k}_{f}" for k in range(1, most + 1) for f in (*GROUP_FIELDS, *model_keys())}
+
+
+def asks_for_groups(args):
+    return any(key.startswith("group") and "_" in key for key in args)
+
+
+def groups_body(args, door, errors, most):
+    """``bidder_groups`` (forward) or ``cost_groups`` (reverse) from group1_..., group2_..., in order."""
+    out = []
+    for k in range(1, most + 1):
+        prefix = f"group{k}_"
+        given = {key.removeprefix(prefix): raw for key, raw in args.items() if key.startswith(prefix)}
+        if not given:
+            continue
+        if len(out) != k - 1:
+            errors[f"group{k}_name"] = [f"Groups are numbered from 1 without gaps; group{len(out) + 1} is missing."]
+        group, model = {}, {"family": given.get("family")}
+        if model["family"] not in M.PARAMETRIC:
+            errors[f"{prefix}family"] = [f"One of the parametric families: {', '.join(sorted(M.PARAMETRIC))}."]
+        for key, raw in given.items():
+            if key == "name":
+                group["name"] = raw
+            elif key in ("count", "preference"):
+                group[key] = door.number(prefix + key, raw, errors)
+            elif key.startswith("truncate_"):
+                model.setdefault("truncate", {})[key.removeprefix("truncate_")] = door.number(prefix + key, raw, errors)
+            elif key != "family":
+                model[key] = door.number(prefix + key, raw, errors)
+        group["bidder_values" if direction(args, {}) == "forward" else "bidder_costs"] = model
+        out.append(group)
+    return {("bidder_groups" if direction(args, {}) == "forward" else "cost_groups"): out}
+
+
+def flat_group_errors(err):
+    """A group request's errors under the flat names: cost_groups.0.bidder_costs.low is group1_low."""
+    messages = err.messages
+    if not isinstance(messages, dict):
+        return err
+    out = {}
+    for key, val in messages.items():
+        if key in ("bidder_groups", "cost_groups") and isinstance(val, dict):
+            for i, fields_ in val.items():
+                prefix = f"group{int(i) + 1}_"
+                for f, v in (fields_.items() if isinstance(fields_, dict) else [("name", fields_)]):
+                    if f in ("bidder_values", "bidder_costs") and isinstance(v, dict):
+                        for mk, mv in v.items():
+                            if mk == "truncate" and isinstance(mv, dict):
+                                out.update({f"{prefix}truncate_{tk}": tv for tk, tv in mv.items()})
+                            else:
+                                out[prefix + mk] = mv
+                    else:
+                        out[prefix + f] = v
+        elif key in ("bidder_groups", "cost_groups"):
+            out["groups"] = val
+        else:
+            out[key] = val
+    return flat_errors(ValidationError(out))

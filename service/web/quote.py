@@ -13,6 +13,7 @@ from marshmallow import ValidationError
 
 from ..core.budget import BudgetSpent
 from . import auctions, query, top_values, wording
+from .fields import caps
 from .io import json_response
 from .problems import spent_error, validation_problem
 
@@ -25,7 +26,10 @@ METRICS = {
     "expected_winner_surplus": None, "efficiency": None, "optimal_reserve": None,
     "mean_highest": "forward", "mean_second": "forward",
     "mean_lowest": "reverse", "mean_second_lowest": "reverse", "expected_gap": None,
+    "win_probability": None,
 }
+#: Metrics a quote for bidder groups answers (win_probability needs ``group``, a group's name).
+GROUP_METRICS = {m for m in METRICS if m not in ("optimal_reserve", "expected_winner_surplus")}
 _CASE_KEYS = ("bidders", "reserve", "seller_value", "buyer_value")
 
 
@@ -38,6 +42,51 @@ def _rule(args, door, errors):
     if len(names) != 1:
         errors[given[0]] = ["A quote is one number: give one rule (a sweep takes several)."]
     return names[0]
+
+
+def _group_body_from_query(args, door):
+    """(metric, direction, rule, POST body, the group asked) for bidder groups, or ValidationError."""
+    errors = {}
+    most = caps().groups
+    query.unknown(args, {"metric", "rule", "rules", "direction", "group", "reserve", "seller_value", "buyer_value",
+                         *query.group_keys(most)}, errors)
+    metric = args.get("metric")
+    if metric not in GROUP_METRICS:
+        errors["metric"] = [f"With bidder groups one of: {', '.join(sorted(GROUP_METRICS))}."]
+    if metric == "win_probability" and "group" not in args:
+        errors["group"] = ["win_probability is one group's: give group, the group's name."]
+    rule = _rule(args, door, errors)
+    body = query.groups_body(args, door, errors, most)
+    for key in ("reserve", "seller_value", "buyer_value"):
+        if key in args:
+            body[key] = door.number(key, args[key], errors)
+    direction = query.direction(args, {})
+    if "metric" not in errors and METRICS.get(metric) not in (None, direction) and "direction" not in errors:
+        errors["metric"] = [f"{metric} belongs to a {METRICS[metric]} auction; set direction={METRICS[metric]} or pick another metric."]
+    if errors:
+        raise ValidationError(errors)
+    return metric, direction, rule, body, args.get("group")
+
+
+def _group_value(metric, direction, rule, body, group):
+    """One group quote: from the group revenue report, or the group top values."""
+    key = "bidder_groups" if direction == "forward" else "cost_groups"
+    if metric in ("mean_highest", "mean_second", "mean_lowest", "mean_second_lowest", "expected_gap"):
+        for k in ("reserve", "seller_value", "buyer_value"):
+            if k in body:
+                raise ValidationError({k: ["Not used by this metric."]})
+        out = top_values.top_values_handler({**body, "quantiles": []})
+        by_rank = {r["rank"]: r["mean"] for r in out["results"]}
+        first, second = ("mean_highest", "mean_second") if direction == "forward" else ("mean_lowest", "mean_second_lowest")
+        return {first: by_rank[1], second: by_rank[2], "expected_gap": out["expected_gap"]}[metric], []
+    out = auctions.revenue_handler({**body, "rules": [rule]})
+    result = out["results"][0]
+    if metric == "win_probability":
+        names = [g["name"] for g in body[key]]
+        if group not in names:
+            raise ValidationError({"group": [f"One of the groups' names: {', '.join(names)}."]})
+        return result["groups"][names.index(group)]["win_probability"], []
+    return result[metric], []
 
 
 def _body_from_query(args, door):
@@ -99,14 +148,18 @@ def get_quote():
     try:
         if errors:
             raise ValidationError(errors)
-        metric, direction, rule, body = _body_from_query(request.args, door)
-        value, warnings = _value(metric, direction, rule, body)
+        if query.asks_for_groups(request.args):
+            metric, direction, rule, body, group = _group_body_from_query(request.args, door)
+            value, warnings = _group_value(metric, direction, rule, body, group)
+        else:
+            metric, direction, rule, body = _body_from_query(request.args, door)
+            value, warnings = _value(metric, direction, rule, body)
         if value is None or not math.isfinite(value):
             raise ValidationError({"metric": ["This figure does not exist for the model given: " + "; ".join(warnings or ["no value"])]})
     except BudgetSpent:
         return validation_problem(spent_error()) if as_json and not door.inline else door.error(spent_error())
     except ValidationError as err:
-        err = query.flat_errors(err)
+        err = query.flat_group_errors(err) if query.asks_for_groups(request.args) else query.flat_errors(err)
         return validation_problem(err) if as_json and not door.inline else door.error(err)
     if as_json:
         return json_response({"metric": metric, "value": value, "direction": direction, "rule": rule, "warnings": warnings})

@@ -6,7 +6,7 @@ from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from ..core import topvalues
 from .fields import WORK_PER_DRAW, BiddersField, MonteCarlo, count_work, CappedList, StrictFloat, StrictInteger, ValueModelField, most_bidders
-from . import admission
+from . import admission, groups
 from .io import core_call, load, register_posts
 
 bp = Blueprint("top_values", __name__)
@@ -64,6 +64,8 @@ class JointDensityRequest(Schema):
 
 
 def top_values_handler(body):
+    if groups.asks_for_groups(body):
+        return groups.top_values_handler(body)
     req = load(TopValuesRequest, body)
     ranks, curve = len(req["ranks"] or [1, 2]), req["curve_points"]
     name = "bidder_values" if "bidder_values" in req else "bidder_costs"

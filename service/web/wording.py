@@ -277,3 +277,9 @@ def group_bids(report, key):
         "asymmetric first-price auction solved as a boundary-value problem (Krishna 2009, ch. 4; Fibich and Gavish "
         "2011); numerics.foc_residual is the largest residual of those conditions")
     return {**out, "note": note, "assumptions": GROUP_ASSUMPTIONS[d]}
+
+
+def group_top_values(report):
+    """/v1/top-values' answer for bidder groups (ranks 1 and 2 across the groups)."""
+    d = report["direction"]
+    return {**_named(_group_finite(report), d), "assumptions": GROUP_ASSUMPTIONS[d][:1]}
