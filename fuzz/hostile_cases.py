@@ -639,8 +639,49 @@ def count_cases():
     ]
 
 
+def group_cases():
+    """Bidder groups at and past their caps, with hostile models, preferences and reserves."""
+    g = "groups"
+    U = {"family": "uniform", "low": 0, "high": 1}
+
+    def grp(i, model=None, count=1, preference=0.0, key="bidder_values"):
+        return {"name": f"g{i}", "count": count, key: model or U, "preference": preference}
+
+    six = [grp(i, mixture(MAX_COMPONENTS // 6)) for i in range(6)]
+    many = [grp(i, {"family": "uniform", "low": 0, "high": 1 + 0.1 * i}, count=1000) for i in range(6)]
+    return [
+        post(g, "six groups of mixtures, every rule but all-pay", "/v1/revenue", {"bidder_groups": six}, heavy=True),
+        post(g, "seven groups: past the cap", "/v1/revenue", {"bidder_groups": [grp(i) for i in range(7)]}),
+        post(g, "six groups of 1,000 bidders, first price", "/v1/revenue", {"bidder_groups": many, "rules": ["first_price"]},
+             heavy=True),
+        post(g, "two groups, a preference of 1e150", "/v1/revenue", {"bidder_groups": [grp(0, preference=1e150), grp(1)]}),
+        post(g, "two groups, a preference of 1e-300", "/v1/revenue", {"bidder_groups": [grp(0, preference=1e-300), grp(1)]}),
+        post(g, "two cost groups, a preference just below 1", "/v1/revenue",
+             {"cost_groups": [grp(0, key="bidder_costs", preference=1 - 1e-16), grp(1, key="bidder_costs")]}),
+        post(g, "two groups, a reserve at the top", "/v1/revenue", {"bidder_groups": [grp(0), grp(1)], "reserve": 1.0}),
+        post(g, "two groups, a reserve above everything", "/v1/revenue",
+             {"bidder_groups": [grp(0), grp(1, {"family": "uniform", "low": 0, "high": 2})], "reserve": 1e150}),
+        post(g, "two groups, values 1e-300 apart", "/v1/revenue",
+             {"bidder_groups": [grp(0, {"family": "uniform", "low": 1, "high": 1 + 1e-15}),
+                                grp(1, {"family": "uniform", "low": 1, "high": 1 + 2e-15})], "rules": ["first_price"]}),
+        post(g, "groups of different directions", "/v1/revenue", {"bidder_groups": [grp(0), grp(1, key="bidder_costs")]}),
+        post(g, "a heavy-tailed group (Pareto 1.5)", "/v1/revenue",
+             {"bidder_groups": [grp(0), grp(1, {"family": "pareto", "shape": 1.5, "minimum": 1})]}),
+        post(g, "groups and bidders at once", "/v1/revenue", {"bidder_groups": [grp(0), grp(1)], "bidders": 3}),
+        post(g, "top values of six groups, 200 quantiles", "/v1/top-values",
+             {"bidder_groups": six, "quantiles": [(i + 0.5) / 200 for i in range(200)]}, heavy=True),
+        post(g, "bids of two groups at 10,000 values", "/v1/bid-strategy",
+             {"bidder_groups": [grp(0, count=3), grp(1, {"family": "uniform", "low": 0, "high": 1.5}, count=3)],
+              "at": [i / 10000 for i in range(10000)]}, heavy=True),
+        get(g, "a quote with groups numbered 1 and 3", "/v1/quote",
+            [("metric", "expected_revenue"), ("group1_name", "a"), ("group1_count", 2), ("group1_family", "uniform"),
+             ("group1_low", 0), ("group1_high", 1), ("group3_name", "c"), ("group3_count", 2), ("group3_family", "uniform"),
+             ("group3_low", 0), ("group3_high", 1)]),
+    ]
+
+
 def all_cases(seed, random_count):
     """Every group in order, the heavy cases first so that the light ones fill the gaps."""
-    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + count_cases() + door_cases() + \
+    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + count_cases() + group_cases() + door_cases() + \
         random_cases(seed, random_count)
     return [c for c in cases if c.heavy] + [c for c in cases if not c.heavy]

@@ -224,7 +224,8 @@ class AsymmetricBids:
             d_w = self.tops[w] - (self.b0 + L)
             ends[a] = self.b0 + L + self.n[a] / (self.n[a] - 1.0) * d_w
         c = np.zeros((self.G, m))
-        c[:, 0] = (ends - self.b0 - L) / L
+        with np.errstate(all="ignore"):
+            c[:, 0] = (ends - self.b0 - L) / L
         return np.concatenate([[L], c.ravel()])
 
     def _equations(self, x, tau, V, D, V1, jac, D1=None):
@@ -296,6 +297,10 @@ class AsymmetricBids:
         return None
 
     def _newton(self, x, tau, V, D, V1):
+        with np.errstate(all="ignore"):  # a failed start is a None, not a warning
+            return self._newton_steps(x, tau, V, D, V1)
+
+    def _newton_steps(self, x, tau, V, D, V1):
         F, ok = self._equations(x, tau, V, D, V1, jac=False)
         if not ok:
             return None

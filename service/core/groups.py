@@ -198,6 +198,12 @@ class GroupAuction:
         """Revenue mean, sd, its error estimate, and per group: win probability, payment,
         surplus; the chance that the highest value wins and the value lost (on the twin)."""
         budget.check()
+        if self.p_sale() == 0.0:  # the reserve is beyond every group's values: nothing is sold
+            gains = self._highest_value()[1]
+            return {"mean": 0.0, "sd": 0.0, "err": 0.0, "p_sale": 0.0, "probability_highest_value_wins": 0.0,
+                    "expected_value_lost": 0.0, "efficiency": 0.0 if gains else None,
+                    "groups": [{"name": g.name, "win_probability": 0.0, "expected_payment": 0.0, "expected_surplus": 0.0}
+                               for g in self.groups]}
         if pricing is not R.SECOND:
             self.first  # solved (and the nodes split where its shape needs) before any node is read
         per_group, m1, m2, err = [], 0.0, 0.0, 0.0
@@ -273,16 +279,25 @@ def _caller(direction, score):
 def group_report(groups, direction, reserve=None, own_value=None, rules=None):
     """Revenue (or payment) figures of each rule asked (default: second price, ascending, first
     price, descending) for groups that differ, in the caller's sign, under the core's names."""
+    asked = rules is not None
     rules = [r for r in R.names() if R.get(r).pricing is not R.ALL_PAY] if rules is None else list(rules)
     _check_rules(rules)
     auc = GroupAuction(groups, direction, reserve, own_value)
     sign = 1.0 if direction == "forward" else -1.0
-    shared, results, err = {}, [], 0.0
+    shared, results, err, warnings = {}, [], 0.0, []
     for name in rules:
         pricing = R.get(name).pricing
         if pricing.name not in shared:
-            shared[pricing.name] = auc.figures(pricing)
+            try:
+                shared[pricing.name] = auc.figures(pricing)
+            except ParameterError as e:
+                if asked:  # a rule the caller named: its refusal is the answer
+                    raise
+                shared[pricing.name] = None  # a default rule: left out, and the warning says why
+                warnings.append(f"the bid-priced rules are left out: {e.message}")
         f = shared[pricing.name]
+        if f is None:
+            continue
         err = max(err, f["err"])
         results.append({
             "rule": name,
@@ -301,7 +316,7 @@ def group_report(groups, direction, reserve=None, own_value=None, rules=None):
         numerics.update({"foc_residual": first.residual, "collocation_points": first.m,
                          "top_evaluated_bid": _caller(direction, first.top_bid)})
     return {"direction": direction, "reserve": reserve, "results": results, "numerics": numerics,
-            "first_vs_second": _first_vs_second(results, direction)}
+            "first_vs_second": _first_vs_second(results, direction), "warnings": warnings}
 
 
 def _first_vs_second(results, direction):

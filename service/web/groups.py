@@ -49,9 +49,10 @@ class _GroupsRequest(Schema):
                 raise ValidationError({key: {i: {own: ["Bidder groups need a model whose variance exists (a tail index "
                                                        "above 2): the surpluses, spreads and values lost are integrals "
                                                        "of it; give a lighter tail or truncate the model."]}}})
-            if key == "cost_groups" and not g["preference"] < 1.0:
-                raise ValidationError({key: {i: {"preference": ["Must be below 1 in reverse (a bid b is ranked as "
-                                                                "(1 - preference) b)."]}}})
+            if not g["preference"] < 1.0:
+                rank = "(1 - preference) b" if key == "cost_groups" else "(1 + preference) b"
+                raise ValidationError({key: {i: {"preference": [f"Must be below 1 (a bid b is ranked as {rank}; a "
+                                                                "preference is a share of the bid)."]}}})
             if g["name"] in names:
                 raise ValidationError({key: {i: {"name": ["Each group's name at most once."]}}})
             names.add(g["name"])
