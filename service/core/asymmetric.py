@@ -39,7 +39,7 @@ from .errors import ParameterError
 #: Collocation points per group, tried in turn until the residual of the first-order
 #: conditions between the nodes is below FOC_TOLERANCE.
 DEGREES = (24, 40, 64, 96)
-FOC_TOLERANCE = 1e-10
+FOC_TOLERANCE = 1e-9
 #: A least-squares solution is taken (and judged by its residual between the nodes) when the
 #: sum of squares of its collocation residuals is below this.
 ACCEPT_COST = 1e-10
@@ -94,7 +94,7 @@ class AsymmetricBids:
         # at the common top bid), "drop" (its top value with zero bid density: it stops bidding
         # there while a stronger group of several bidders bids on alone) or "free".
         self.ends, self.drop = ["top"] * self.G, None
-        modes = [None] + self._drop_candidates()
+        modes = self._drop_candidates() + [None]
         # The shape (which group, if any, stops first) is chosen at the fewest points from straight
         # starting bids, where a solve is cheap, and then refined; a shape not found so is tried
         # once more from every start, with more points.
@@ -118,11 +118,14 @@ class AsymmetricBids:
         self.top_bid = self._top_bid()
 
     def _drop_candidates(self):
-        """With two groups, the one that may stop bidding first: each in turn whose rival group holds
-        several bidders (a lone rival above it would face no competition)."""
-        if self.G != 2:
+        """With two groups, the one that may stop bidding first: the one whose values end lower,
+        against a group of several bidders (a lone rival above it would face no competition).
+        Tried before the common top: where several bidders in the stronger group compete, it is
+        the usual shape."""
+        if self.G != 2 or self.tops[0] == self.tops[1]:
             return []
-        return [i for i in range(2) if self.n[1 - i] >= 2]
+        weak = int(np.argmin(self.tops))
+        return [weak] if self.n[1 - weak] >= 2 else []
 
     def _mode(self, weak):
         """Set the shape: every group to the common top (weak None), or group ``weak`` stopping first."""
