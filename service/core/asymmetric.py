@@ -104,7 +104,14 @@ class AsymmetricBids:
                 self._quick = quick
                 if self._search(DEGREES[:1] if quick else DEGREES, SHAPE_RESIDUAL):
                     self._quick = False
-                    self._search(DEGREES)
+                    found = (self.m, np.concatenate([[self.L], self.c.ravel()]), self.residual)
+                    # refine from the shape found, with as many points at least
+                    if not self._search([m for m in DEGREES if m >= found[0]]) or self.residual > found[2]:
+                        self._set(found[0], found[1])
+                        self.residual = found[2]
+                        if self.residual > ACCEPT_RESIDUAL:
+                            self.c = None
+                            continue
                     break
             if self.c is not None:
                 break
