@@ -1,7 +1,13 @@
 """Shared fixtures: an in-process app and its test client."""
-import pytest
+import os
 
-from service import create_app
+# One BLAS thread, as each gunicorn worker runs (gunicorn.conf.py): with two threads on a busy
+# two-CPU machine small least-squares solves (bidder groups) run ten times slower.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import pytest  # noqa: E402
+
+from service import create_app  # noqa: E402
 
 
 @pytest.fixture(scope="session")

@@ -99,7 +99,9 @@ class AsymmetricBids:
         # starting bids, where a solve is cheap, and then refined; a shape not found so is tried
         # once more from every start, with more points.
         for quick in (True, False):
-            for weak in modes:
+            # the full pass tries the common top first: a shape the quick pass missed is more often
+            # that one (a reserve cutting into the values makes it harder to start)
+            for weak in (modes if quick else modes[::-1]):
                 self._mode(weak)
                 self._quick = quick
                 if self._search(DEGREES[:1] if quick else DEGREES, SHAPE_RESIDUAL):
