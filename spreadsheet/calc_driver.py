@@ -45,6 +45,11 @@ QUOTES = (
     # 7/8 exactly: three digits after the mark, which a comma locale's VALUE() reads as a
     # thousands group (875) when the answer comes with a point.
     {"metric": "mean_highest", "bidders": 7, "family": "uniform", "low": 0, "high": 1},
+    # bidder groups, flat: a local group with a 5% preference against a national one
+    {"metric": "expected_payment", "direction": "reverse", "rule": "first_price", "reserve": 125.5,
+     "group1_name": "local", "group1_count": 3, "group1_family": "uniform", "group1_low": 80, "group1_high": 140,
+     "group1_preference": 0.05, "group2_name": "national", "group2_count": 2, "group2_family": "uniform",
+     "group2_low": 70, "group2_high": 130},
 )
 #: The quote whose inputs sit in cells; the URL is concatenated from them.
 FROM_CELLS = {"metric": "expected_revenue", "rule": "first_price", "family": "lognormal",
