@@ -615,10 +615,41 @@ ROUTES = {
 }
 
 
+def groups(req, ans):
+    """Bidder groups: probabilities in [0, 1], sds not negative, the groups' win chances summing
+    to the chance of a sale, the payments to the expected revenue, and a winner that is the
+    highest-value bidder no more often than there is a sale."""
+    f = Findings()
+    for r in ans.get("results") or []:
+        rule = r.get("rule")
+        rev = r.get("expected_revenue", r.get("expected_payment"))
+        sale = r.get("probability_of_sale", r.get("probability_of_award"))
+        best = r.get("probability_highest_value_wins", r.get("probability_lowest_cost_wins"))
+        sd = r.get("revenue_sd", r.get("payment_sd"))
+        for name, p in (("probability_of_sale", sale), ("probability_highest_value_wins", best), ("efficiency", r.get("efficiency"))):
+            _probability(f, (name, rule), p)
+        if sd is not None:
+            f.need(sd >= 0.0, ("revenue_sd", rule), f"{rule}: sd {sd!r} < 0")
+        wins = [g.get("win_probability") for g in r.get("groups") or []]
+        pays = [g.get("expected_payment") for g in r.get("groups") or []]
+        for w in wins:
+            _probability(f, ("win_probability", rule), w)
+        if sale is not None and None not in wins:
+            f.need(abs(sum(wins) - sale) <= 1e-6, ("win_probability", rule), f"{rule}: win chances sum to {sum(wins)!r}, sale {sale!r}")
+        if rev is not None and None not in pays:
+            f.need(abs(sum(pays) - rev) <= 1e-9 * _scale(rev, *pays), ("expected_payment", rule),
+                   f"{rule}: payments sum to {sum(pays)!r}, revenue {rev!r}")
+        if best is not None and sale is not None:
+            f.need(best <= sale + 1e-9, ("probability_highest_value_wins", rule), f"{rule}: highest value wins {best!r} > sale {sale!r}")
+    return f.unflagged(ans.get("warnings"))
+
+
 def problems(path, req, ans):
     """The unflagged self-consistency failures of a 200 JSON answer to POST ``path``."""
     if not isinstance(req, dict) or not isinstance(ans, dict):
         return []
+    if "bidder_groups" in req or "cost_groups" in req:
+        return groups(req, ans) if path == "/v1/revenue" else []
     if path == "/v1/batch":
         out = []
         for i, (item, reply) in enumerate(zip(req.get("requests", []), ans.get("responses", []))):

@@ -75,3 +75,13 @@ def test_draws_over_the_cap_are_refused(client):
     r = client.post("/v1/revenue", json={"bidder_values": {"family": "uniform", "low": 0, "high": 1}, "bidders": 3,
                                          "monte_carlo": {"draws": 1_000_001}})
     assert r.status_code == 422 and [e["field"] for e in r.get_json()["errors"]] == ["monte_carlo.draws"]
+
+
+def test_overflowing_draws_are_null_not_a_500(client):
+    # Found by the schema fuzzer: all-pay payments of costs lognormal with sigma 3 overflow in a few
+    # draws; the check's figures are then null, and the answer strict JSON.
+    r = client.post("/v1/revenue", json={"bidder_costs": {"family": "lognormal", "median": 1.0, "sigma": 3}, "bidders": 2,
+                                         "rules": ["all_pay"], "monte_carlo": {"draws": 3, "seed": 2}})
+    assert r.status_code == 200
+    fig = r.get_json()["monte_carlo"]["results"]["all_pay"]["expected_payment"]
+    assert fig["estimate"] is None and fig["z"] is None

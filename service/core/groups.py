@@ -116,7 +116,8 @@ class GroupAuction:
             # highest value's figures) and as scores met by this group's (the ranking's)
             ends = [e * f for mk_model, mk in twins for e in (mk_model.lower, mk_model.upper) if math.isfinite(e)
                     for f in (1.0, mk / m)]
-            self.groups.append(_TwinGroup(g, direction, self.floor, ([] if self.v0 is None else [self.v0]) + ends))
+            kinks = [float(k) for k in model_kinks(twins)]
+            self.groups.append(_TwinGroup(g, direction, self.floor, ([] if self.v0 is None else [self.v0]) + ends + kinks))
         self.N = sum(g.n for g in self.groups)
         self._first = None
 
@@ -170,7 +171,7 @@ class GroupAuction:
         where = "a reserve at or above" if self.direction == "forward" else "a maximum price at or below"
         raise ParameterError("reserve", f"under first price every group must start bidding at one score: give {where} "
                                         f"{_caller(self.direction, max(lows)):g} (the groups' lowest evaluated "
-                                        f"{'values' if self.direction == 'forward' else 'costs'} differ)")
+                                        f"{'values' if self.direction == 'forward' else 'highest costs'} differ)")
 
     def _at_values(self, i):
         """(score bid, each group's inverse bid there) at group i's nodes that take part."""
@@ -232,17 +233,17 @@ class GroupAuction:
             for k, h in enumerate(self.groups):
                 best = best * h.cdf(np.minimum(g.x, thresholds[k])) ** (h.n - (k == i))
             top_wins += g.n * float(g.w @ np.where(g.above, best, 0.0))
-            per_group.append({"name": g.name, "win_probability": g.n * win, "expected_payment": g.n * e1,
+            per_group.append({"name": g.name, "win_probability": _prob(g.n * win), "expected_payment": g.n * e1,
                               "expected_surplus": g.n * float(g.w @ np.where(g.above, surplus, 0.0))})
         var = m2 - m1 * m1
         sd = math.sqrt(max(var, 0.0)) if math.isfinite(var) else None
         max_value, gains_max = self._highest_value()
         p_sale = self.p_sale()
         out = {"mean": m1, "sd": sd, "err": err, "groups": per_group, "p_sale": p_sale,
-               "probability_highest_value_wins": top_wins, "expected_value_lost": max_value - win_value}
+               "probability_highest_value_wins": _prob(top_wins), "expected_value_lost": max(max_value - win_value, 0.0)}
         out["efficiency"] = None
         if gains_max is not None and gains_max > 0.0:
-            out["efficiency"] = (win_value - self.v0 * p_sale) / gains_max
+            out["efficiency"] = _prob((win_value - self.v0 * p_sale) / gains_max)
         return out
 
     def _highest_value(self):
@@ -269,6 +270,21 @@ class GroupAuction:
         eq = self.first
         w = g.m * np.asarray(x, float)
         return eq.bids(i, np.minimum(w, eq.tops[i])) / g.m
+
+
+def model_kinks(twins):
+    """Every group's kinks (a mixture's components' ends, a table's knots), as values and as the
+    scores other groups meet them at: their chances to stay below kink there too."""
+    out = []
+    for model, mk in twins:
+        for k in model.kink_values():
+            out += [k * mk / m for _, m in twins]
+    return out
+
+
+def _prob(p):
+    """A probability integrated by quadrature, kept within [0, 1] against rounding."""
+    return min(max(p, 0.0), 1.0)
 
 
 def _caller(direction, score):
@@ -331,9 +347,15 @@ def _first_vs_second(results, direction):
 
 def group_bids(groups, direction, reserve=None, rule="first_price", points=51, at=None):
     """Each group's equilibrium bids at ``at`` values (or ``points`` across its support)."""
-    _check_rules([rule])
+    if R.get(rule, "rule").pricing is R.ALL_PAY:
+        raise ParameterError("rule", "all-pay with bidder groups is not offered; ask for another rule")
     auc = GroupAuction(groups, direction, reserve)
     pricing = R.get(rule, "rule").pricing
+    if not pricing.truthful:
+        try:
+            auc.first
+        except ParameterError as e:
+            raise ParameterError("rule" if e.field == "rules" else e.field, e.message) from None
     out = []
     for i, (g, tw) in enumerate(zip(groups, auc.groups)):
         if at is not None:
@@ -401,7 +423,7 @@ def group_top_values(groups, direction, quantiles=(0.05, 0.25, 0.5, 0.75, 0.95))
         qs = _rank_quantiles(auc, r + 1, [p if direction == "forward" else 1.0 - p for p in quantiles])
         results.append({"rank": r + 1, "mean": sign * mean, "sd": math.sqrt(max(var, 0.0)) if math.isfinite(var) else None,
                         "quantiles": [{"p": float(p), "value": sign * float(x)} for p, x in zip(quantiles, qs)],
-                        "groups": [{"name": g.name, "probability": s / mass} for g, s in zip(auc.groups, shares[r])]})
+                        "groups": [{"name": g.name, "probability": _prob(s / mass)} for g, s in zip(auc.groups, shares[r])]})
     gap = results[0]["mean"] - results[1]["mean"]
     return {"direction": direction, "results": results, "expected_gap": abs(gap),
             "ranks_counted_from": "highest" if direction == "forward" else "lowest",

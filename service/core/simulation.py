@@ -114,13 +114,14 @@ class _Tally:
         x = np.asarray(x, float)
         if self.shift is None:
             self.shift = float(np.mean(x))  # sums of powers about a first guess keep their digits
-        d = x - self.shift
-        self.n += d.size
-        self.s1 += float(d.sum())
-        d2 = d * d
-        self.s2 += float(d2.sum())
-        self.s3 += float((d2 * d).sum())
-        self.s4 += float((d2 * d2).sum())
+        with np.errstate(invalid="ignore", over="ignore"):  # overflowing draws: the figure is null (_entry)
+            d = x - self.shift
+            self.n += d.size
+            self.s1 += float(d.sum())
+            d2 = d * d
+            self.s2 += float(d2.sum())
+            self.s3 += float((d2 * d).sum())
+            self.s4 += float((d2 * d2).sum())
 
     def mean(self):
         m = self.s1 / self.n
@@ -137,8 +138,12 @@ class _Tally:
 
 
 def _entry(estimate, se, exact):
+    """One figure's check; null where the draws' sums left the double range (draws of a tail so
+    heavy that a payment is infinite, or their difference undefined)."""
+    if not (math.isfinite(estimate) and math.isfinite(se)):
+        return {"estimate": None, "standard_error": None, "z": None}
     z = None if exact is None or not se > 0 else (estimate - exact) / se
-    return {"estimate": estimate, "standard_error": se, "z": z}
+    return {"estimate": estimate, "standard_error": se, "z": z if z is None or math.isfinite(z) else None}
 
 
 def revenue_check(auc, rules, draws, seed, exact, sign):

@@ -63,7 +63,7 @@ class _GroupsRequest(Schema):
         if fwd is not None and data.get("buyer_value") is not None:
             raise ValidationError({"buyer_value": ["Only for a reverse auction (cost_groups); a forward one takes seller_value."]})
         if rev is not None and data.get("seller_value") is not None:
-            raise ValidationError({"seller_value": ["Only for a reverse auction's twin: cost_groups take buyer_value."]})
+            raise ValidationError({"seller_value": ["Only for a forward auction (bidder_groups); cost_groups take buyer_value."]})
 
 
 class GroupRevenueRequest(_GroupsRequest):
