@@ -403,3 +403,10 @@ def test_group_answers_pass_the_fuzz_consistency_laws(client):
         assert consistency.groups(body, ans) == []
         r = ans["results"][0]
         assert sum(g["win_probability"] for g in r["groups"]) == pytest.approx(1.0, abs=1e-12)
+
+
+def test_bids_with_a_reserve_above_every_value_are_null(client):
+    r = client.post("/v1/bid-strategy", json={"bidder_groups": [{"name": "a", "count": 1, "bidder_values": _U},
+                                                                {"name": "b", "count": 1, "bidder_values": _U}],
+                                              "reserve": 500, "points": 3})
+    assert r.status_code == 200 and all(b is None for g in r.get_json()["groups"] for b in g["bids"])

@@ -351,7 +351,7 @@ def group_bids(groups, direction, reserve=None, rule="first_price", points=51, a
         raise ParameterError("rule", "all-pay with bidder groups is not offered; ask for another rule")
     auc = GroupAuction(groups, direction, reserve)
     pricing = R.get(rule, "rule").pricing
-    if not pricing.truthful:
+    if not pricing.truthful and auc.p_sale() > 0.0:  # with nothing to sell nobody bids: no equilibrium to solve
         try:
             auc.first
         except ParameterError as e:
@@ -373,7 +373,7 @@ def group_bids(groups, direction, reserve=None, rule="first_price", points=51, a
         out.append({"name": g.name, "values": grid.tolist(),
                     "bids": [float(v) if ok and math.isfinite(v) else None for v, ok in zip(b.tolist(), takes_part.tolist())]})
     numerics = None
-    if not pricing.truthful:
+    if not pricing.truthful and auc.p_sale() > 0.0:
         numerics = {"method": "chebyshev_collocation", "foc_residual": auc.first.residual,
                     "top_evaluated_bid": _caller(direction, auc.first.top_bid)}
     return {"direction": direction, "rule": rule, "reserve": reserve, "groups": out, "numerics": numerics}
