@@ -362,7 +362,11 @@ def millbrook(bs):
     print(table(["tender", "bidders", "expected payment", "P(award)", "optimal max price"], rows))
 
     fit_section(bs, s, "Past tenders to a cost model: every sealed bid of 24 first-price tenders")
+    groups_section(bs, s)
 
+
+def groups_section(bs, s):
+    """The county's contractors in two groups: payment per rule and each group's tenders."""
     body = load(s, "groups-revenue")
     out = bs.group_revenue(body["cost_groups"], **{k: v for k, v in body.items() if k != "cost_groups"})
     names = [g["name"] for g in body["cost_groups"]]
