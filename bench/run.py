@@ -780,6 +780,22 @@ def section_fits(ctx):
     ctx["fits"] = {"fit": t_fit, "gpv": t_gpv, "boot": t_boot, "gpv_bids": count}
 
 
+def _group_summary_rows(get, row):
+    """The bidder-groups section's lines of the summary (none when it did not run)."""
+    if get("groups_missing") is None:
+        return []
+    out = []
+    if get("groups_service_max") is not None:
+        out.append(row("first price, bidder groups: the service's slowest answered case", fmt_time(get("groups_service_max")),
+                       "<= 50 ms", get("groups_service_max") <= 0.05))
+    if get("groups_ratio_min") is not None:
+        out.append(row("first price, bidder groups: shooting time / service (least)", f"{get('groups_ratio_min'):.1f}x",
+                       ">= 20x", get("groups_ratio_min") >= 20))
+    missing, total = get("groups_missing")
+    out.append(row("first price, bidder groups: cases the service did not answer", f"{missing} of {total}", "(reported)", None))
+    return out
+
+
 def section_summary(ctx):
     """Every headline figure of this run in one table, against its target."""
     heading("Summary of this run")
@@ -826,15 +842,7 @@ def section_summary(ctx):
     if get("counts_ratio") is not None:
         rows.append(row("Poisson count (mean 8) / fixed count of 8, five rules (worst model)", f"{get('counts_ratio'):.1f}x", "<= 4x",
                         get("counts_ratio") <= 4.0))
-    if get("groups_missing") is not None:
-        if get("groups_service_max") is not None:
-            rows.append(row("first price, bidder groups: the service's slowest answered case", fmt_time(get("groups_service_max")),
-                            "<= 50 ms", get("groups_service_max") <= 0.05))
-        if get("groups_ratio_min") is not None:
-            rows.append(row("first price, bidder groups: shooting time / service (least)", f"{get('groups_ratio_min'):.1f}x",
-                            ">= 20x", get("groups_ratio_min") >= 20))
-        missing, total = get("groups_missing")
-        rows.append(row("first price, bidder groups: cases the service did not answer", f"{missing} of {total}", "(reported)", None))
+    rows += _group_summary_rows(get, row)
     if get("http_ratios") is not None:
         for name, ratio in get("http_ratios").items():
             target = get("http_targets")[name]
