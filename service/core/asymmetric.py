@@ -450,9 +450,6 @@ class AsymmetricBids:
             phi[self.alone, above] = w[above]
         return np.minimum(b, self.top_bid), phi
 
-    def tau_of_bid(self, b):
-        return np.clip((np.asarray(b, float) - self.b0) / self.L, 0.0, 1.0) ** (1.0 / self.q)
-
     def bids(self, i, w):
         """Group i's score bids at score values w in [floor, top]."""
         w = np.asarray(w, float)

@@ -10,7 +10,7 @@ from marshmallow import Schema, ValidationError, fields, validates_schema
 
 from ..core import reports, reserve
 from ..core import rules as core_rules
-from .fields import WORK_PER_DRAW, BiddersField, MonteCarlo, count_work, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, rule_list
+from .fields import WORK_PER_DRAW, BidGrid, BiddersField, MonteCarlo, count_work, CappedList, RuleName, StrictFloat, ValueModelField, rule_list
 from . import admission, groups, wording
 from .io import core_call, load, register_posts
 
@@ -74,17 +74,10 @@ class RevenueRequest(_AuctionRequest):
                            load_default=lambda: [0.05, 0.25, 0.5, 0.75, 0.95])
 
 
-class BidStrategyRequest(_AuctionRequest):
+class BidStrategyRequest(_AuctionRequest, BidGrid):
     reserve = StrictFloat(load_default=None)
     rule = RuleName(load_default="first_price")
     risk_aversion = fields.Nested(RiskAversion, load_default=None)
-    points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
-    at = CappedList(StrictFloat(), 1, "points", load_default=None)
-
-    @validates_schema
-    def _grid(self, data, **kw):
-        if data.get("points") is not None and data.get("at") is not None:
-            raise ValidationError({"at": ["Give points or at, not both."]})
 
 
 class ReservePriceRequest(_AuctionRequest):

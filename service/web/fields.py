@@ -344,3 +344,15 @@ class ValueModelField(fields.Field):
 
     def _deserialize(self, value, attr, data, **kw):
         return build_value_model(value)
+
+
+class BidGrid(Schema):
+    """Where bids are asked for: ``points`` values across the support, or the values ``at``."""
+
+    points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
+    at = CappedList(StrictFloat(), 1, "points", load_default=None)
+
+    @validates_schema
+    def _grid(self, data, **kw):
+        if data.get("points") is not None and data.get("at") is not None:
+            raise ValidationError({"at": ["Give points or at, not both."]})

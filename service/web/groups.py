@@ -6,7 +6,7 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 
 from ..core import groups as core_groups
 from . import admission, wording
-from .fields import CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, caps, rule_list
+from .fields import BidGrid, CappedList, RuleName, StrictFloat, StrictInteger, ValueModelField, caps, rule_list
 from .io import core_call, load
 
 GROUP_KEYS = ("bidder_groups", "cost_groups")
@@ -72,15 +72,8 @@ class GroupRevenueRequest(_GroupsRequest):
     buyer_value = StrictFloat(load_default=None)
 
 
-class GroupBidsRequest(_GroupsRequest):
+class GroupBidsRequest(_GroupsRequest, BidGrid):
     rule = RuleName(load_default="first_price")
-    points = StrictInteger(minimum=2, maximum="curve_points", load_default=None)
-    at = CappedList(StrictFloat(), 1, "points", load_default=None)
-
-    @validates_schema
-    def _grid(self, data, **kw):
-        if data.get("points") is not None and data.get("at") is not None:
-            raise ValidationError({"at": ["Give points or at, not both."]})
 
 
 def asks_for_groups(body):
