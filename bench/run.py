@@ -1211,7 +1211,8 @@ def section_groups(ctx):
                 notes.append(f"    with weaker groups stopping below the top bid: {late_note or late['why']}")
             else:
                 starts = ", ".join(f"group {i + 1} bids at most {b:.4f}" for i, b in sorted(late["entries"].items()))
-                versus = "service: " + (fmt_err(abs(late["revenue"] / svc - 1)) + " apart" if svc is not None else svc_note)
+                versus = "service: " + (fmt_err(abs(late["revenue"] / svc - 1)) + " apart, " + fmt_ratio(t_late, t_svc)
+                                        + " faster" if svc is not None else svc_note)
                 notes.append(f"    with weaker groups stopping below the top bid: revenue {late['revenue']:.8f}, top bid "
                              f"{late['top_bid']:.6f}, {starts}; {fmt_time(t_late)}, {late['shots']} shots; {versus}")
     print(table(["case", "service", "service rel.err", "foc residual", "shooting", "shooting rel.err", "shooting/service"], rows))

@@ -149,6 +149,9 @@ _SIMULATED = [
     # the weaker group stops below the stronger group's top bid (two bidders in each)
     ([Group("local", 2, Uniform(0.0, 1.0)), Group("national", 2, Uniform(0.0, 1.5))], None),
     ([Group("small", 1, Uniform(0.0, 1.0), preference=0.1), Group("large", 3, Uniform(0.0, 1.5))], 0.2),
+    # three groups, the weakest stopping first, with a preference and a reserve
+    ([Group("local", 1, Uniform(0.0, 1.0), preference=0.05), Group("regional", 1, Uniform(0.0, 1.5)),
+      Group("national", 1, Uniform(0.0, 2.0))], 0.2),
 ]
 
 
@@ -173,6 +176,10 @@ def test_seeded_simulation_of_the_equilibrium(pricing, groups, reserve):
       Group("c", 1, Power(exponent=0.5, high=1.0))], None),
     ([Group("local", 2, Uniform(0.0, 1.0)), Group("national", 2, Uniform(0.0, 1.5))], None),
     ([Group("small", 1, Uniform(0.0, 1.0), preference=0.1), Group("large", 3, Uniform(0.0, 1.5))], 0.2),
+    ([Group("local", 1, Uniform(0.0, 1.0), preference=0.05), Group("regional", 1, Uniform(0.0, 1.5)),
+      Group("national", 1, Uniform(0.0, 2.0))], 0.2),
+    # two groups stop in turn and the strongest bids on alone
+    ([Group("a", 2, Uniform(0.0, 1.0)), Group("b", 2, Uniform(0.0, 1.3)), Group("c", 2, Uniform(0.0, 1.6))], None),
 ])
 def test_no_bidder_gains_by_deviating(groups, reserve):
     """Best response: on a grid of values, no bid on a fine grid of deviations earns more than
@@ -377,6 +384,39 @@ def test_three_against_three_against_extended_shooting():
     rep = group_report([Group("weak", 3, Uniform(0.0, 1.0)), Group("strong", 3, Uniform(0.0, 1.3))], "forward",
                        rules=["first_price"])
     assert rep["results"][0]["expected_revenue"] == pytest.approx(0.81693053842104, abs=1e-10)
+
+
+@pytest.mark.parametrize("spec, revenue, top, stops", [
+    # three single bidders, tops 1, 1.5, 2: the weakest stops, the other two bid to a common top
+    ([(1, 1.0), (1, 1.5), (1, 2.0)], 0.7177225639614113, 0.9606335402997956, {0: 0.7662898626496071}),
+    # two bidders with top 1, then single bidders with tops 1.2, 1.6, 2: two groups stop in turn
+    ([(2, 1.0), (1, 1.2), (1, 1.6), (1, 2.0)], 0.8836664443406224, 1.0928003427587099,
+     {0: 0.838138839121439, 1: 0.9732625600972643}),
+])
+def test_groups_stopping_in_turn_against_extended_shooting(spec, revenue, top, stops):
+    """Weaker groups stop bidding one after another below the top bid (no common top bid exists
+    here). Reference: backward shooting with bisection on the top bid, extended to let a group
+    stop where (w_i - b) S(b) = 1 (bench/run.py, shoot_first_price with entry=True, run to 1e-11 with
+    solve_ivp rtol 1e-12; runs to 1e-9 with rtol 1e-10 agreed to 3e-10 on revenue, 6e-10 on the top bid)."""
+    groups = [Group(f"g{i}", c, Uniform(0.0, t)) for i, (c, t) in enumerate(spec)]
+    rep = group_report(groups, "forward", rules=["first_price"])
+    assert rep["results"][0]["expected_revenue"] == pytest.approx(revenue, abs=1e-9)
+    assert rep["numerics"]["top_evaluated_bid"] == pytest.approx(top, abs=1e-8)
+    bids = group_bids(groups, "forward", at=[1.0, 1.2])
+    for i, last_bid in stops.items():
+        assert bids["groups"][i]["bids"][i] == pytest.approx(last_bid, abs=1e-8)
+
+
+def test_reverse_groups_stopping_in_turn_are_the_forward_twin(client):
+    """Costs uniform on [1.5, 3], [0.75, 3] and [0, 3] are, as values 3 - c, the three groups above
+    scaled by 1.5; a first-price equilibrium moves with a shift and a scale of all values (the
+    first-order conditions are unchanged by both), so the expected payment is 3 - 1.5 x 0.71772256396."""
+    body = {"cost_groups": [{"name": n, "count": 1, "bidder_costs": {"family": "uniform", "low": lo, "high": 3.0}}
+                            for n, lo in (("workshop", 1.5), ("contractor", 0.75), ("plant", 0.0))],
+            "rules": ["first_price"]}
+    r = client.post("/v1/revenue", json=body)
+    assert r.status_code == 200, r.get_data(as_text=True)
+    assert r.get_json()["results"][0]["expected_payment"] == pytest.approx(3.0 - 1.5 * 0.7177225639614113, abs=1e-8)
 
 
 def test_group_answers_pass_the_fuzz_consistency_laws(client):

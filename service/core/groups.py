@@ -140,13 +140,13 @@ class GroupAuction:
     @property
     def first(self):
         """The first-price equilibrium (:class:`asymmetric.AsymmetricBids`), solved on first use.
-        Where the weaker of two groups stops bidding first, the stronger group's win chance kinks
-        at the value that bids the weaker group's last bid: a panel edge goes there."""
+        Where a group stops bidding below the top bid, the others' win chances kink at the values
+        that bid its last bid: panel edges go there."""
         if self._first is None:
             self._first = AsymmetricBids([ScoreGroup(g.model, g.n, g.m) for g in self.groups], self.first_floor())
-            if self._first.drop is not None:
-                alone = self.groups[self._first.alone]
-                alone.split_at(self._first.v_star / alone.m)
+            for g, kinks in zip(self.groups, map(self._first.kinks, range(len(self.groups)))):
+                for k in kinks:
+                    g.split_at(k / g.m)
         return self._first
 
     def first_floor(self):
