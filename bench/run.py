@@ -843,6 +843,8 @@ def section_summary(ctx):
         rows.append(row("Poisson count (mean 8) / fixed count of 8, five rules (worst model)", f"{get('counts_ratio'):.1f}x", "<= 4x",
                         get("counts_ratio") <= 4.0))
     rows += _group_summary_rows(get, row)
+    if get("charts_max") is not None:
+        rows.append(row("charts: the slowest GET at 720 x 450", fmt_time(get("charts_max")), "<= 150 ms", get("charts_max") <= 0.15))
     if get("http_ratios") is not None:
         for name, ratio in get("http_ratios").items():
             target = get("http_targets")[name]
@@ -1224,12 +1226,45 @@ def section_groups(ctx):
     ctx["groups_missing"] = (missing, len(cases))
 
 
+CHART_CASES = [
+    ("top-values", "family=lognormal&median=62000&sigma=0.35&bidders=8&currency=EUR"),
+    ("joint-density", "family=lognormal&median=62000&sigma=0.35&bidders=8&currency=EUR"),
+    ("revenue-by-reserve", "family=lognormal&median=62000&sigma=0.35&bidders=8&seller_value=30000&currency=EUR"),
+    ("revenue-by-bidders", "family=lognormal&median=62000&sigma=0.35&bidders=8&reserve=40000&currency=EUR"),
+    ("bid-strategy", "family=lognormal&median=62000&sigma=0.35&bidders=8&rules=first_price,second_price&currency=EUR"),
+]
+
+
+def section_charts(ctx):
+    from service import create_app
+
+    heading("Charts: the whole GET request, 720 x 450 pixels, against the same chart's points as JSON")
+    print("GET /v1/charts/<chart>.svg and .png through app.test_client(); reference: the same GET with")
+    print("Accept: application/json (the same handlers, everything but the drawing); median, batches alternated")
+    print()
+    client = create_app().test_client()
+    rows, worst = [], 0.0
+    for chart, query in CHART_CASES:
+        svg, png = f"/v1/charts/{chart}.svg?{query}", f"/v1/charts/{chart}.png?{query}"
+        statuses = {client.get(u).status_code for u in (svg, png)}
+        t_svg, t_png, t_json = interleaved_medians([
+            lambda: client.get(svg), lambda: client.get(png),
+            lambda: client.get(svg, headers={"Accept": "application/json"}),
+        ], rounds=7)
+        worst = max(worst, t_svg, t_png)
+        rows.append([chart, fmt_time(t_svg), fmt_time(t_png), fmt_time(t_json), fmt_ratio(max(t_svg, t_png), t_json),
+                     ",".join(map(str, sorted(statuses))), "yes" if max(t_svg, t_png) <= 0.15 else "no"])
+    print(table(["chart", "SVG", "PNG", "points (JSON)", "image/JSON", "status", "<= 150 ms"], rows))
+    print("target: a chart within 150 ms at the default size")
+    ctx["charts_max"] = worst
+
+
 # Sections that send requests to the app in-process.
-IN_PROCESS = {"section_request", "section_sweeps", "section_expensive"}
+IN_PROCESS = {"section_request", "section_sweeps", "section_expensive", "section_charts"}
 
 SECTIONS = [section_header, section_second_highest, section_scaling, section_request, section_revenue, section_sweeps,
             section_expensive, section_fits, section_counts, section_simulation, section_risk_aversion,
-            section_groups, section_http, section_summary]
+            section_groups, section_charts, section_http, section_summary]
 
 
 def main(argv):

@@ -1,0 +1,281 @@
+"""GET /v1/charts/{chart}.svg|.png and POST /v1/charts/{chart}: the answers as pictures.
+
+Each chart asks the JSON routes' own handlers (the same schemas, caps and time budget) and
+hands their answers to :mod:`service.charts`, which only draws. GET reads the flat query of
+/v1/quote; POST reads the owning route's JSON body. Accept picks SVG or PNG, or
+application/json for the points the chart plotted. A refused request answers an image caller
+with a small picture that says why (with the 4xx status) and a JSON caller with problem+json.
+"""
+from __future__ import annotations
+
+import re
+
+from flask import Blueprint, Response, request
+from marshmallow import ValidationError
+
+from .. import charts as draw
+from ..core.budget import BudgetSpent
+from . import auctions, groups, query, sweeps, top_values
+from .fields import caps
+from .io import json_body, json_response, load
+from .problems import flatten, spent_error, validation_problem
+
+bp = Blueprint("charts", __name__)
+
+#: Pixel sizes: (least, default, most).
+WIDTH, HEIGHT = (240, 720, 2400), (160, 450, 1600)
+#: Points along the reserve axis by default (each a call of /v1/revenue), and a bid curve's.
+RESERVE_POINTS, BID_POINTS = 21, 101
+#: The most bidder counts drawn where one count n is given (1 to 2n).
+BIDDER_POINTS = 40
+_CURRENCY = re.compile(r"^[A-Za-z€$£¥₹₩₺₽¢]{1,8}$")
+_OPTIONS = ("width", "height", "currency")
+
+
+def _own(body):
+    return "bidder_values" if "bidder_values" in body else "bidder_costs"
+
+
+def _direction(body):
+    return "forward" if "bidder_values" in body else "reverse"
+
+
+def _footnote(answer, width):
+    """One line: the answer's assumptions, each without its parenthesis, as many as fit."""
+    line = "Estimates under stated assumptions"
+    for said in answer.get("assumptions") or []:
+        part = re.sub(r"\s*\(.*?\)", "", said)
+        if len(line) + len(part) + 2 > width / 5.8:  # about 5.8 pixels a character at 7 points
+            break
+        line += (": " if line.endswith("assumptions") else "; ") + part
+    return line + "."
+
+
+def _no_groups(body):
+    if groups.asks_for_groups(body):
+        key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
+        raise ValidationError({key: ["Charts of bidder groups are not drawn yet: ask the JSON route."]})
+
+
+def _top_values(body, opts):
+    _no_groups(body)
+    ranks = [1] if body.get("bidders") == 1 else [1, 2]  # one bidder: the one value there is
+    answer = top_values.top_values_handler({"curve_points": 201, **body, "ranks": ranks, "quantiles": []})
+    return draw.top_values(answer, _direction(body), footnote=_footnote(answer, opts["width"]), **opts)
+
+
+def _joint_density(body, opts):
+    answer = top_values.joint_density_handler({"grid_points": 81, **body})
+    said = {"assumptions": ["independent private values drawn from the stated value model"]}
+    return draw.joint_density(answer, footnote=_footnote(said, opts["width"]), **opts)
+
+
+def _value_range(body):
+    """The 0.1% and 99% quantiles of one bidder's value (cost): /v1/top-values for one bidder."""
+    one = top_values.top_values_handler({_own(body): body.get(_own(body)), "bidders": 1, "ranks": [1],
+                                         "quantiles": [0.001, 0.99]})
+    q = one["results"][0]["quantiles"]
+    return q[0]["value"], q[1]["value"]
+
+
+#: Rules drawn where none are asked: the two the trade compares most.
+DEFAULT_RULES = ["first_price", "second_price"]
+
+
+def _revenue_at(body, **change):
+    return auctions.revenue_handler({**body, **change, "quantiles": [0.05, 0.95]})
+
+
+def _payoffs(body, axis, xs):
+    """The auctioneer's expected payoff by rule at each x (the sweep's), where an own value is given."""
+    own = "seller_value" if _direction(body) == "forward" else "buyer_value"
+    if body.get(own) is None:
+        return [None] * len(xs)
+    swept = {"bidders": [body["bidders"]], "reserves": xs} if axis == "reserve" else \
+        {"bidders": xs, "reserves": [body.get("reserve")] if body.get("reserve") is not None else None}
+    if swept["reserves"] is None:
+        return [None] * len(xs)
+    plain = {k: v for k, v in body.items() if k not in ("reserve", "reserves", "quantiles", "monte_carlo")}
+    table = sweeps.sweeps_handler({**plain, **swept, "metrics": ["expected_payoff"]})
+    col = {c: i for i, c in enumerate(table["columns"])}
+    out = [dict() for _ in xs]
+    for row in table["rows"]:
+        out[xs.index(row[col[axis if axis == "reserve" else "bidders"]])][row[col["rule"]]] = row[col["expected_payoff"]]
+    return out
+
+
+def _by_reserve(body, opts):
+    _no_groups(body)
+    body = {"rules": DEFAULT_RULES, **body}
+    axis = body.pop("reserves", None)
+    if axis is None:
+        lo, hi = _value_range(body)
+        axis = {"from": lo, "to": hi, "steps": RESERVE_POINTS}
+    xs = load(sweeps.SweepRequest, {_own(body): body.get(_own(body)), "bidders": [2], "reserves": axis})["reserves"]
+    answers = [_revenue_at(body, reserve=x) for x in xs]
+    payoffs = _payoffs(body, "reserve", xs)
+    optimum = None
+    own = "seller_value" if _direction(body) == "forward" else "buyer_value"
+    if _direction(body) == "forward" or body.get(own) is not None:
+        keep = {k: body[k] for k in (_own(body), "bidders", own, "risk_aversion") if k in body}
+        found = auctions.reserve_price_handler(keep)
+        optimum = found.get("optimal_reserve")
+    return draw.by_axis(list(zip(xs, answers, payoffs)), "reserve", _direction(body), optimum=optimum,
+                        footnote=_footnote(answers[0], opts["width"]), **opts)
+
+
+def _by_bidders(body, opts):
+    _no_groups(body)
+    body = {"rules": DEFAULT_RULES, **body}
+    counts = body.pop("bidders", None)
+    if isinstance(counts, int) and not isinstance(counts, bool) and counts >= 1:
+        top = min(max(2 * counts, 8), caps().bidders)
+        counts = {"from": 1, "to": top, "step": -(-top // BIDDER_POINTS)}
+    if counts is None:
+        raise ValidationError({"bidders": ["Missing data for required field."]})
+    xs = load(sweeps.SweepRequest, {_own(body): body.get(_own(body)), "bidders": counts, "reserves": [0]})["bidders"]
+    if not all(isinstance(n, int) for n in xs):
+        raise ValidationError({"bidders": ["A chart against the number of bidders takes counts (a list or a range)."]})
+    answers = [_revenue_at(body, bidders=n) for n in xs]
+    payoffs = _payoffs(body, "bidders", xs)
+    return draw.by_axis(list(zip(xs, answers, payoffs)), "bidders", _direction(body), footnote=_footnote(answers[0], opts["width"]), **opts)
+
+
+def _bid_strategy(body, opts):
+    _no_groups(body)
+    body = dict(body)
+    key = "rules" if "rules" in body else "rule"
+    rules = body.pop("rules", None) or [body.pop("rule", "first_price")]
+    if not isinstance(rules, list) or not rules:
+        raise ValidationError({"rules": ["Must be a list of rules."]})
+    if "at" not in body:
+        body.setdefault("points", BID_POINTS)
+    answers = []
+    for rule in rules:
+        try:
+            answers.append(auctions.bid_strategy_handler({**body, "rule": rule}))
+        except ValidationError as e:  # named as the caller wrote it
+            messages = dict(e.messages) if isinstance(e.messages, dict) else {"(request)": e.messages}
+            if "rule" in messages and key == "rules":
+                messages["rules"] = messages.pop("rule")
+            raise ValidationError(messages) from None
+    return draw.bid_strategy(answers, _direction(body), footnote=_footnote(answers[0], opts["width"]), **opts)
+
+
+CHARTS = {"top-values": _top_values, "joint-density": _joint_density, "revenue-by-reserve": _by_reserve,
+          "revenue-by-bidders": _by_bidders, "bid-strategy": _bid_strategy}
+
+
+def _options(args, door, errors):
+    """width, height (pixels, within the caps) and currency (a label for the money axes)."""
+    opts = {}
+    for key, (least, default, most) in (("width", WIDTH), ("height", HEIGHT)):
+        value = door.number(key, args[key], errors) if key in args else default
+        if value is not None and (not isinstance(value, int) or not least <= value <= most):
+            errors[key] = [f"Must be a whole number of pixels from {least} to {most}."]
+            value = default
+        opts[key] = value
+    currency = args.get("currency")
+    if currency is not None and not _CURRENCY.match(currency):
+        errors["currency"] = ["Up to 8 letters or a currency sign (EUR, USD, €)."]
+        currency = None
+    opts["currency"] = currency
+    return opts
+
+
+def _answer(chart, fmt, build):
+    """Run ``build`` (-> Drawn) and answer in ``fmt`` ('svg', 'png' or 'json'); a refusal as an
+    image that says why, or as problem+json for a JSON caller."""
+    if chart not in CHARTS:
+        err = ValidationError({"chart": [f"One of: {', '.join(CHARTS)}."]})
+        return _refuse(err, fmt, status=404)
+    try:
+        drawn = build()
+    except BudgetSpent:
+        return _refuse(spent_error(), fmt)
+    except ValidationError as err:
+        return _refuse(query.flat_errors(err) if request.method == "GET" else err, fmt)
+    if fmt == "json":
+        return json_response({"chart": chart, "series": drawn.series})
+    return Response(drawn.render(fmt), mimetype=draw.MEDIA[fmt])
+
+
+def _refuse(err, fmt, status=422):
+    if fmt == "json":
+        resp = validation_problem(err)
+        resp.status_code = status
+        return resp
+    line = "; ".join(f"{e['field']}: {e['message']}" for e in flatten(err.messages))
+    return Response(draw.message(f"Not drawn. {line}", fmt), status=status, mimetype=draw.MEDIA[fmt])
+
+
+def _chart_query(args, door, errors):
+    """The POST body from the flat query: the value model, the case, and each chart's axis."""
+    body = query.case_body(args, door, errors, ("bidders", "reserve", "seller_value", "buyer_value"))
+    for key in ("rule", "rules"):
+        if key in args:
+            body["rules"] = door.names(args[key])
+    for axis in ("reserves", "bidders"):
+        ranged = {k: door.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors)
+                  for k in ("from", "to", "step", "steps") if f"{axis}_{k}" in args}
+        if ranged:
+            body[axis] = ranged
+    if "points" in args:
+        body["points"] = door.number("points", args["points"], errors)
+    return body
+
+
+def _query_keys():
+    return {"direction", "family", "bidders", "reserve", "seller_value", "buyer_value", "rule", "rules", "points",
+            *_OPTIONS, *query.model_keys(), *(f"{a}_{k}" for a in ("reserves", "bidders") for k in ("from", "to", "step", "steps"))}
+
+
+@bp.get("/v1/charts/<chart>.<fmt>")
+def get_chart(chart, fmt):
+    errors = {}
+    door = query.Door(request.args, errors)
+    query.unknown(request.args, _query_keys() | set(query.FORMAT_KEYS), errors)
+    opts = _options(request.args, door, errors)
+    body = _chart_query(request.args, door, errors)
+
+    def build():
+        if errors:
+            raise ValidationError(errors)
+        if chart == "bid-strategy" and "rules" not in body:
+            body["rules"] = ["first_price"]
+        return CHARTS[chart](body, opts)
+
+    want = "json" if _wants_json() else fmt
+    if fmt not in draw.MEDIA:
+        return _refuse(ValidationError({"format": ["The chart's name ends in .svg or .png."]}),
+                       "json" if want == "json" else "svg", status=404)
+    return _answer(chart, want, build)
+
+
+def post_chart(chart):
+    """The chart from the owning route's JSON body: SVG or PNG as Accept asks; without an image
+    asked for, the points it plots, as JSON."""
+    errors = {}
+    door = query.Door({}, errors)
+    opts = _options(request.args, door, errors)
+    accept = request.accept_mimetypes
+    quality = {kind: accept[media] for kind, media in draw.MEDIA.items()}
+    best = max(quality, key=quality.get)
+    fmt = best if quality[best] > accept["application/json"] else "json"
+
+    def build():
+        if errors:
+            raise ValidationError(errors)
+        return CHARTS[chart](json_body(), opts)
+
+    return _answer(chart, fmt, build)
+
+
+for _name in CHARTS:
+    bp.add_url_rule(f"/v1/charts/{_name}", endpoint=f"post_chart_{_name}", view_func=post_chart,
+                    methods=["POST"], defaults={"chart": _name})
+
+
+def _wants_json():
+    accept = request.accept_mimetypes
+    return accept["application/json"] > max(accept["image/svg+xml"], accept["image/png"])
