@@ -6,7 +6,7 @@ HOST    ?= 127.0.0.1
 PORT    ?= 8000
 WORKERS ?= 2
 
-.PHONY: serve test fuzz loadtest spreadsheet-test bench demo clean
+.PHONY: serve test fuzz loadtest spreadsheet-test browser-test bench demo clean
 
 $(VENV)/.installed-base: pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -16,6 +16,10 @@ $(VENV)/.installed-base: pyproject.toml
 
 $(VENV)/.installed-test: $(VENV)/.installed-base
 	$(PY) -m pip install -q -e '.[test]'
+	touch $@
+
+$(VENV)/.installed-browser: $(VENV)/.installed-test
+	$(PY) -m pip install -q -e '.[browser]'
 	touch $@
 
 $(VENV)/.installed-fuzz: $(VENV)/.installed-base
@@ -51,6 +55,15 @@ spreadsheet-test: $(VENV)/.installed-test
 	  { apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends libreoffice-calc python3-uno; } || \
 	  echo "spreadsheet-test: apt-get could not install libreoffice-calc and python3-uno"
 	$(PY) spreadsheet/run.py
+
+# The explorer page in a real browser: Debian's chromium, driven by Playwright for Python, against
+# gunicorn on a free loopback port with an API key required (browser/run.py). chromium is installed
+# with apt-get when missing; where it cannot be, the run skips. Screenshots go to browser/out/<run>/.
+browser-test: $(VENV)/.installed-browser
+	{ command -v chromium || command -v chromium-browser; } >/dev/null 2>&1 || \
+	  { apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends chromium; } || \
+	  echo "browser-test: apt-get could not install chromium"
+	$(PY) browser/run.py
 
 bench: $(VENV)/.installed-test
 	OPENBLAS_NUM_THREADS=1 $(PY) bench/run.py  # one BLAS thread, as each gunicorn worker runs (gunicorn.conf.py)

@@ -6,7 +6,7 @@ import os
 from flask import Flask
 
 from . import settings
-from .web import access, admission, auctions, batch, charts, fits, meta, ops, problems, quote, sweeps, top_values, workbook
+from .web import access, admission, auctions, batch, charts, fits, meta, ops, page, problems, quote, sweeps, top_values, workbook
 
 
 class BidStats(Flask):
@@ -30,7 +30,7 @@ def create_app(config=None):
         app.config.update(config)
     app.extensions["bidstats.slots"] = admission.Slots(caps.heavy_slots, os.environ.get("BIDSTATS_SLOT_DIR"))
     problems.register(app)
-    for module in (meta, top_values, auctions, fits, batch, quote, sweeps, workbook, charts):
+    for module in (meta, top_values, auctions, fits, batch, quote, sweeps, workbook, charts, page):
         app.register_blueprint(module.bp)
     ops.register(app)
     access.register(app)

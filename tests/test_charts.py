@@ -126,6 +126,31 @@ def test_the_drawn_lines_are_the_kept_points():
     assert list(line.get_ydata()) == drawn.series["first_price"]["bids"]
 
 
+def test_fit_chart_draws_the_prices_against_each_models_price_distribution(client):
+    """The prices' empirical distribution, and each fitted model's distribution of the price (the
+    second-highest of n values, its CDF I_F(n - 1, 2), David and Nagaraja 2003, ch. 2) mixed over
+    the records' bidder counts: checked at every plotted point with scipy's regularised beta."""
+    from scipy import special, stats
+
+    records = [{"bidders": 4, "price": 71}, {"bidders": 5, "price": 78}, {"bidders": 3, "price": 66},
+               {"bidders": 6, "price": 83}, {"bidders": 4, "price": 69}, {"bidders": 5, "price": 80}]
+    r = client.post("/v1/charts/fit", json={"rule": "ascending", "families": ["lognormal"], "auctions": records})
+    assert r.status_code == 200, r.get_data(as_text=True)
+    s = r.get_json()["series"]
+    assert s["prices"] == sorted(p["price"] for p in records)
+    fitted = client.post("/v1/fits", json={"rule": "ascending", "families": ["lognormal"], "auctions": records,
+                                           "confidence": {"replications": 0}}).get_json()
+    m = next(c["model"] for c in fitted["candidates"] if c["model"]["family"] == "lognormal")
+    value = stats.lognorm(m["sigma"], scale=m["median"])
+    counts = [a["bidders"] for a in records]
+    line = s["models"]["lognormal"]
+    for x, p in zip(line["value"], line["p"]):
+        implied = np.mean([special.betainc(n - 1, 2, value.cdf(x)) for n in counts])
+        assert implied == pytest.approx(p, abs=1e-8)
+    r = client.get(f"/v1/charts/fit.svg?{U01}&bidders=3", headers={"Accept": "application/json"})
+    assert r.status_code == 422 and "chart" in [e["field"] for e in r.get_json()["errors"]]
+
+
 def test_post_chart_takes_the_owning_routes_body(client):
     body = {"bidder_costs": {"family": "uniform", "low": 40, "high": 100}, "bidders": 4}
     r = client.post("/v1/charts/top-values?currency=EUR", json=body, headers={"Accept": "image/png"})

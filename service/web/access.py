@@ -1,7 +1,8 @@
 """Access control and cross-origin rules, off unless configured.
 
 BIDSTATS_API_KEYS: a comma-separated list of keys. When it is set, every route
-but /healthz, /readyz and /openapi.yaml needs ``Authorization: Bearer KEY`` or
+but /healthz, /readyz, /openapi.yaml and the explorer page (/ and its two assets)
+needs ``Authorization: Bearer KEY`` or
 ``X-API-Key: KEY``; keys are compared in constant time. BIDSTATS_CORS_ORIGINS:
 a comma-separated allow-list of browser origins; without it no CORS headers
 are sent. A body whose declared length is over the cap gets 413 before it is read.
@@ -15,7 +16,8 @@ from flask import Flask, Response, request
 
 from .problems import problem
 
-OPEN_PATHS = frozenset({"/healthz", "/readyz", "/openapi.yaml"})
+# The explorer page and its assets are open too: its calls carry the key the person types in.
+OPEN_PATHS = frozenset({"/healthz", "/readyz", "/openapi.yaml", "/", "/explorer/explorer.js", "/explorer/explorer.css"})
 ALLOWED_HEADERS = "Content-Type, Accept, Authorization, X-API-Key, X-Request-ID"
 
 

@@ -15,7 +15,7 @@ from marshmallow import ValidationError
 
 from .. import charts as draw
 from ..core.budget import BudgetSpent
-from . import auctions, groups, query, sweeps, top_values
+from . import auctions, fits, groups, query, sweeps, top_values
 from .fields import caps
 from .io import json_body, json_response, load
 from .problems import flatten, spent_error, validation_problem
@@ -162,8 +162,38 @@ def _bid_strategy(body, opts):
     return draw.bid_strategy(answers, _direction(body), footnote=_footnote(answers[0], opts["width"]), **opts)
 
 
+#: Points on each fitted model's price distribution.
+FIT_POINTS = 99
+
+
+def _fit(body, opts):
+    """Past prices against the fitted models: /v1/fits (its bootstrap left out: the chart shows no
+    intervals), then each candidate's distribution of the price over the records' bidder counts
+    (/v1/top-values, rank 2, with the counts as a table)."""
+    if not isinstance(body.get("auctions"), list) or not body["auctions"]:
+        raise ValidationError({"auctions": ["Give the past auctions, as /v1/fits takes them."]})
+    answer = fits.fits_handler({**body, "confidence": {**(body.get("confidence") or {}), "replications": 0}})
+    records = body["auctions"]  # valid: the fit loaded them
+    if any(a.get("price") is None or a.get("reserve") is not None for a in records):
+        raise ValidationError({"auctions": ["The fit chart draws the prices of second-price and ascending auctions "
+                                            "without a reserve; these records hold bids or reserves."]})
+    counts = {}
+    for a in records:
+        counts[a["bidders"]] = counts.get(a["bidders"], 0) + 1
+    table = {"distribution": "table", "probabilities": [{"bidders": n, "p": k / len(records)} for n, k in sorted(counts.items())]}
+    key = "bidder_values" if answer["direction"] == "forward" else "bidder_costs"
+    grid = [(i + 0.5) / FIT_POINTS for i in range(FIT_POINTS)]
+    models = []
+    for cand in answer.get("candidates", [])[:4]:
+        implied = top_values.top_values_handler({key: cand["model"], "bidders": table, "ranks": [2], "quantiles": grid})
+        models.append((cand["model"]["family"], cand.get("aic"), implied["results"][0]["quantiles"]))
+    prices = sorted(a["price"] for a in records)
+    return draw.fit(prices, models, answer["direction"], answer["selected"]["model"],
+                    footnote=_footnote(answer, opts["width"]), **opts)
+
+
 CHARTS = {"top-values": _top_values, "joint-density": _joint_density, "revenue-by-reserve": _by_reserve,
-          "revenue-by-bidders": _by_bidders, "bid-strategy": _bid_strategy}
+          "revenue-by-bidders": _by_bidders, "bid-strategy": _bid_strategy, "fit": _fit}
 
 
 def _options(args, door, errors):
@@ -239,6 +269,8 @@ def get_chart(chart, fmt):
     body = _chart_query(request.args, door, errors)
 
     def build():
+        if chart == "fit":
+            errors["chart"] = ["The fit chart needs the past auctions: POST them to /v1/charts/fit."]
         if errors:
             raise ValidationError(errors)
         if chart == "bid-strategy" and "rules" not in body:
