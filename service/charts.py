@@ -178,19 +178,26 @@ def by_axis(points, axis, direction, *, optimum=None, width, height, currency=No
 
 
 def bid_strategy(answers, direction, *, width, height, currency=None, footnote=""):
-    """Bid against value (reverse: against cost) for each rule asked, beside the value itself.
-    ``answers``: /v1/bid-strategy answers, one per rule."""
+    """Bid against value (reverse: against cost) for each rule asked (and each group, for bidder
+    groups), beside the value itself. ``answers``: /v1/bid-strategy answers, one per rule."""
     own = "value" if direction == "forward" else "cost"
-    fig, ax = _canvas(width, height, f"Equilibrium bid against the bidder's {own}", footnote)
-    series = {}
     key = "values" if direction == "forward" else "costs"
-    values = answers[0][key]
-    ax.plot(values, values, color="#9aa1a8", linewidth=0.9, label=f"bid = {own}")
-    for (ink, style), ans in zip(INKS * 2, answers):
-        bids = ans["bids"]
-        ax.plot(values, [math.nan if b is None else b for b in bids], color=ink, linestyle=style, linewidth=1.8,
-                label=ans["rule"].replace("_", " "))
-        series[ans["rule"]] = {key: ans[key], "bids": bids}
+    fig, ax = _canvas(width, height, f"Equilibrium bid against the bidder's {own}", footnote)
+    lines = []  # (label, series key, x, bids)
+    for ans in answers:
+        rule = ans["rule"].replace("_", " ")
+        if "groups" in ans:
+            for g in ans["groups"]:
+                label = g["name"] if len(answers) == 1 else f"{g['name']}, {rule}"
+                lines.append((label, f"{ans['rule']}/{g['name']}", g[key], g["bids"]))
+        else:
+            lines.append((rule, ans["rule"], ans[key], ans["bids"]))
+    ends = [min(min(x) for _, _, x, _ in lines), max(max(x) for _, _, x, _ in lines)]
+    ax.plot(ends, ends, color="#9aa1a8", linewidth=0.9, label=f"bid = {own}")
+    series = {}
+    for (ink, style), (label, name, x, bids) in zip(INKS * 3, lines):
+        ax.plot(x, [math.nan if b is None else b for b in bids], color=ink, linestyle=style, linewidth=1.8, label=label)
+        series[name] = {key: x, "bids": bids}
     unit = _money_axis(ax.xaxis, currency)
     _money_axis(ax.yaxis, currency)
     ax.set_xlabel(own + unit, color=TEXT)

@@ -151,6 +151,29 @@ def test_fit_chart_draws_the_prices_against_each_models_price_distribution(clien
     assert r.status_code == 422 and "chart" in [e["field"] for e in r.get_json()["errors"]]
 
 
+_GROUPS = "group1_name=a&group1_count=1&group1_family=uniform&group1_low=0&group1_high=1&" \
+          "group2_name=b&group2_count=2&group2_family=uniform&group2_low=0&group2_high=1"
+
+
+def test_group_charts_plot_the_group_routes(client):
+    """Bidder groups drawn: alike groups are the symmetric auction, so with three uniform bidders
+    on [0, 1] in all the first-price bid is 2v/3 and the revenue at reserve r is
+    1/2 + r^3 - 3 r^4 / 2 (Krishna 2009, ch. 2), and each point is the group route's own answer."""
+    s = _series(client, "bid-strategy", f"{_GROUPS}&rules=first_price&points=11")
+    for name in ("a", "b"):
+        line = s[f"first_price/{name}"]
+        assert line["bids"] == pytest.approx([2 * v / 3 for v in line["values"]], abs=1e-7)
+    s = _series(client, "revenue-by-reserve", f"{_GROUPS}&rules=first_price,second_price&reserves=0,0.3,0.6")
+    for rule in ("first_price", "second_price"):
+        assert s["rules"][rule]["mean"] == pytest.approx([0.5 + r**3 - 1.5 * r**4 for r in s["x"]], abs=1e-7)
+    body = {"bidder_groups": [{"name": "a", "count": 1, "bidder_values": _U}, {"name": "b", "count": 2, "bidder_values": _U}],
+            "reserve": 0.3, "rules": ["first_price", "second_price"]}
+    ref = client.post("/v1/revenue", json=body).get_json()
+    assert [s["rules"][r["rule"]]["mean"][1] for r in ref["results"]] == [r["expected_revenue"] for r in ref["results"]]
+    r = client.get(f"/v1/charts/top-values.svg?{_GROUPS}", headers={"Accept": "application/json"})
+    assert r.status_code == 422
+
+
 def test_post_chart_takes_the_owning_routes_body(client):
     body = {"bidder_costs": {"family": "uniform", "low": 40, "high": 100}, "bidders": 4}
     r = client.post("/v1/charts/top-values?currency=EUR", json=body, headers={"Accept": "image/png"})

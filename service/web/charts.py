@@ -17,7 +17,7 @@ from .. import charts as draw
 from ..core.budget import BudgetSpent
 from . import auctions, fits, groups, query, sweeps, top_values
 from .fields import caps
-from .io import json_body, json_response, load
+from .io import json_body, json_response
 from .problems import flatten, spent_error, validation_problem
 
 bp = Blueprint("charts", __name__)
@@ -37,7 +37,7 @@ def _own(body):
 
 
 def _direction(body):
-    return "forward" if "bidder_values" in body else "reverse"
+    return "reverse" if "bidder_costs" in body or "cost_groups" in body else "forward"
 
 
 def _footnote(answer, width):
@@ -54,11 +54,14 @@ def _footnote(answer, width):
 def _no_groups(body):
     if groups.asks_for_groups(body):
         key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
-        raise ValidationError({key: ["Charts of bidder groups are not drawn yet: ask the JSON route."]})
+        raise ValidationError({key: ["This chart draws one model's ranks; with groups, ask /v1/top-values for them."]})
 
 
 def _top_values(body, opts):
     _no_groups(body)
+    if isinstance(body.get("bidders"), dict):
+        raise ValidationError({"bidders": ["The top-values chart draws the densities for a certain number of bidders: "
+                                           "give a number."]})
     ranks = [1] if body.get("bidders") == 1 else [1, 2]  # one bidder: the one value there is
     answer = top_values.top_values_handler({"curve_points": 201, **body, "ranks": ranks, "quantiles": []})
     return draw.top_values(answer, _direction(body), footnote=_footnote(answer, opts["width"]), **opts)
@@ -71,19 +74,40 @@ def _joint_density(body, opts):
 
 
 def _value_range(body):
-    """The 0.1% and 99% quantiles of one bidder's value (cost): /v1/top-values for one bidder."""
-    one = top_values.top_values_handler({_own(body): body.get(_own(body)), "bidders": 1, "ranks": [1],
-                                         "quantiles": [0.001, 0.99]})
-    q = one["results"][0]["quantiles"]
-    return q[0]["value"], q[1]["value"]
+    """The 0.1% and 99% quantiles of one bidder's value (cost), /v1/top-values for one bidder; with
+    groups, from the lowest group's 0.1% to the highest group's 99%."""
+    if groups.asks_for_groups(body):
+        key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
+        inner = "bidder_values" if key == "bidder_groups" else "bidder_costs"
+        models = [g.get(inner) if isinstance(g, dict) else None for g in body[key]] if isinstance(body[key], list) else []
+        own = "bidder_values" if key == "bidder_groups" else "bidder_costs"
+    else:
+        models, own = [body.get(_own(body))], _own(body)
+    lows, highs = [], []
+    for model in models:
+        one = top_values.top_values_handler({own: model, "bidders": 1, "ranks": [1], "quantiles": [0.001, 0.99]})
+        q = one["results"][0]["quantiles"]
+        lows.append(q[0]["value"])
+        highs.append(q[1]["value"])
+    return min(lows), max(highs)
 
 
 #: Rules drawn where none are asked: the two the trade compares most.
 DEFAULT_RULES = ["first_price", "second_price"]
 
 
+def _axis(name, given):
+    """A chart's axis as /v1/sweeps reads it: a list, or a range object ({from, to, step(s)})."""
+    try:
+        return sweeps.SweepRequest._declared_fields[name].deserialize(given)
+    except ValidationError as e:
+        raise ValidationError({name: e.messages}) from None
+
+
 def _revenue_at(body, **change):
-    return auctions.revenue_handler({**body, **change, "quantiles": [0.05, 0.95]})
+    """/v1/revenue with the revenue's 5% and 95% quantiles (groups: the mean and sd alone)."""
+    band = {} if groups.asks_for_groups(body) else {"quantiles": [0.05, 0.95]}
+    return auctions.revenue_handler({**body, **change, **band})
 
 
 def _payoffs(body, axis, xs):
@@ -105,27 +129,49 @@ def _payoffs(body, axis, xs):
 
 
 def _by_reserve(body, opts):
-    _no_groups(body)
     body = {"rules": DEFAULT_RULES, **body}
+    grouped = groups.asks_for_groups(body)
     axis = body.pop("reserves", None)
     if axis is None:
         lo, hi = _value_range(body)
         axis = {"from": lo, "to": hi, "steps": RESERVE_POINTS}
-    xs = load(sweeps.SweepRequest, {_own(body): body.get(_own(body)), "bidders": [2], "reserves": axis})["reserves"]
-    answers = [_revenue_at(body, reserve=x) for x in xs]
-    payoffs = _payoffs(body, "reserve", xs)
+    xs = _axis("reserves", axis)
+    if grouped:  # a reserve where the first-price equilibrium is not found is left out, and said
+        answers, missed = [], []
+        for x in xs:
+            try:
+                answers.append(_revenue_at(body, reserve=x))
+            except ValidationError as e:
+                if not isinstance(e.messages, dict) or not set(e.messages) & {"bidder_groups", "cost_groups"}:
+                    raise
+                missed.append(x)
+        if not answers:
+            raise ValidationError({"bidder_groups" if "bidder_groups" in body else "cost_groups": [
+                "The first-price equilibrium was not found at any reserve asked; ask for second price."]})
+        xs = [x for x in xs if x not in missed]
+    else:
+        answers, missed = [_revenue_at(body, reserve=x) for x in xs], []
+    # the sweep and the optimal reserve take one model: with groups, the revenue lines alone
+    payoffs = [None] * len(xs) if grouped else _payoffs(body, "reserve", xs)
     optimum = None
     own = "seller_value" if _direction(body) == "forward" else "buyer_value"
-    if _direction(body) == "forward" or body.get(own) is not None:
+    if not grouped and (_direction(body) == "forward" or body.get(own) is not None):
         keep = {k: body[k] for k in (_own(body), "bidders", own, "risk_aversion") if k in body}
         found = auctions.reserve_price_handler(keep)
         optimum = found.get("optimal_reserve")
-    return draw.by_axis(list(zip(xs, answers, payoffs)), "reserve", _direction(body), optimum=optimum,
-                        footnote=_footnote(answers[0], opts["width"]), **opts)
+    note = _footnote(answers[0], opts["width"] - (300 if missed else 0)) + \
+        (f" First price not found at {len(missed)} reserve(s) asked: left out." if grouped and missed else "")
+    drawn = draw.by_axis(list(zip(xs, answers, payoffs)), "reserve", _direction(body), optimum=optimum, footnote=note, **opts)
+    if grouped and missed:
+        drawn.series["left_out"] = missed
+    return drawn
 
 
 def _by_bidders(body, opts):
-    _no_groups(body)
+    if groups.asks_for_groups(body):
+        key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
+        raise ValidationError({key: ["A chart against the number of bidders takes one model; with groups, change each "
+                                     "group's count."]})
     body = {"rules": DEFAULT_RULES, **body}
     counts = body.pop("bidders", None)
     if isinstance(counts, int) and not isinstance(counts, bool) and counts >= 1:
@@ -133,7 +179,7 @@ def _by_bidders(body, opts):
         counts = {"from": 1, "to": top, "step": -(-top // BIDDER_POINTS)}
     if counts is None:
         raise ValidationError({"bidders": ["Missing data for required field."]})
-    xs = load(sweeps.SweepRequest, {_own(body): body.get(_own(body)), "bidders": counts, "reserves": [0]})["bidders"]
+    xs = _axis("bidders", counts)
     if not all(isinstance(n, int) for n in xs):
         raise ValidationError({"bidders": ["A chart against the number of bidders takes counts (a list or a range)."]})
     answers = [_revenue_at(body, bidders=n) for n in xs]
@@ -142,7 +188,6 @@ def _by_bidders(body, opts):
 
 
 def _bid_strategy(body, opts):
-    _no_groups(body)
     body = dict(body)
     key = "rules" if "rules" in body else "rule"
     rules = body.pop("rules", None) or [body.pop("rule", "first_price")]
@@ -224,7 +269,9 @@ def _answer(chart, fmt, build):
     except BudgetSpent:
         return _refuse(spent_error(), fmt)
     except ValidationError as err:
-        return _refuse(query.flat_errors(err) if request.method == "GET" else err, fmt)
+        if request.method == "GET":
+            err = query.flat_group_errors(err) if query.asks_for_groups(request.args) else query.flat_errors(err)
+        return _refuse(err, fmt)
     if fmt == "json":
         return json_response({"chart": chart, "series": drawn.series})
     return Response(drawn.render(fmt), mimetype=draw.MEDIA[fmt])
@@ -241,10 +288,18 @@ def _refuse(err, fmt, status=422):
 
 def _chart_query(args, door, errors):
     """The POST body from the flat query: the value model, the case, and each chart's axis."""
-    body = query.case_body(args, door, errors, ("bidders", "reserve", "seller_value", "buyer_value"))
+    if query.asks_for_groups(args):
+        body = query.groups_body(args, door, errors, caps().groups)
+        for key in ("reserve", "seller_value", "buyer_value"):
+            if key in args:
+                body[key] = door.number(key, args[key], errors)
+    else:
+        body = query.case_body(args, door, errors, ("bidders", "reserve", "seller_value", "buyer_value"))
     for key in ("rule", "rules"):
         if key in args:
             body["rules"] = door.names(args[key])
+    if "reserves" in args:
+        body["reserves"] = door.number_list("reserves", args["reserves"], errors)
     for axis in ("reserves", "bidders"):
         ranged = {k: door.number(f"{axis}_{k}", args[f"{axis}_{k}"], errors)
                   for k in ("from", "to", "step", "steps") if f"{axis}_{k}" in args}
@@ -256,8 +311,9 @@ def _chart_query(args, door, errors):
 
 
 def _query_keys():
-    return {"direction", "family", "bidders", "reserve", "seller_value", "buyer_value", "rule", "rules", "points",
-            *_OPTIONS, *query.model_keys(), *(f"{a}_{k}" for a in ("reserves", "bidders") for k in ("from", "to", "step", "steps"))}
+    return {"direction", "family", "bidders", "reserve", "reserves", "seller_value", "buyer_value", "rule", "rules", "points",
+            *_OPTIONS, *query.model_keys(), *query.COUNT_KEYS, *query.group_keys(caps().groups),
+            *(f"{a}_{k}" for a in ("reserves", "bidders") for k in ("from", "to", "step", "steps"))}
 
 
 @bp.get("/v1/charts/<chart>.<fmt>")
