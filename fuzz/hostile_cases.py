@@ -680,8 +680,37 @@ def group_cases():
     ]
 
 
+def chart_cases():
+    """The chart doors at their size caps, with long axes, heavy models, and refused in both ways."""
+    g = "charts"
+    lg = [("family", "lognormal"), ("median", 62000), ("sigma", 0.35), ("bidders", 8)]
+    png, svg = "/v1/charts/revenue-by-reserve.png", "/v1/charts/top-values.svg"
+    records = [{"bidders": 3 + i % 5, "price": 50000 + 37 * ((i * 7919) % 1000)} for i in range(2000)]
+    return [
+        get(g, "the largest picture", png, lg + [("width", 2400), ("height", 1600), ("seller_value", 30000)], heavy=True),
+        get(g, "1,000 reserves on the axis", png, lg + [("reserves_from", 0), ("reserves_to", 200000), ("reserves_steps", 1000)],
+            heavy=True),
+        get(g, "revenue by bidders up to 10^6", "/v1/charts/revenue-by-bidders.png", lg[:3] + [("bidders", 1000000)], heavy=True),
+        get(g, "a width of 1e300", svg, lg + [("width", "1e300")]),
+        get(g, "a currency of markup", svg, lg + [("currency", "<b>&amp;")]),
+        get(g, "a chart that is not one", "/v1/charts/pie.png", lg),
+        get(g, "a format that is not one", "/v1/charts/top-values.gif", lg),
+        get(g, "the points of a mixture's joint density", "/v1/charts/joint-density.svg",
+            [("family", "pareto"), ("shape", 2.5), ("minimum", 1), ("bidders", 1000000)], accept="application/json"),
+        get(g, "a refused chart, as JSON", svg, lg + [("bidders", 0)], accept="application/json"),
+        post(g, "bids of a 10-component mixture, as an image", "/v1/charts/bid-strategy",
+             {"bidder_values": mixture(10), "bidders": 6, "rules": ["first_price", "second_price", "all_pay"]},
+             headers={"Accept": "image/png"}, heavy=True),
+        post(g, "a fit chart of 2,000 auctions", "/v1/charts/fit", {"rule": "ascending", "auctions": records,
+                                                                    "families": ["lognormal", "gamma"]}, heavy=True),
+        post(g, "a fit chart of bids", "/v1/charts/fit", {"rule": "first_price", "auctions": [{"bidders": 3, "bids": [1, 2, 3]}] * 5}),
+        post(g, "a refused chart, as an image", "/v1/charts/top-values", {"bidder_values": {"family": "uniform"}, "bidders": 3},
+             headers={"Accept": "image/svg+xml"}),
+    ]
+
+
 def all_cases(seed, random_count):
     """Every group in order, the heavy cases first so that the light ones fill the gaps."""
-    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + count_cases() + group_cases() + door_cases() + \
-        random_cases(seed, random_count)
+    cases = nesting_cases() + magnitude_cases() + reserve_cases() + cap_cases() + count_cases() + group_cases() + chart_cases() + \
+        door_cases() + random_cases(seed, random_count)
     return [c for c in cases if c.heavy] + [c for c in cases if not c.heavy]
