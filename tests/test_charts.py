@@ -147,6 +147,11 @@ def test_fit_chart_draws_the_prices_against_each_models_price_distribution(clien
     for x, p in zip(line["value"], line["p"]):
         implied = np.mean([special.betainc(n - 1, 2, value.cdf(x)) for n in counts])
         assert implied == pytest.approx(p, abs=1e-8)
+    body = {"rule": "ascending", "families": ["lognormal"], "auctions": records}
+    r = client.post("/v1/charts/fit?width=500&height=300", headers={"Accept": "image/svg+xml"}, json=body)
+    assert r.status_code == 200 and r.mimetype == "image/svg+xml" and _svg_size(r.data) == pytest.approx((360, 216))
+    r = client.post("/v1/charts/fit?width=500&height=300", headers={"Accept": "image/png"}, json=body)
+    assert r.status_code == 200 and matplotlib.image.imread(io.BytesIO(r.data), format="png").shape[:2] == (300, 500)
     r = client.get(f"/v1/charts/fit.svg?{U01}&bidders=3", headers={"Accept": "application/json"})
     assert r.status_code == 422 and "chart" in [e["field"] for e in r.get_json()["errors"]]
 
