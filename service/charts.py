@@ -114,6 +114,27 @@ def top_values(answer, direction, *, width, height, currency=None, footnote=""):
     return Drawn(fig, series)
 
 
+def top_values_cdf(answer, direction, *, width, height, currency=None, footnote=""):
+    """The distribution functions of the highest and second-highest value across bidder groups
+    (reverse: the lowest costs), from their quantiles, means marked, with each group's chance to
+    hold the top rank. ``answer``: /v1/top-values for groups with a grid of quantiles."""
+    names = ("highest value", "second-highest value") if direction == "forward" else ("lowest cost", "second-lowest cost")
+    fig, ax = _canvas(width, height, f"Where the {names[0]} and the {names[1]} fall, across the groups", footnote)
+    series = {}
+    for (ink, style), res, name in zip(INKS, answer["results"][:2], names):
+        xs, ps = [q["value"] for q in res["quantiles"]], [q["p"] for q in res["quantiles"]]
+        held = ", ".join(f"{g['name']} {g['probability']:.0%}" for g in res.get("groups", []))
+        ax.plot(xs, ps, color=ink, linestyle=style, linewidth=1.8,
+                label=f"{name}, mean {amount(res['mean'], currency)}" + (f" ({held})" if held else ""))
+        ax.axvline(res["mean"], color=ink, linestyle=style, linewidth=0.9, alpha=0.8)
+        series[f"rank{res['rank']}"] = {"value": xs, "p": ps, "mean": res["mean"]}
+    ax.set_xlabel(("value" if direction == "forward" else "cost") + _money_axis(ax.xaxis, currency), color=TEXT)
+    ax.set_ylabel("probability at or below", color=TEXT)
+    ax.set_ylim(0.0, 1.0)
+    _legend(ax, "lower right" if direction == "forward" else "upper left")
+    return Drawn(fig, series)
+
+
 def joint_density(answer, *, width, height, currency=None, footnote=""):
     """Filled contours of the joint density of the top two values. ``answer``: the joint
     density on a grid (/v1/top-values/joint-density)."""

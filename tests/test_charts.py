@@ -175,7 +175,14 @@ def test_group_charts_plot_the_group_routes(client):
             "reserve": 0.3, "rules": ["first_price", "second_price"]}
     ref = client.post("/v1/revenue", json=body).get_json()
     assert [s["rules"][r["rule"]]["mean"][1] for r in ref["results"]] == [r["expected_revenue"] for r in ref["results"]]
-    r = client.get(f"/v1/charts/top-values.svg?{_GROUPS}", headers={"Accept": "application/json"})
+    # across groups the chart draws the distribution functions: here the top two of three uniform
+    # values, x^3 and 3x^2 - 2x^3 (David and Nagaraja 2003, ch. 2)
+    s = _series(client, "top-values", _GROUPS)
+    for x, p in zip(s["rank1"]["value"], s["rank1"]["p"]):
+        assert x**3 == pytest.approx(p, abs=1e-8)
+    for x, p in zip(s["rank2"]["value"], s["rank2"]["p"]):
+        assert 3 * x**2 - 2 * x**3 == pytest.approx(p, abs=1e-8)
+    r = client.get(f"/v1/charts/revenue-by-bidders.svg?{_GROUPS}", headers={"Accept": "application/json"})
     assert r.status_code == 422
 
 

@@ -58,7 +58,10 @@ def _no_groups(body):
 
 
 def _top_values(body, opts):
-    _no_groups(body)
+    if groups.asks_for_groups(body):  # no density curves across groups: their distribution functions
+        grid = [(i + 0.5) / FIT_POINTS for i in range(FIT_POINTS)]
+        answer = top_values.top_values_handler({**body, "quantiles": grid})
+        return draw.top_values_cdf(answer, _direction(body), footnote=_footnote(answer, opts["width"]), **opts)
     if isinstance(body.get("bidders"), dict):
         raise ValidationError({"bidders": ["The top-values chart draws the densities for a certain number of bidders: "
                                            "give a number."]})
