@@ -176,8 +176,8 @@ def by_axis(points, axis, direction, *, optimum=None, width, height, currency=No
             for edge in (low, high):
                 ax.plot(xs, edge, color=ink, linestyle=style, linewidth=0.6, alpha=0.7)
         entry = {"mean": mean, "p05": low, "p95": high}
-        if points[0][2] is not None:
-            payoff = [p[2][rule] for p in points]
+        payoff = [p[2].get(rule) if p[2] is not None else None for p in points]
+        if all(v is not None for v in payoff):
             ax.plot(xs, payoff, color=ink, linestyle=style, linewidth=1.0, marker="o", markersize=2.5,
                     label=f"{label}: auctioneer's payoff")
             entry["payoff"] = payoff

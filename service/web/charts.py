@@ -17,7 +17,7 @@ from .. import charts as draw
 from ..core.budget import BudgetSpent
 from . import auctions, fits, groups, query, sweeps, top_values
 from .fields import caps
-from .io import json_body, json_response
+from .io import json_body, json_response, load
 from .problems import flatten, spent_error, validation_problem
 
 bp = Blueprint("charts", __name__)
@@ -28,6 +28,8 @@ WIDTH, HEIGHT = (240, 720, 2400), (160, 450, 1600)
 RESERVE_POINTS, BID_POINTS = 21, 101
 #: The most bidder counts drawn where one count n is given (1 to 2n).
 BIDDER_POINTS = 40
+#: Quantiles drawn for a distribution function (across groups; a fitted model's price).
+QUANTILES = [(i + 0.5) / 99 for i in range(99)]
 _CURRENCY = re.compile(r"^[A-Za-z€$£¥₹₩₺₽¢]{1,8}$")
 _OPTIONS = ("width", "height", "currency")
 
@@ -51,16 +53,9 @@ def _footnote(answer, width):
     return line + "."
 
 
-def _no_groups(body):
-    if groups.asks_for_groups(body):
-        key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
-        raise ValidationError({key: ["This chart draws one model's ranks; with groups, ask /v1/top-values for them."]})
-
-
 def _top_values(body, opts):
     if groups.asks_for_groups(body):  # no density curves across groups: their distribution functions
-        grid = [(i + 0.5) / FIT_POINTS for i in range(FIT_POINTS)]
-        answer = top_values.top_values_handler({**body, "quantiles": grid})
+        answer = top_values.top_values_handler({**body, "quantiles": QUANTILES})
         return draw.top_values_cdf(answer, _direction(body), footnote=_footnote(answer, opts["width"]), **opts)
     if isinstance(body.get("bidders"), dict):
         raise ValidationError({"bidders": ["The top-values chart draws the densities for a certain number of bidders: "
@@ -78,21 +73,19 @@ def _joint_density(body, opts):
 
 def _value_range(body):
     """The 0.1% and 99% quantiles of one bidder's value (cost), /v1/top-values for one bidder; with
-    groups, from the lowest group's 0.1% to the highest group's 99%."""
+    groups (loaded by their schema, which also refuses a malformed body), from the lowest group's
+    0.1% to the highest group's 99%."""
     if groups.asks_for_groups(body):
-        key = "bidder_groups" if "bidder_groups" in body else "cost_groups"
-        inner = "bidder_values" if key == "bidder_groups" else "bidder_costs"
-        models = [g.get(inner) if isinstance(g, dict) else None for g in body[key]] if isinstance(body[key], list) else []
+        plain = {k: v for k, v in body.items() if k not in ("reserve", "rules", "seller_value", "buyer_value")}
+        req = load(groups.GroupRevenueRequest, plain)
+        key = "bidder_groups" if req["bidder_groups"] is not None else "cost_groups"
         own = "bidder_values" if key == "bidder_groups" else "bidder_costs"
-    else:
-        models, own = [body.get(_own(body))], _own(body)
-    lows, highs = [], []
-    for model in models:
-        one = top_values.top_values_handler({own: model, "bidders": 1, "ranks": [1], "quantiles": [0.001, 0.99]})
-        q = one["results"][0]["quantiles"]
-        lows.append(q[0]["value"])
-        highs.append(q[1]["value"])
-    return min(lows), max(highs)
+        models = [g[own] for g in req[key]]
+        return min(float(m.ppf(0.001)) for m in models), max(float(m.ppf(0.99)) for m in models)
+    one = top_values.top_values_handler({_own(body): body.get(_own(body)), "bidders": 1, "ranks": [1],
+                                         "quantiles": [0.001, 0.99]})
+    q = one["results"][0]["quantiles"]
+    return q[0]["value"], q[1]["value"]
 
 
 #: Rules drawn where none are asked: the two the trade compares most.
@@ -125,10 +118,9 @@ def _payoffs(body, axis, xs):
     plain = {k: v for k, v in body.items() if k not in ("reserve", "reserves", "quantiles", "monte_carlo")}
     table = sweeps.sweeps_handler({**plain, **swept, "metrics": ["expected_payoff"]})
     col = {c: i for i, c in enumerate(table["columns"])}
-    out = [dict() for _ in xs]
-    for row in table["rows"]:
-        out[xs.index(row[col[axis if axis == "reserve" else "bidders"]])][row[col["rule"]]] = row[col["expected_payoff"]]
-    return out
+    at = {(row[col[axis if axis == "reserve" else "bidders"]], row[col["rule"]]): row[col["expected_payoff"]]
+          for row in table["rows"]}
+    return [{rule: v for (x0, rule), v in at.items() if x0 == x} for x in xs]
 
 
 def _by_reserve(body, opts):
@@ -210,10 +202,6 @@ def _bid_strategy(body, opts):
     return draw.bid_strategy(answers, _direction(body), footnote=_footnote(answers[0], opts["width"]), **opts)
 
 
-#: Points on each fitted model's price distribution.
-FIT_POINTS = 99
-
-
 def _fit(body, opts):
     """Past prices against the fitted models: /v1/fits (its bootstrap left out: the chart shows no
     intervals), then each candidate's distribution of the price over the records' bidder counts
@@ -230,10 +218,9 @@ def _fit(body, opts):
         counts[a["bidders"]] = counts.get(a["bidders"], 0) + 1
     table = {"distribution": "table", "probabilities": [{"bidders": n, "p": k / len(records)} for n, k in sorted(counts.items())]}
     key = "bidder_values" if answer["direction"] == "forward" else "bidder_costs"
-    grid = [(i + 0.5) / FIT_POINTS for i in range(FIT_POINTS)]
     models = []
     for cand in answer.get("candidates", [])[:4]:
-        implied = top_values.top_values_handler({key: cand["model"], "bidders": table, "ranks": [2], "quantiles": grid})
+        implied = top_values.top_values_handler({key: cand["model"], "bidders": table, "ranks": [2], "quantiles": QUANTILES})
         models.append((cand["model"]["family"], cand.get("aic"), implied["results"][0]["quantiles"]))
     prices = sorted(a["price"] for a in records)
     return draw.fit(prices, models, answer["direction"], answer["selected"]["model"],
