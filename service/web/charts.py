@@ -130,7 +130,7 @@ def _by_reserve(body, opts):
     if axis is None:
         lo, hi = _value_range(body)
         axis = {"from": lo, "to": hi, "steps": RESERVE_POINTS}
-    xs = _axis("reserves", axis)
+    xs = sorted(set(_axis("reserves", axis)))  # drawn left to right, each once
     if grouped:  # a reserve where the first-price equilibrium is not found is left out, and said
         answers, missed = [], []
         for x in xs:
@@ -177,6 +177,7 @@ def _by_bidders(body, opts):
     xs = _axis("bidders", counts)
     if not all(isinstance(n, int) for n in xs):
         raise ValidationError({"bidders": ["A chart against the number of bidders takes counts (a list or a range)."]})
+    xs = sorted(set(xs))
     answers = [_revenue_at(body, bidders=n) for n in xs]
     payoffs = _payoffs(body, "bidders", xs)
     return draw.by_axis(list(zip(xs, answers, payoffs)), "bidders", _direction(body), footnote=_footnote(answers[0], opts["width"]), **opts)
