@@ -227,21 +227,22 @@ def bid_strategy(answers, direction, *, width, height, currency=None, footnote="
     return Drawn(fig, series)
 
 
-def fit(prices, models, direction, selected, *, width, height, currency=None, footnote=""):
-    """Past prices' empirical distribution against each fitted model's distribution of the price.
-    ``models``: (family, AIC, quantiles [{p, value}] of the price over the records' bidder counts)."""
-    fig, ax = _canvas(width, height, "Past prices against what the fitted models imply", footnote)
-    k = len(prices)
-    ax.step(prices, [(i + 1) / k for i in range(k)], where="post", color=TEXT, linewidth=1.4, label=f"past prices ({k})")
-    series = {"prices": prices, "models": {}}
+def fit(observed, models, direction, selected, *, of="prices", width, height, currency=None, footnote=""):
+    """Past prices' (or bids') empirical distribution against each fitted model's distribution of
+    them. ``models``: (name, AIC or None, quantiles [{p, value}] of what is observed)."""
+    fig, ax = _canvas(width, height, f"Past {of} against what the fitted models imply", footnote)
+    k = len(observed)
+    ax.step(observed, [(i + 1) / k for i in range(k)], where="post", color=TEXT, linewidth=1.4, label=f"past {of.split(' (')[0]} ({k})")
+    series = {"observed": observed, "of": of, "models": {}}
     for (ink, style), (family, aic, quantiles) in zip(INKS, models):
         xs, ps = [q["value"] for q in quantiles], [q["p"] for q in quantiles]
         mark = " (selected)" if family == selected else ""
         ax.plot(xs, ps, color=ink, linestyle=style, linewidth=1.8,
                 label=f"{family}{mark}" + ("" if aic is None else f", AIC {aic:,.1f}"))
         series["models"][family] = {"value": xs, "p": ps, "aic": aic}
-    ax.set_xlabel(("price" if direction == "forward" else "price paid") + _money_axis(ax.xaxis, currency), color=TEXT)
-    ax.set_ylabel("share of auctions at or below", color=TEXT)
+    what = "price" if of == "prices" else "bid"
+    ax.set_xlabel((what if direction == "forward" else f"{what} (reverse)") + _money_axis(ax.xaxis, currency), color=TEXT)
+    ax.set_ylabel(f"share of {'auctions' if what == 'price' else 'bids'} at or below", color=TEXT)
     ax.set_ylim(0.0, 1.0)
     _legend(ax, "lower right")
     return Drawn(fig, series)

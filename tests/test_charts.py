@@ -137,7 +137,7 @@ def test_fit_chart_draws_the_prices_against_each_models_price_distribution(clien
     r = client.post("/v1/charts/fit", json={"rule": "ascending", "families": ["lognormal"], "auctions": records})
     assert r.status_code == 200, r.get_data(as_text=True)
     s = r.get_json()["series"]
-    assert s["prices"] == sorted(p["price"] for p in records)
+    assert s["observed"] == sorted(p["price"] for p in records)
     fitted = client.post("/v1/fits", json={"rule": "ascending", "families": ["lognormal"], "auctions": records,
                                            "confidence": {"replications": 0}}).get_json()
     m = next(c["model"] for c in fitted["candidates"] if c["model"]["family"] == "lognormal")
@@ -184,6 +184,27 @@ def test_group_charts_plot_the_group_routes(client):
         assert 3 * x**2 - 2 * x**3 == pytest.approx(p, abs=1e-8)
     r = client.get(f"/v1/charts/revenue-by-bidders.svg?{_GROUPS}", headers={"Accept": "application/json"})
     assert r.status_code == 422
+
+
+def test_fit_chart_draws_first_price_bids_against_each_models_bids(client):
+    """First-price bids of the most frequent bidder count against each model's bid distribution:
+    at each plotted point the model's value at quantile p bids b(v) = v - int_0^v F^(n-1) / F(v)^(n-1)
+    (Krishna 2009, ch. 2), computed here with scipy's quad."""
+    from scipy import integrate, stats
+
+    bids = [[31, 44, 38, 52], [29, 41, 47, 35], [36, 33, 49, 40], [27, 45, 39, 51], [34, 42, 30, 46], [37, 48, 32, 43]]
+    records = [{"bidders": 4, "bids": b} for b in bids] + [{"bidders": 3, "bids": [30, 40, 35]}]
+    body = {"rule": "first_price", "families": ["lognormal"], "auctions": records}
+    s = client.post("/v1/charts/fit", json=body).get_json()["series"]
+    assert s["observed"] == sorted(x for b in bids for x in b) and s["of"] == "bids (auctions of 4 bidders)"
+    fitted = client.post("/v1/fits", json={**body, "confidence": {"replications": 0}}).get_json()
+    m = next(c["model"] for c in fitted["candidates"] if c["model"]["family"] == "lognormal")
+    F = stats.lognorm(m["sigma"], scale=m["median"])
+    line = s["models"]["lognormal"]
+    for p, b in list(zip(line["p"], line["value"]))[::20]:
+        v = F.ppf(p)
+        ref = v - integrate.quad(lambda t: F.cdf(t) ** 3, 0, v, epsabs=1e-13, epsrel=1e-12)[0] / F.cdf(v) ** 3
+        assert b == pytest.approx(ref, rel=1e-7)
 
 
 def test_post_chart_takes_the_owning_routes_body(client):

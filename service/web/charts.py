@@ -204,27 +204,58 @@ def _bid_strategy(body, opts):
 
 
 def _fit(body, opts):
-    """Past prices against the fitted models: /v1/fits (its bootstrap left out: the chart shows no
-    intervals), then each candidate's distribution of the price over the records' bidder counts
-    (/v1/top-values, rank 2, with the counts as a table)."""
+    """Past prices (or first-price bids) against the fitted models: /v1/fits (its bootstrap left
+    out: the chart shows no intervals), then what each model implies through the JSON routes."""
     if not isinstance(body.get("auctions"), list) or not body["auctions"]:
         raise ValidationError({"auctions": ["Give the past auctions, as /v1/fits takes them."]})
     answer = fits.fits_handler({**body, "confidence": {**(body.get("confidence") or {}), "replications": 0}})
     records = body["auctions"]  # valid: the fit loaded them
-    if any(a.get("price") is None or a.get("reserve") is not None for a in records):
-        raise ValidationError({"auctions": ["The fit chart draws the prices of second-price and ascending auctions "
-                                            "without a reserve; these records hold bids or reserves."]})
+    key = "bidder_values" if answer["direction"] == "forward" else "bidder_costs"
+    if any(a.get("reserve") is not None for a in records):
+        raise ValidationError({"auctions": ["The fit chart draws records without a reserve."]})
+    if all(a.get("price") is not None for a in records):
+        return _fit_prices(answer, records, key, opts)
+    if answer["rule"] == "first_price" and all(a.get("bids") for a in records):
+        return _fit_bids(answer, records, key, opts)
+    raise ValidationError({"auctions": ["The fit chart draws prices (second price, ascending) or every bid (first "
+                                        "price); these records hold winning bids alone."]})
+
+
+def _fit_prices(answer, records, key, opts):
+    """Each candidate's distribution of the price (rank 2) over the records' bidder counts, as a
+    table (/v1/top-values), against the prices."""
     counts = {}
     for a in records:
         counts[a["bidders"]] = counts.get(a["bidders"], 0) + 1
     table = {"distribution": "table", "probabilities": [{"bidders": n, "p": k / len(records)} for n, k in sorted(counts.items())]}
-    key = "bidder_values" if answer["direction"] == "forward" else "bidder_costs"
     models = []
     for cand in answer.get("candidates", [])[:4]:
         implied = top_values.top_values_handler({key: cand["model"], "bidders": table, "ranks": [2], "quantiles": QUANTILES})
         models.append((cand["model"]["family"], cand.get("aic"), implied["results"][0]["quantiles"]))
     prices = sorted(a["price"] for a in records)
     return draw.fit(prices, models, answer["direction"], answer["selected"]["model"],
+                    footnote=_footnote(answer, opts["width"]), **opts)
+
+
+def _fit_bids(answer, records, key, opts):
+    """The bids of the auctions with the most frequent bidder count n against each model's bid
+    distribution there: the model's value quantiles (/v1/top-values, one bidder) and the
+    first-price bids at them (/v1/bid-strategy with n bidders)."""
+    counts = {}
+    for a in records:
+        counts[a["bidders"]] = counts.get(a["bidders"], 0) + 1
+    n = max(sorted(counts), key=counts.get)
+    bids = sorted(b for a in records if a["bidders"] == n for b in a["bids"])
+    candidates = [(c["model"]["family"], c.get("aic"), c["model"]) for c in answer.get("candidates", [])[:3]]
+    if answer.get("nonparametric"):
+        candidates.append(("nonparametric", None, answer["nonparametric"]["model"]))
+    models = []
+    for name, aic, model in candidates:
+        one = top_values.top_values_handler({key: model, "bidders": 1, "ranks": [1], "quantiles": QUANTILES})
+        at = [q["value"] for q in one["results"][0]["quantiles"]]
+        strategy = auctions.bid_strategy_handler({key: model, "bidders": n, "rule": "first_price", "at": at})
+        models.append((name, aic, [{"p": p, "value": b} for p, b in zip(QUANTILES, strategy["bids"]) if b is not None]))
+    return draw.fit(bids, models, answer["direction"], answer["selected"]["model"], of=f"bids (auctions of {n} bidders)",
                     footnote=_footnote(answer, opts["width"]), **opts)
 
 
