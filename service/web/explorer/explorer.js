@@ -221,20 +221,23 @@ async function fit(event) {
 }
 
 function records(text) {
-  // the simple CSV of the panel (a header row, commas, plain numbers) as /v1/fits's JSON records
+  // the panel's simple CSV (a header row, commas, plain numbers) as /v1/fits's JSON records:
+  // a row per auction with its price, or a row per bid, gathered by auction
   const lines = text.trim().split(/\r?\n/).map((l) => l.split(",").map((c) => c.trim()));
   const head = lines.shift() || [];
-  return lines.filter((l) => l.length === head.length).map((l) => {
-    const rec = {};
-    head.forEach((name, i) => { if (name !== "auction") rec[name] = Number(l[i]); });
-    return rec;
-  });
+  const rows = lines.filter((l) => l.length === head.length).map((l) => Object.fromEntries(head.map((h, i) => [h, l[i]])));
+  if (!head.includes("bid")) return rows.map((r) => ({bidders: Number(r.bidders), price: Number(r.price)}));
+  const byAuction = new Map();
+  for (const r of rows) {
+    if (!byAuction.has(r.auction)) byAuction.set(r.auction, {bidders: Number(r.bidders), bids: []});
+    byAuction.get(r.auction).bids.push(Number(r.bid));
+  }
+  return [...byAuction.values()];
 }
 
 async function fitChart(rule) {
   const figure = $("fit-figure");
   figure.hidden = true;
-  if (rule === "first_price") return;  // the chart draws prices
   try {
     const body = {rule, direction: direction(), families: ["lognormal", "gamma", "normal"], auctions: records($("past-csv").value)};
     const blob = await post("/v1/charts/fit?width=640&height=400", body, "image/svg+xml");
