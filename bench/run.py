@@ -1207,16 +1207,7 @@ def section_groups(ctx):
         rows.append([name, fmt_time(t_svc) if rep is not None else svc_note, fmt_err(err_svc),
                      fmt_err(foc), shoot_cell, fmt_err(err_sh), fmt_ratio(t_sh if sh is not None else None, t_svc)])
         if res is not None and sh is None and res["why"].startswith("no common"):
-            # the equilibrium without a common top bid: weaker groups start bidding below it
-            late, t_late, late_note = capped(lambda: shoot_first_price(counts, tops, expos, entry=True), cap_s=GROUPS_SHOOT_CAP_S)
-            if late is None or late["revenue"] is None:
-                notes.append(f"    with weaker groups stopping below the top bid: {late_note or late['why']}")
-            else:
-                starts = ", ".join(f"group {i + 1} bids at most {b:.4f}" for i, b in sorted(late["entries"].items()))
-                versus = "service: " + (fmt_err(abs(late["revenue"] / svc - 1)) + " apart, " + fmt_ratio(t_late, t_svc)
-                                        + " faster" if svc is not None else svc_note)
-                notes.append(f"    with weaker groups stopping below the top bid: revenue {late['revenue']:.8f}, top bid "
-                             f"{late['top_bid']:.6f}, {starts}; {fmt_time(t_late)}, {late['shots']} shots; {versus}")
+            notes.append(_stopping_note(counts, tops, expos, svc, t_svc, svc_note))
     print(table(["case", "service", "service rel.err", "foc residual", "shooting", "shooting rel.err", "shooting/service"], rows))
     for line in notes:
         print(line)
@@ -1224,6 +1215,19 @@ def section_groups(ctx):
     ctx["groups_service_max"] = max(answered) if answered else None
     ctx["groups_ratio_min"] = min(ratios) if ratios else None
     ctx["groups_missing"] = (missing, len(cases))
+
+
+def _stopping_note(counts, tops, expos, svc, t_svc, svc_note):
+    """Where plain shooting finds no common top bid: the extended shooting (weaker groups stopping
+    below the top bid) against the service, as a note line."""
+    late, t_late, late_note = capped(lambda: shoot_first_price(counts, tops, expos, entry=True), cap_s=GROUPS_SHOOT_CAP_S)
+    if late is None or late["revenue"] is None:
+        return f"    with weaker groups stopping below the top bid: {late_note or late['why']}"
+    starts = ", ".join(f"group {i + 1} bids at most {b:.4f}" for i, b in sorted(late["entries"].items()))
+    versus = "service: " + (fmt_err(abs(late["revenue"] / svc - 1)) + " apart, " + fmt_ratio(t_late, t_svc)
+                            + " faster" if svc is not None else svc_note)
+    return (f"    with weaker groups stopping below the top bid: revenue {late['revenue']:.8f}, top bid "
+            f"{late['top_bid']:.6f}, {starts}; {fmt_time(t_late)}, {late['shots']} shots; {versus}")
 
 
 CHART_CASES = [

@@ -87,7 +87,9 @@ def fill_form(page, values):
         page.fill(selector, str(value))
 
 
-def run(page, url, shots):
+def first_visit(page, url):
+    """Load /, see the refusal shown before a key is typed, check labels and the Tab order; the
+    first contentful paint (or DOM-ready time) in ms."""
     t0 = time.monotonic()
     page.goto(url + "/")
     page.wait_for_function("() => document.getElementById('status').textContent.startsWith('Not computed')", timeout=WAIT_MS)
@@ -95,11 +97,8 @@ def run(page, url, shots):
         performance.getEntriesByType('navigation')[0].domContentLoadedEventEnd]""")
     print(f"browser: first contentful paint {paint:.0f} ms, DOM ready {ready:.0f} ms after navigation (the page's clock; "
           f"-1: not reported by this browser); the first answers shown {1000 * (time.monotonic() - t0):.0f} ms after it")
-    paint = paint if paint >= 0 else ready
     check("401" in page.text_content("#status") or "key" in page.text_content("#status").lower(),
           "without the key the page says the service refused: " + page.text_content("#status"))
-
-    # labels and the keyboard's first stops
     unlabelled = page.evaluate("""() => [...document.querySelectorAll('input, select, textarea')]
         .filter(e => !(e.labels && e.labels.length)).map(e => e.id || e.name)""")
     check(unlabelled == [], f"every input has a label (unlabelled: {unlabelled})")
@@ -109,8 +108,11 @@ def run(page, url, shots):
         page.keyboard.press("Tab")
         stops.append(page.evaluate("() => document.activeElement.id"))
     check(stops == ["direction", "bidders", "reserve"], f"Tab walks the form in reading order ({stops})")
+    return paint if paint >= 0 else ready
 
-    # a sale: the figures against the JSON API
+
+def sale(page, url, shots):
+    """A sale's inputs typed in, with the key: the figures, charts and formula against the JSON API."""
     page.fill("#api-key", KEY)
     page.select_option("#direction", "forward")
     page.select_option("#family", "lognormal")
@@ -136,7 +138,9 @@ def run(page, url, shots):
           f"the formula's URL answers the same figure ({quote.text.strip()})")
     page.screenshot(path=str(shots / "sale.png"), full_page=True)
 
-    # a tender
+
+def tender(page, url, shots):
+    """The same page switched to a tender: the payment against the JSON API."""
     page.select_option("#direction", "reverse")
     page.select_option("#family", "uniform")
     fill_form(page, {"#param-low": 80, "#param-high": 140, "#bidders": 6, "#reserve": 125, "#own": 150})
@@ -150,7 +154,9 @@ def run(page, url, shots):
     check(close(shown, pay["results"][0]["expected_payment"]), f"tender: first-price expected payment {shown} = the API's")
     page.screenshot(path=str(shots / "tender.png"), full_page=True)
 
-    # past auctions: paste, fit, use
+
+def past_auctions(page, shots):
+    """Paste past auctions, see a fit and its chart, and put the fitted model to use."""
     page.select_option("#direction", "forward")
     page.fill("#past-csv", PAST)
     page.select_option("#past-rule", "ascending")
@@ -166,6 +172,13 @@ def run(page, url, shots):
     wait_figures(page)
     check(page.text_content("#status").startswith("Up to date"), "the fitted model drives the figures")
     page.screenshot(path=str(shots / "fit.png"), full_page=True)
+
+
+def run(page, url, shots):
+    paint = first_visit(page, url)
+    sale(page, url, shots)
+    tender(page, url, shots)
+    past_auctions(page, shots)
     return paint
 
 
