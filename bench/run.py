@@ -1147,6 +1147,18 @@ def _service_first_price(groups, cap_s):
         return None, None, f"refused ({e.field})"
 
 
+# (case, [(count, top of the values, exponent a: F = (v / top)^a, 1 = uniform)])
+GROUP_CASES = [
+    ("2 groups, tops 1, 2", [(1, 1.0, 1.0), (1, 2.0, 1.0)]),
+    ("2 groups, tops 1, 1.3", [(1, 1.0, 1.0), (1, 1.3, 1.0)]),
+    ("3 groups, tops 1, 1.1, 1.25", [(1, 1.0, 1.0), (1, 1.1, 1.0), (1, 1.25, 1.0)]),
+    ("3 groups, tops 1, 1.5, 2", [(1, 1.0, 1.0), (1, 1.5, 1.0), (1, 2.0, 1.0)]),
+    ("4 groups, counts 2,1,1,1, tops 1, 1.2, 1.6, 2", [(2, 1.0, 1.0), (1, 1.2, 1.0), (1, 1.6, 1.0), (1, 2.0, 1.0)]),
+    ("2 groups, 1 at top 1, 2 at top 2", [(1, 1.0, 1.0), (2, 2.0, 1.0)]),
+    ("uniform top 1, power a=2 top 1.5", [(1, 1.0, 1.0), (1, 1.5, 2.0)]),
+]
+
+
 def section_groups(ctx):
     from service.core.groups import Group, group_report
     from service.core.models import Power, Uniform
@@ -1163,16 +1175,7 @@ def section_groups(ctx):
     print("rel.err:  two uniform bidders against the closed form (Griesmer, Levitan and Shubik 1967) in mpmath, 30 digits;")
     print("          elsewhere the shooting's disagreement with the service")
     print()
-    # (case, [(count, top of the values, exponent a: F = (v / top)^a, 1 = uniform)])
-    cases = [
-        ("2 groups, tops 1, 2", [(1, 1.0, 1.0), (1, 2.0, 1.0)]),
-        ("2 groups, tops 1, 1.3", [(1, 1.0, 1.0), (1, 1.3, 1.0)]),
-        ("3 groups, tops 1, 1.1, 1.25", [(1, 1.0, 1.0), (1, 1.1, 1.0), (1, 1.25, 1.0)]),
-        ("3 groups, tops 1, 1.5, 2", [(1, 1.0, 1.0), (1, 1.5, 1.0), (1, 2.0, 1.0)]),
-        ("4 groups, counts 2,1,1,1, tops 1, 1.2, 1.6, 2", [(2, 1.0, 1.0), (1, 1.2, 1.0), (1, 1.6, 1.0), (1, 2.0, 1.0)]),
-        ("2 groups, 1 at top 1, 2 at top 2", [(1, 1.0, 1.0), (2, 2.0, 1.0)]),
-        ("uniform top 1, power a=2 top 1.5", [(1, 1.0, 1.0), (1, 1.5, 2.0)]),
-    ]
+    cases = GROUP_CASES
     rows, notes, answered, ratios, missing = [], [], [], [], 0
     for name, spec in cases:
         counts, tops, expos = zip(*spec)
