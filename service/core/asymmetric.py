@@ -324,7 +324,7 @@ class AsymmetricBids:
         for share in (None, 0.25, 0.8):
             ends, _, markdown = self._straight(share)
             yield self._fit(m, ends, markdown)
-        if getattr(self, "_quick", False):
+        if self._quick:
             return
         grids, tops = [], []
         for grp in self.groups:
@@ -341,9 +341,9 @@ class AsymmetricBids:
             k = (top - self.b0) / (ends[-1] - self.b0) if self.alone is None else 1.0
             ends, end_bid = self.b0 + k * (ends - self.b0), self.b0 + k * (end_bid - self.b0)
 
-            def markdown(i, b, ends=end_bid):
+            def markdown(i, b, last_bid=end_bid):
                 w, bs = grids[i]
-                return np.interp(self.b0 + (b - self.b0) * (tops[i] - self.b0) / (ends[i] - self.b0), bs, w) - b
+                return np.interp(self.b0 + (b - self.b0) * (tops[i] - self.b0) / (last_bid[i] - self.b0), bs, w) - b
 
             yield self._fit(m, ends, markdown)
 
