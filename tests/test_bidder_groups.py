@@ -178,8 +178,9 @@ def test_seeded_simulation_of_the_equilibrium(pricing, groups, reserve):
     ([Group("small", 1, Uniform(0.0, 1.0), preference=0.1), Group("large", 3, Uniform(0.0, 1.5))], 0.2),
     ([Group("local", 1, Uniform(0.0, 1.0), preference=0.05), Group("regional", 1, Uniform(0.0, 1.5)),
       Group("national", 1, Uniform(0.0, 2.0))], 0.2),
-    # two groups stop in turn and the strongest bids on alone
+    # two groups stop in turn and the strongest bids on alone; also with a reserve that cuts into all three
     ([Group("a", 2, Uniform(0.0, 1.0)), Group("b", 2, Uniform(0.0, 1.3)), Group("c", 2, Uniform(0.0, 1.6))], None),
+    ([Group("a", 2, Uniform(0.0, 1.0)), Group("b", 2, Uniform(0.0, 1.3)), Group("c", 2, Uniform(0.0, 1.6))], 0.5),
 ])
 def test_no_bidder_gains_by_deviating(groups, reserve):
     """Best response: on a grid of values, no bid on a fine grid of deviations earns more than

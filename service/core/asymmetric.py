@@ -33,6 +33,7 @@ collocated the same way, its start tied to the span below and its length one mor
 from __future__ import annotations
 
 import functools
+import itertools
 import math
 
 import numpy as np
@@ -214,6 +215,10 @@ class AsymmetricBids:
                     break
                 continue
             res = self.foc_residual()
+            if last is not None and res > 0.5 * last[1]:
+                # no spectral progress from the last solution: it may lie on a spurious branch of
+                # least-squares minima; the starts may find the true one
+                x, res = self._restart(m, x, res)
             if best is None or res < best[2]:
                 best = (m, x, res)
             if res < FOC_TOLERANCE:
@@ -230,9 +235,9 @@ class AsymmetricBids:
         """The point counts still to try, less those that will not bring the residual below
         FOC_TOLERANCE if it keeps falling geometrically, at the rate seen since the ``last``
         (points, residual)."""
-        if last is None or not 0.0 < res < last[1]:
+        if last is None or not 0.0 < res < 0.5 * last[1]:  # not falling as a spectral method's does
             return todo
-        rate = min(max((res / last[1]) ** (1.0 / (self.m - last[0])), 0.3), 0.95)
+        rate = max((res / last[1]) ** (1.0 / (self.m - last[0])), 0.3)
         enough = [m for m in todo if res * rate ** (m - self.m) < FOC_TOLERANCE]
         return todo[todo.index(enough[0]):] if enough else todo[-1:]
 
@@ -543,10 +548,11 @@ class AsymmetricBids:
 
     def _solve(self, m):
         """A solution with m points that passes for an equilibrium of this shape (set, and
-        returned), from the last one or else from each start in turn; None if none does."""
+        returned), from the last one or, failing that, from each start in turn; None if none does."""
         self._nd = self._nodes(m)
         kept = (self.m, self._flat()) if self.spans is not None else None
-        for start in ([self._warm(m)] if kept else self._starts(m)):
+        # the last solution first, where there is one; the starts where it leads nowhere
+        for start in itertools.chain([self._warm(m)] if kept else [], self._starts(m)):
             x = self._newton(start)
             if x is None:
                 continue
@@ -558,6 +564,15 @@ class AsymmetricBids:
         else:
             self.spans = None
         return None
+
+    def _restart(self, m, x, res):
+        """(unknowns, residual): the better of the warm solution x and one from the starts, at m points."""
+        self.spans = None
+        y = self._solve(m)
+        if y is not None and self.foc_residual() < res:
+            return y, self.foc_residual()
+        self._set(m, x)
+        return x, res
 
     def _admissible(self):
         """Whether the solution passes for an equilibrium of this shape: every inverse bid rising
