@@ -22,7 +22,9 @@ Meurer, Richard and Stromquist 1994), so the system has G - 1 more equations tha
 is solved by Gauss-Newton least squares. Near the floor the markdowns grow like b - b0 where the
 values start there with a density, and like sqrt(b - b0) where a reserve cuts into them; then
 b - b0 runs as L tau^2, so that d_i stays smooth in tau. Near the top the markdowns are smooth
-where each group's density is positive at its top; the caller offers this solver only then.
+where each group's density is positive at its top. A group without one (no top, or a density
+vanishing there) is offered only where it is left to bid on alone, above every other group's last
+bid, where the envelope formula gives its bids exactly.
 
 Where the groups' values end at different tops a common top bid may not exist: weaker groups
 then stop bidding in turn below it, each at its top value with zero bid density, and the groups
@@ -38,14 +40,14 @@ import math
 
 import numpy as np
 from numpy.polynomial import chebyshev as cheb
-from scipy import linalg
+from scipy import integrate, linalg
 
 from . import budget
 from .errors import ParameterError
 
 #: Collocation points per group, tried in turn until the residual of the first-order
 #: conditions between the nodes is below FOC_TOLERANCE.
-DEGREES = (24, 32, 40, 48, 64, 96)
+DEGREES = (24, 32, 40, 48, 64, 96, 128, 160)
 FOC_TOLERANCE = 1e-9
 #: A least-squares solution is taken (and judged by its residual between the nodes) when the
 #: sum of squares of its collocation residuals is below this.
@@ -94,12 +96,24 @@ def _least_squares_step(J, F):
 
 
 class ScoreGroup:
-    """One group in score space: scores W = m X, X from ``model`` (a forward value model with
-    a top), ``count`` bidders."""
+    """One group in score space: scores W = m X, X from ``model`` (a forward value model),
+    ``count`` bidders."""
 
     def __init__(self, model, count, multiplier):
         self.model, self.count, self.m = model, int(count), float(multiplier)
         self.lower, self.top = self.m * model.lower, self.m * model.upper
+        span = model.upper - model.lower
+        #: Whether the density at the top is too small, against the span's average, for inverse
+        #: bids to stay smooth in the bid up to it (uniform: 1, power(a): a; no top, or a density
+        #: vanishing there as a lognormal cost's does at 0: flat).
+        self.flat_top = not (math.isfinite(span) and float(model.pdf(np.array(model.upper - 1e-6 * span))) * span >= 1e-2)
+        #: The top, or where a flat top's last 10^-6 of probability starts: the scale of the values.
+        self.reach = self.at_quantile(1.0 - 1e-6) if self.flat_top and not math.isfinite(self.top) else self.top
+
+    def at_quantile(self, u):
+        """The score at quantile u (the model's, where 1 - u is exact in the upper tail)."""
+        u = np.asarray(u, float)
+        return self.m * self.model.value_at(u, 1.0 - u)
 
     def cdf(self, w):
         return self.model.cdf(np.asarray(w, float) / self.m)
@@ -131,7 +145,7 @@ class AsymmetricBids:
         self.N = self.n.sum()
         self.tops = np.array([g.top for g in groups])
         self.q = 2 if any(float(g.cdf(self.b0)) > 0.0 for g in groups) else 1
-        self.scale = float(self.tops.max() - self.b0)
+        self.scale = float(max(g.reach for g in groups) - self.b0)
         self.spans, self.residual, self._table = None, math.inf, {}
         shapes = self._shapes()
         # The shape (which groups stop first) is chosen at the fewest points from straight starting
@@ -155,7 +169,8 @@ class AsymmetricBids:
             if self.spans is not None:
                 break
         if self.spans is None:
-            raise ParameterError("bidder_groups", "the first-price equilibrium of these groups was not found; ask for "
+            raise ParameterError("bidder_groups", "the first-price equilibrium of these groups was not found; a reserve "
+                                                  "(maximum price) that cuts into the values sometimes helps; or ask for "
                                                   "second price")
 
     # --- the shape: which groups stop bidding below the top bid, in turn ---------------------
@@ -171,6 +186,12 @@ class AsymmetricBids:
             if self.tops[drops[-1]] >= min(self.tops[rest]) or self.n[rest].sum() < 2:
                 break
             shapes.append(tuple(drops))
+        flat = [i for i, g in enumerate(self.groups) if g.flat_top]
+        if flat:
+            # the inverse bids of a group with a flat top steepen without end at the common top
+            # bid: offered where that group is the only one left, bidding on alone above the others
+            whole = tuple(i for i in order if i not in flat)
+            return [whole] if len(flat) == 1 and self.n[flat[0]] >= 2 and whole in shapes else []
         likely = min(self._likely_stops(order), len(shapes) - 1)
         return [shapes[likely]] + [sh for sh in shapes[::-1] if sh != shapes[likely]]
 
@@ -250,25 +271,28 @@ class AsymmetricBids:
                 return False
         return True
 
-    def _stays_out(self, points=129):
+    def _stays_out(self, points=129, slack=1e-6):
         """Whether no group that stopped would gain by bidding again above its last bid: at its top
         value w_j a higher bid b pays while (w_j - b) S(b) > 1, S(b) the rate at which a higher bid
-        raises the chance of beating everyone still bidding (from their first-order conditions)."""
+        raises the chance of beating everyone still bidding (from their first-order conditions);
+        within ``slack``, as loose as a rough solution's residual."""
         tau = (np.arange(points) + 0.5) / points
         for s in range(1, self.K):
             b, phi, _ = self.at_tau(s, tau)
             act = self.active[s]
             rate = (self.n[act, None] / (phi[act] - b)).sum(0) / (self.n[act].sum() - 1.0)
             for j in self.drops[:s]:
-                if np.max((self.tops[j] - b) * rate) > 1.0 + 1e-6:
+                if np.max((self.tops[j] - b) * rate) > 1.0 + slack:
                     return False
         if self.alone is not None:
             k = self.n[self.alone]
-            w = self.v_star + (self.tops[self.alone] - self.v_star) * tau
+            grp = self.groups[self.alone]
+            u_star = float(grp.cdf(self.v_star))
+            w = grp.at_quantile(u_star + (1.0 - 1e-9 - u_star) * tau)
             b = self._alone_bids(w)
             rate = k / ((k - 1.0) * (w - b))
             for j in self.drops:
-                if np.max((self.tops[j] - b) * rate) > 1.0 + 1e-6:
+                if np.max((self.tops[j] - b) * rate) > 1.0 + slack:
                     return False
         return True
 
@@ -333,7 +357,9 @@ class AsymmetricBids:
             return
         grids, tops = [], []
         for grp in self.groups:
-            w = self.b0 + (grp.top - self.b0) * (0.5 - 0.5 * np.cos(np.linspace(0.0, np.pi, 201)))
+            u0 = float(grp.cdf(self.b0))
+            w = np.maximum(grp.at_quantile(u0 + (1.0 - 1e-9 - u0) * (0.5 - 0.5 * np.cos(np.linspace(0.0, np.pi, 201)))),
+                           self.b0)
             b = self._symmetric(grp, w)
             grids.append((w, b))
             tops.append(b[-1])
@@ -579,7 +605,8 @@ class AsymmetricBids:
         (a least-squares solution with a group's inverse bid falling near the top says that group
         stops earlier), no stopped group wanting to bid again, and the first-order conditions met
         to SHAPE_RESIDUAL between the nodes."""
-        return self._rising() and self._stays_out() and self.foc_residual() < SHAPE_RESIDUAL
+        res = self.foc_residual()
+        return res < SHAPE_RESIDUAL and self._rising() and self._stays_out(slack=max(1e-6, 10.0 * res))
 
     def _newton(self, x):
         with np.errstate(all="ignore"):  # a failed start is a None, not a warning
@@ -708,20 +735,32 @@ class AsymmetricBids:
         self.beta = self.span_top
 
     def _alone_bids(self, w):
-        """The lone group's score bids at score values w >= v*."""
+        """The lone group's score bids at score values w >= v*: the integral of F^(n - 1) from v*
+        to w by Gauss-Legendre on eight panels of equal probability (a long upper tail stays in
+        the last ones)."""
         g, k = self.groups[self.alone], self.n[self.alone] - 1.0
         w = np.asarray(w, float)
         xi, wi = _GL32
-        half = 0.5 * (w - self.v_star)
-        t = self.v_star + half[:, None] * (xi[None, :] + 1.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            area = (half[:, None] * wi[None, :] * g.cdf(t) ** k).sum(1)
-            return w - (area + (self.v_star - self.beta) * float(g.cdf(self.v_star)) ** k) / g.cdf(w) ** k
+        u0, u1 = float(g.cdf(self.v_star)), np.asarray(g.cdf(w), float)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            edges = g.at_quantile(u0 + (u1[:, None] - u0) * np.linspace(0.0, 1.0, 9)[None, :])
+            edges[:, 0], edges[:, -1] = self.v_star, w
+            half = 0.5 * np.diff(edges, axis=1)
+            t = edges[:, :-1, None] + half[:, :, None] * (xi[None, None, :] + 1.0)
+            area = (half[:, :, None] * wi[None, None, :] * g.cdf(t) ** k).sum((1, 2))
+            return w - (area + (self.v_star - self.beta) * u0**k) / u1**k
 
     def _top_bid(self):
         if self.alone is None:
             return self.span_top
-        return float(self._alone_bids(np.array([self.tops[self.alone]]))[0])
+        g, top = self.groups[self.alone], self.tops[self.alone]
+        if math.isfinite(top):
+            return float(self._alone_bids(np.array([top]))[0])
+        # no top: the bids rise to v* + int_v*^inf (1 - F^(n - 1)) - (v* - beta) F(v*)^(n - 1)
+        k = self.n[self.alone] - 1.0
+        rest = integrate.quad(lambda t: 1.0 - float(g.cdf(t)) ** k, self.v_star, np.inf, epsabs=1e-13 * self.scale,
+                              epsrel=1e-12, limit=200)[0]
+        return float(self.v_star + rest - (self.v_star - self.beta) * float(g.cdf(self.v_star)) ** k)
 
     def _tau_table(self, s):
         """Every group's inverse bid on 1,025 values of tau in span s, to start the inversion from."""

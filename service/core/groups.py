@@ -153,15 +153,16 @@ class GroupAuction:
         """The score at which every group starts bidding under first price: the reserve, where it
         is at or above every group's lowest score, else the lowest score all groups share."""
         lows = [g.m * g.model.lower for g in self.groups]
-        for g in self.groups:
-            span = g.model.upper - g.model.lower
-            ok = math.isfinite(span)
-            if ok:  # the density at the top, against the span's average 1/span: uniform 1, power(a) a
-                ok = float(g.model.pdf(np.array(g.model.upper - 1e-6 * span))) * span >= 1e-2
-            if not ok:
-                raise ParameterError("rules", "first price with bidder groups is offered for value models with a top and "
-                                              "a positive density there (uniform, power, a truncated family); "
-                                              f"group {g.name!r} has none: ask for second price or the ascending clock")
+        flat = [g for g in self.groups if ScoreGroup(g.model, g.n, g.m).flat_top]
+        if len(flat) > 1 or (flat and flat[0].n < 2):
+            names = ", ".join(repr(g.name) for g in flat)
+            raise ParameterError("rules", "first price with bidder groups is offered where every group's model has a top "
+                                          "with a positive density there (uniform, power, a truncated family), but one: "
+                                          "a group of two bidders or more whose model has none (lognormal, gamma) may "
+                                          "bid on alone above the others' last bids; here "
+                                          f"{'groups' if len(flat) > 1 else 'group'} {names} "
+                                          f"{'have' if len(flat) > 1 else 'has one bidder and'} none: ask for second "
+                                          "price or the ascending clock")
         if self.floor is not None and self.floor >= max(lows):
             return self.floor
         spread = max(lows) - min(lows)
