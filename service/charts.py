@@ -166,7 +166,7 @@ def by_axis(points, axis, direction, *, optimum=None, width, height, currency=No
     rules = [r["rule"] for r in points[0][1]["results"]]
     for k, ((ink, style), rule) in enumerate(zip(INKS * 2, rules)):
         res = [p[1]["results"][k] for p in points]
-        mean = [r[f"expected_{money}"] for r in res]
+        mean = [math.nan if r[f"expected_{money}"] is None else r[f"expected_{money}"] for r in res]
         q = [{e["p"]: e["value"] for e in r.get(f"{money}_quantiles") or []} for r in res]
         low, high = [e.get(0.05) for e in q], [e.get(0.95) for e in q]
         label = rule.replace("_", " ")
